@@ -1,0 +1,134 @@
+"""Write protocol/vectors/frames.json from the bodies and meanings listed here.
+
+Run: python protocol/vectors/generate.py. The meanings are written by hand from
+PROTOCOL.md; only the CRC field is computed (CRC-16/IBM-3740, a bit-by-bit loop written out
+below so this script does not depend on the package). Re-run after changing the list.
+"""
+
+from pathlib import Path
+
+import json
+
+
+def crc16(data: bytes) -> int:
+    crc = 0xFFFF
+    for byte in data:
+        crc ^= byte << 8
+        for _ in range(8):
+            crc = ((crc << 1) ^ 0x1021) & 0xFFFF if crc & 0x8000 else (crc << 1) & 0xFFFF
+    return crc
+
+
+def frame(body: str) -> str:
+    return "@%s|%04X\n" % (body, crc16(body.encode()))
+
+
+# (direction, body, meaning). direction: who sends it: "host" or "board".
+GOOD = [
+    ("host", "hello 1 1.0", {"type": "Hello", "seq": 1, "version": "1.0"}),
+    ("host", "param 2 0", {"type": "DescribeParam", "seq": 2, "index": 0}),
+    ("host", "signal 3 4", {"type": "DescribeSignal", "seq": 3, "index": 4}),
+    ("host", "loop 4 1", {"type": "DescribeLoop", "seq": 4, "index": 1}),
+    ("host", "get 5 tilt_kp tilt_ki", {"type": "Get", "seq": 5, "names": ["tilt_kp", "tilt_ki"]}),
+    ("host", "set 6 tilt_kp=0.64 tilt_ki=9.9 tilt_kd=0",
+     {"type": "Set", "seq": 6, "values": {"tilt_kp": 0.64, "tilt_ki": 9.9, "tilt_kd": 0.0}}),
+    ("host", "set 7 trip_tilt=2.5e1", {"type": "Set", "seq": 7, "values": {"trip_tilt": 25.0}}),
+    ("host", "save 8", {"type": "Save", "seq": 8}),
+    ("host", "restore 9", {"type": "Restore", "seq": 9}),
+    ("host", "arm 10", {"type": "Arm", "seq": 10}),
+    ("host", "disarm 11", {"type": "Disarm", "seq": 11}),
+    ("host", "clear 12", {"type": "Clear", "seq": 12}),
+    ("host", "mode 13 hold", {"type": "Mode", "seq": 13, "name": "hold", "args": {}}),
+    ("host", "mode 14 relay loop=tilt amp=0.5 hyst=0.06 bias=0 bound=8",
+     {"type": "Mode", "seq": 14, "name": "relay",
+      "args": {"loop": "tilt", "amp": "0.5", "hyst": "0.06", "bias": "0", "bound": "8"}}),
+    ("host", "mode 15 open loop=speed out=20 time_s=2",
+     {"type": "Mode", "seq": 15, "name": "open", "args": {"loop": "speed", "out": "20", "time_s": "2"}}),
+    ("host", "mode 16 inject loop=tilt shape=pulse at=body amp=0.05 time_s=0.1",
+     {"type": "Mode", "seq": 16, "name": "inject",
+      "args": {"loop": "tilt", "shape": "pulse", "at": "body", "amp": "0.05", "time_s": "0.1"}}),
+    ("host", "mode 17 off", {"type": "Mode", "seq": 17, "name": "off", "args": {}}),
+    ("host", "stream 18 rate_hz=250", {"type": "Stream", "seq": 18, "rate_hz": 250.0}),
+    ("host", "kill 19", {"type": "Kill", "seq": 19}),
+    ("host", "status 65535", {"type": "StatusRequest", "seq": 65535}),
+    ("host", "hb", {"type": "Heartbeat"}),
+    ("board", "ok 1 proto=1.0 board=demo-balance-1 fw=0.1.0 rig=balance rate_hz=500 "
+     "watchdog_ms=500 params=20 signals=7 loops=2 sim=1",
+     {"type": "Ok", "seq": 1, "fields": {
+         "proto": "1.0", "board": "demo-balance-1", "fw": "0.1.0", "rig": "balance",
+         "rate_hz": "500", "watchdog_ms": "500", "params": "20", "signals": "7",
+         "loops": "2", "sim": "1"}}),
+    ("board", "ok 2 index=0 name=tilt_kp unit=rev/s/deg min=0 max=10 value=0.64 access=rw",
+     {"type": "Ok", "seq": 2, "fields": {
+         "index": "0", "name": "tilt_kp", "unit": "rev/s/deg", "min": "0", "max": "10",
+         "value": "0.64", "access": "rw"}}),
+    ("board", "ok 4 index=1 name=tilt measure=tilt output=cmd gains=tilt_kp,tilt_ki,tilt_kd "
+     "plant=unstable relay=integral",
+     {"type": "Ok", "seq": 4, "fields": {
+         "index": "1", "name": "tilt", "measure": "tilt", "output": "cmd",
+         "gains": "tilt_kp,tilt_ki,tilt_kd", "plant": "unstable", "relay": "integral"}}),
+    ("board", "err 6 range tilt_kp 0..10", {"type": "Err", "seq": 6, "code": "range", "text": "tilt_kp 0..10"}),
+    ("board", "err 10 interlock heartbeat,tilt",
+     {"type": "Err", "seq": 10, "code": "interlock", "text": "heartbeat,tilt"}),
+    ("board", "tm 1234 4294967000 0.812 -3.5 12.25 0 1",
+     {"type": "Telemetry", "frame": 1234, "time_us": 4294967000,
+      "values": [0.812, -3.5, 12.25, 0.0, 1.0]}),
+    ("board", "tm 0 12 1e-3 -2.5E+2", {"type": "Telemetry", "frame": 0, "time_us": 12, "values": [0.001, -250.0]}),
+    ("board", "st 5000000 mode=hold loop=- motor=running fault=none why=none drops=0 rx_err=1 hb_ms=40",
+     {"type": "Status", "time_us": 5000000, "fields": {
+         "mode": "hold", "loop": "-", "motor": "running", "fault": "none", "why": "none",
+         "drops": "0", "rx_err": "1", "hb_ms": "40"}}),
+    ("board", "ev 5000123 trip cause=tilt_limit value=25.3",
+     {"type": "Event", "time_us": 5000123, "kind": "trip", "fields": {"cause": "tilt_limit", "value": "25.3"}}),
+    ("board", "ev 0 boot reason=power", {"type": "Event", "time_us": 0, "kind": "boot", "fields": {"reason": "power"}}),
+    ("board", "ev 777 mode mode=relay loop=tilt",
+     {"type": "Event", "time_us": 777, "kind": "mode", "fields": {"mode": "relay", "loop": "tilt"}}),
+]
+
+# (direction, raw line as written (escapes allowed), error code it must raise)
+BAD = [
+    ("host", "@hello 1 1.0|0000\n", "crc"),
+    ("host", "@hello 1 1.0|12G4\n", "crc"),
+    ("host", "@hello 1 1.0|12\n", "crc"),
+    ("host", "@hello 1 1.0\n", "truncated"),
+    ("host", "@hello 1 1@" + frame("hb")[1:], "truncated"),
+    ("host", "@" + "x" * 250 + "|0000\n", "too_long"),
+    ("host", "AT+GCAP\r\n", "junk"),
+    ("host", "garbage" + frame("hb"), "junk"),
+    ("host", "@hello 1 1.0\t|" + "%04X" % crc16(b"hello 1 1.0\t") + "\n", "bad_char"),
+    ("host", frame("jump 3"), "unknown_verb"),
+    ("host", frame("set 3 tilt_kp=abc"), "bad_number"),
+    ("host", frame("set 3 tilt_kp=nan"), "bad_number"),
+    ("host", frame("set 3 tilt_kp=.5"), "bad_number"),
+    ("host", frame("set 3 tilt_kp=1 tilt_kp=2"), "bad_field"),
+    ("host", frame("set 3"), "bad_field"),
+    ("host", frame("get 70000 tilt_kp"), "bad_number"),
+    ("host", frame("mode 3 dance"), "bad_field"),
+    ("host", frame("tm 1 2 3"), "wrong_direction"),
+    ("board", frame("tm 1 2 x"), "bad_number"),
+    ("board", frame("tm 4294967296 2 1"), "bad_number"),
+    ("board", frame("ok"), "bad_field"),
+    ("board", frame("ok 1 name"), "bad_field"),
+    ("board", frame("hello 1 1.0"), "wrong_direction"),
+    ("board", frame("wat 1"), "unknown_verb"),
+]
+
+
+def main() -> None:
+    out = {
+        "about": "Test vectors for protocol/PROTOCOL.md version 1.0. 'frame' is the exact byte "
+        "string (JSON string escapes: \\n = LF, \\r = CR, \\u0018 = kill byte). Good frames decode to 'meaning'; bad ones must be rejected "
+        "with 'error' (PROTOCOL.md §2-§3). direction = who sends it.",
+        "crc_check": {"algorithm": "CRC-16/IBM-3740", "poly": "0x1021", "init": "0xFFFF",
+                      "refin": False, "refout": False, "xorout": "0x0000",
+                      "input": "123456789", "check": "0x29B1"},
+        "good": [{"direction": d, "frame": frame(b), "meaning": m} for d, b, m in GOOD],
+        "bad": [{"direction": d, "frame": raw, "error": e} for d, raw, e in BAD],
+    }
+    path = Path(__file__).with_name("frames.json")
+    path.write_text(json.dumps(out, indent=1, ensure_ascii=True) + "\n")
+    print(f"wrote {path} ({len(GOOD)} good, {len(BAD)} bad)")
+
+
+if __name__ == "__main__":
+    main()
