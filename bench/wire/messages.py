@@ -24,7 +24,7 @@ U32 = 1 << 32
 # PROTOCOL.md §3: token grammar.
 NAME_RE = re.compile(r"[a-z][a-z0-9_]{0,31}\Z")
 NUMBER_RE = re.compile(r"-?\d+(\.\d+)?([eE][-+]?\d+)?\Z")
-WORD_RE = re.compile(r"[A-Za-z0-9_.:/%+^-]{1,48}\Z")
+WORD_RE = re.compile(r"[A-Za-z0-9_.:/%+^,-]{1,48}\Z")
 UINT_RE = re.compile(r"\d{1,10}\Z")
 
 
