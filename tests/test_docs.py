@@ -1,0 +1,30 @@
+"""The README's quick start and the CI script agree; documented examples stay true."""
+
+import re
+from pathlib import Path
+
+ROOT = Path(__file__).parents[1]
+
+
+def _quickstart_lines():
+    text = (ROOT / "README.md").read_text()
+    block = re.search(r"## Quick start.*?```(?:sh|bash)?\n(.*?)```", text, re.S)
+    assert block, "README has a Quick start code block"
+    return [ln for ln in block.group(1).splitlines() if ln.strip()]
+
+
+def test_quickstart_is_two_lines():
+    assert len(_quickstart_lines()) == 2
+
+
+def test_ci_runs_readme_line_two_exactly():
+    line2 = _quickstart_lines()[1]
+    ci = [ln for ln in (ROOT / ".ci" / "run").read_text().splitlines()
+          if ln.strip() and not ln.startswith("#") and not ln.startswith(("set ", "cd "))]
+    assert ci == [line2]
+
+
+def test_protocol_spec_states_crc_parameters_and_check_value():
+    spec = (ROOT / "protocol" / "PROTOCOL.md").read_text()
+    for needle in ("CRC-16/IBM-3740", "0x1021", "0xFFFF", "0x29B1", "0x18", "not an emergency stop"):
+        assert needle in spec
