@@ -140,7 +140,10 @@ class BalanceRig:
     biased, noisy), ``wheel_rad_s`` (encoder count difference over ``dt_s`` plus noise) and
     ``wheel_angle_rad`` (encoder count). It does not run the tilt filter: the board does,
     with ``ComplementaryFilter``. ``noise`` scales the random noise and the sensor biases
-    (0: ideal sensors, encoder quantisation stays). ``truth()`` gives the exact state.
+    (0: ideal sensors, encoder quantisation stays). ``truth()`` gives the exact state
+    (``torque_Nm`` is the motor torque at the start of the last substep).
+    ``push(torque_Nm, duration_s)`` disturbs the body; ``set_state`` places the rig (e.g.
+    lifted upright by hand); ``reset()`` returns it to ``initial_tilt_rad`` at rest.
     """
 
     def __init__(self, params: BalanceParams | None = None, *, drive: str = "speed",

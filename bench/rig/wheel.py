@@ -172,7 +172,7 @@ class WheelRig:
             if self._load_left > 0:
                 load = self._load_Nm
                 self._load_left -= 1
-            if w == 0.0:
+            if w == 0.0 and tc > 0.0:
                 drive = kt * i + load
                 if abs(drive) <= tc:
                     d = self._stuck_decay
