@@ -51,7 +51,7 @@ def main() -> None:
             s = r.truth()
             e = s["tilt_rad"] - r.params.balance_offset_rad
             state["i"] += e * dt
-            return 400.0 * e + 40.0 * s["tilt_rate_rad_s"] + 2000.0 * state["i"]
+            return 400.0 * e + 40.0 * s["rate_rad_s"] + 2000.0 * state["i"]
         return r, cmd
 
     def balance_torque():
@@ -61,7 +61,7 @@ def main() -> None:
         def cmd(k):
             s = r.truth()
             return 3.0 * (s["tilt_rad"] - r.params.balance_offset_rad) \
-                + 0.3 * s["tilt_rate_rad_s"] + 0.0005 * s["wheel_rad_s"]
+                + 0.3 * s["rate_rad_s"] + 0.0005 * s["wheel_rad_s"]
         return r, cmd
 
     def wheel():

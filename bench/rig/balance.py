@@ -98,7 +98,8 @@ class BalanceParams:
             if not math.isfinite(getattr(self, name)):
                 raise ValueError(f"BalanceParams.{name} must be finite")
         if self.counts_per_rev < 0 or int(self.counts_per_rev) != self.counts_per_rev:
-            raise ValueError(f"counts_per_rev must be a whole number >= 0, got {self.counts_per_rev}")
+            raise ValueError("counts_per_rev must be a whole number >= 0, "
+                             f"got {self.counts_per_rev}")
 
     @property
     def mgl_Nm_rad(self) -> float:
@@ -198,17 +199,17 @@ class BalanceRig:
         self._encoder.reset(0.0)
         self._measure()
 
-    def set_state(self, *, tilt_rad: float | None = None, tilt_rate_rad_s: float | None = None,
+    def set_state(self, *, tilt_rad: float | None = None, rate_rad_s: float | None = None,
                   wheel_rad_s: float | None = None) -> None:
         """Put the rig in a given state (e.g. lifted upright by hand); others unchanged."""
         if tilt_rad is not None:
             if not (math.isfinite(tilt_rad) and abs(tilt_rad) <= self.params.tilt_stop_rad):
                 raise ValueError(f"tilt_rad must lie within the stops, got {tilt_rad}")
             self._th = float(tilt_rad)
-        if tilt_rate_rad_s is not None:
-            if not math.isfinite(tilt_rate_rad_s):
-                raise ValueError("tilt_rate_rad_s must be finite")
-            self._w = float(tilt_rate_rad_s)
+        if rate_rad_s is not None:
+            if not math.isfinite(rate_rad_s):
+                raise ValueError("rate_rad_s must be finite")
+            self._w = float(rate_rad_s)
         if wheel_rad_s is not None:
             if not math.isfinite(wheel_rad_s):
                 raise ValueError("wheel_rad_s must be finite")
@@ -335,7 +336,7 @@ class BalanceRig:
         """The exact state (no noise): tilt, rates, wheel angle, last torque, push, time."""
         return {
             "tilt_rad": self._th,
-            "tilt_rate_rad_s": self._w,
+            "rate_rad_s": self._w,
             "wheel_angle_rad": self._ph,
             "wheel_rad_s": self._v,
             "torque_Nm": self._tau,

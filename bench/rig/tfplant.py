@@ -76,7 +76,8 @@ class TransferFunctionPlant:
                              f"got {measurement_noise_std}")
         lo, hi = (float(v) for v in input_limits)
         if not lo < hi:
-            raise ValueError(f"input_limits must be (low, high) with low < high, got {input_limits}")
+            raise ValueError("input_limits must be (low, high) with low < high, "
+                             f"got {input_limits}")
         if noise > 0.0 and rng is None:
             raise ValueError("rng is needed when noise > 0")
         self.num = tuple(num_a.tolist())

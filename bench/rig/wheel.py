@@ -69,7 +69,8 @@ class WheelParams:
             if not (math.isfinite(v) and v >= 0.0):
                 raise ValueError(f"WheelParams.{name} must be finite and >= 0, got {v}")
         if self.counts_per_rev < 0 or int(self.counts_per_rev) != self.counts_per_rev:
-            raise ValueError(f"counts_per_rev must be a whole number >= 0, got {self.counts_per_rev}")
+            raise ValueError("counts_per_rev must be a whole number >= 0, "
+                             f"got {self.counts_per_rev}")
 
     @property
     def electrical_time_constant_s(self) -> float:
