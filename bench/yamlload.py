@@ -257,6 +257,12 @@ class Cursor:
         self.expect_mapping()
         return [(k, self._child(k, v, self.value.lines[k][1])) for k, v in self.value.items()]
 
+    def as_mapping(self, items: dict) -> "Cursor":
+        """A cursor on a mapping built here (a shorthand expanded), every line this one's."""
+        out = _Map(items)
+        out.line, out.lines = self.line, {k: (self.line, self.line) for k in items}
+        return Cursor(out, self.path, self.field, self.line)
+
     def key_line(self, key: str) -> int:
         return self.value.lines[key][0]
 
