@@ -1,0 +1,443 @@
+"""The simulated board: a rig's firmware behaviour on the board side of the codec.
+
+One ``SimBoard`` is one board. Host bytes go in with ``receive(data)``; ``step()`` runs one
+loop period (plant, sensors, safety, controllers, telemetry, status); ``output()`` drains
+the transmit buffer. Nothing here reads a clock or starts a thread: time is the count of
+loop periods (``time_s``), so a board is deterministic for a given plant seed and input.
+
+What it implements (PROTOCOL.md section beside the code):
+- §4 every command gets exactly one reply; a command repeated with the sequence number of
+  the last answered one gets that reply again and is not acted on (§4.2). A repeated
+  number with a different command is taken as a new command (a new host session may
+  restart its numbering).
+- §5 discovery from the rig's declaration (bench.rig.boards); atomic ``set``; ``save`` /
+  ``restore`` through ``NvStore``; the board boots with its stored values.
+- §6 telemetry at loop rate / n with a 32-bit frame counter and µs clock, status at 5 Hz,
+  events (boot, mode, trip, clear, done); a bounded transmit buffer that drops telemetry.
+- §7 kill byte acted on at once; watchdog; the motor-off interlock with the state table of
+  bench.wire.states (TRANSITIONS / REFUSALS); trip limits from ``trip_<signal>``.
+- §8 modes off / hold / relay / open / inject, run by ``LoopEngine``.
+- One-sample computational delay: the command computed in period k reaches the plant in
+  period k+1; a trip or kill zeroes the pending command at once.
+
+Must not import serial, bench.link, bench.ui, Textual or control.
+"""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from bench.rig.boards import RigDef, rig_def
+from bench.rig.firmware_control import LoopEngine, ModeRun
+from bench.rig.firmware_modes import ModeRefusal, TxBuffer, applied_fields, parse_mode
+from bench.rig.firmware_params import NvStore, ParamTable
+from bench.wire import messages as m
+from bench.wire.codec import BoardCodec
+from bench.wire.describe import BoardInfo, SignalInfo, LoopInfo, parse_version
+from bench.wire.errors import RemoteProtocolError
+from bench.wire.frame import BadFrame, KillByte
+from bench.wire.states import INTERLOCK_CONDITIONS, REFUSALS, next_state
+
+__all__ = ["SimBoard", "make_board", "FW_VERSION"]
+
+FW_VERSION = "0.1.0"
+STATUS_HZ = 5.0
+U32 = 1 << 32
+_MESSAGE_ERRORS = {"bad_number": "bad_args", "bad_field": "bad_args",
+                   "unknown_verb": "unknown_verb"}
+
+
+class SimBoard:
+    """A simulated board running ``rig`` on ``plant`` (see the module docstring).
+
+    ``state_path``: JSON file of the non-volatile storage (None: in memory).
+    ``clock_start_us``: the µs clock at boot (to exercise the 32-bit wrap).
+    ``hand_tilt_deg``: where the simulated hand holds a balance rig while not running.
+    """
+
+    def __init__(self, rig: RigDef, plant, *, state_path: str | None = None,
+                 tx_capacity_bytes: int = 4096, clock_start_us: int = 0,
+                 hand_tilt_deg: float = 0.0) -> None:
+        self.rig = rig
+        self.plant = plant
+        self.rate_hz = rig.rate_hz
+        self.dt_s = 1.0 / rig.rate_hz
+        if abs(plant.dt_s - self.dt_s) > 1e-12:
+            raise ValueError("the plant must step at the board's loop period")
+        self.watchdog_s = rig.watchdog_ms / 1000.0
+        self.nv = NvStore(rig.rig, rig.params, state_path)
+        self.params = ParamTable(rig.params)
+        self.instruments = rig.make_instruments(self.dt_s)
+        self.engine = LoopEngine(rig, self.dt_s)
+        self.tx = TxBuffer(tx_capacity_bytes)
+        self.clock_start_us = int(clock_start_us) % U32
+        self.hand_tilt_deg = hand_tilt_deg
+        self._status_every = max(1, round(self.rate_hz / STATUS_HZ))
+        self._steps = 0
+        self.boots = 0
+        self._boot("power")
+
+    # ------------------------------------------------------------------ time, state
+
+    @property
+    def time_s(self) -> float:
+        """Simulated seconds since this board object was made (continues across reboots)."""
+        return self._steps * self.dt_s
+
+    @property
+    def time_us(self) -> int:
+        """The board's 32-bit microsecond clock (restarts at boot, wraps at 2³²)."""
+        n = self._steps - self._boot_step
+        return (self.clock_start_us + round(n * 1e6 / self.rate_hz)) % U32
+
+    def reboot(self, reason: str = "reset") -> None:
+        """Restart the firmware: live state lost, stored parameters kept, plant untouched."""
+        self._boot(reason)
+
+    def _boot(self, reason: str) -> None:
+        self.boots += 1
+        self._boot_step = self._steps
+        self.codec = BoardCodec()
+        self.params.load_defaults()
+        image = self.nv.image
+        if image:
+            self.params.values.update(image)
+        self.instruments.reset()
+        self.engine.reset()
+        self.tx.clear()
+        self.motor = "off"
+        self.fault: str | None = None
+        self.mode = ModeRun()
+        self.signals = {s.name: 0.0 for s in self.rig.signals}
+        self.drops = 0
+        self.rx_err = 0
+        self.frame = 0
+        self.stream_div = 0
+        self.last_hb_s: float | None = None
+        self._last_cmd = None
+        self._last_reply = b""
+        self._pending_si = 0.0
+        self._event("boot", reason=reason)
+
+    # ------------------------------------------------------------------ byte interface
+
+    def receive(self, data: bytes) -> None:
+        """Host → board bytes; commands are answered and the kill byte acted on in order."""
+        for ev in self.codec.receive(data):
+            kind = type(ev)
+            if kind is KillByte:
+                self._trip("kill")                      # §7.1: at once, mid-line too
+            elif kind is m.Heartbeat:
+                self.last_hb_s = self.time_s            # §7.2
+            elif kind is BadFrame:
+                self.rx_err += 1
+                self._answer_bad(ev)
+            else:
+                self._command(ev)
+
+    def output(self, max_bytes: int | None = None) -> bytes:
+        """Drain up to ``max_bytes`` (all by default) of the transmit buffer."""
+        return self.tx.take(max_bytes)
+
+    def step(self, *, firmware: bool = True) -> None:
+        """One loop period. ``firmware=False``: the firmware is stalled (plant only, the
+        last command held, no control, no output)."""
+        if self.rig.held_upright and self.motor in ("off", "armed"):
+            self.plant.set_state(tilt_rad=math.radians(self.hand_tilt_deg), rate_rad_s=0.0)
+        self.plant.step(self._pending_si)
+        self._steps += 1
+        if not firmware:
+            return
+        sig = self.signals
+        sig.update(self.instruments.read(self.plant.sensors(), self.params.values))
+        self._safety()
+        if self.motor == "running":
+            self._run_mode()
+        if self.motor != "running":
+            self.engine.idle(sig, self.params.values)
+        cmd = sig[self.rig.command] if self.motor == "running" else 0.0
+        self._pending_si = cmd * self.rig.command_si
+        n = self._steps - self._boot_step
+        if self.stream_div and n % self.stream_div == 0:
+            self._telemetry()
+        if n % self._status_every == 0:
+            self.tx.put(self._encode(m.Status(self.time_us, self._status_fields())), "status")
+
+    # ------------------------------------------------------------------ loop period parts
+
+    def _safety(self) -> None:
+        if self.motor not in ("armed", "running"):
+            return
+        if self.last_hb_s is None or self.time_s - self.last_hb_s > self.watchdog_s:
+            self._trip("watchdog")
+            return
+        for p in self.rig.params:
+            if p.name.startswith("trip_") and p.name[5:] in self.signals:
+                v = self.signals[p.name[5:]]
+                if abs(v) > self.params.values[p.name]:
+                    self._trip(f"{p.name[5:]}_limit", v)
+                    return
+
+    def _run_mode(self) -> None:
+        out = self.engine.run(self.signals, self.params.values, self.mode)
+        if out.bound_loop is not None:
+            self._trip("relay_bound", out.bound_value)
+            return
+        run = self.mode
+        if run.end_s is not None and self.time_s >= run.end_s - 1e-9:
+            name = run.name
+            self._event("done", mode=name)
+            if name == "open":
+                self._happen("stop")
+            else:
+                self._set_mode(ModeRun(name="hold"))
+
+    def _telemetry(self) -> None:
+        values = tuple(self.signals[s.name] for s in self.rig.signals)
+        frame = self._encode(m.Telemetry(self.frame, self.time_us, values))
+        self.frame = (self.frame + 1) % U32          # counts dropped frames too (§6.1)
+        if not self.tx.put(frame, "telemetry"):
+            self.drops += 1
+
+    # ------------------------------------------------------------------ motor and modes
+
+    def _happen(self, happening: str) -> str | None:
+        """Apply a happening of the state table; return the refusal code or None."""
+        nxt = next_state(self.motor, happening)
+        if nxt is None:
+            return REFUSALS.get((self.motor, happening), "state")
+        was, self.motor = self.motor, nxt
+        if nxt != "running" and self.mode.name != "off":
+            self._set_mode(ModeRun())
+        if was != "running" and nxt == "running":
+            self.engine.reset()
+        if nxt != "running":
+            self._pending_si = 0.0
+        return None
+
+    def _set_mode(self, run: ModeRun) -> None:
+        old = self.mode
+        overrides = old.name == "open" or (
+            old.name == "relay" and self.rig.loop(old.loop).relay == "output")
+        if overrides and not (run.loop == old.loop and run.name in ("open", "relay")):
+            self.engine.leave_override(old.loop)
+        if run.name == "relay":
+            lp = self.rig.loop(run.loop)
+            sp = self.engine._setpoint(lp, self.signals, self.params.values)
+            self.engine.start_relay(lp.name, self.engine.pids[lp.name].error(
+                sp, self.signals[lp.measure]))
+        if run.name in ("open", "inject"):
+            run.end_s = self.time_s + run.time_s
+        if run.name == "inject" and run.at == "body":
+            self.plant.push(run.amp, run.time_s)
+        self.mode = run
+        self._event("mode", mode=run.name, loop=run.loop or "-")
+
+    def _trip(self, cause: str, value: float | None = None) -> None:
+        if self.motor != "tripped":                   # the first cause stays latched
+            self.fault = cause
+            fields = {"cause": cause}
+            if value is not None:
+                fields["value"] = float(value)
+            self._event("trip", **fields)
+        self._happen("trip")
+        self._pending_si = 0.0
+
+    def interlock_reasons(self) -> list[str]:
+        """Conditions that would refuse an ``arm`` now (PROTOCOL.md §7.3), in order."""
+        why = []
+        vals = self.params.values
+        for cond in INTERLOCK_CONDITIONS:
+            if cond == "fault" and self.fault is not None:
+                why.append(cond)
+            elif cond == "heartbeat" and (self.last_hb_s is None
+                                          or self.time_s - self.last_hb_s > self.watchdog_s):
+                why.append(cond)
+            elif cond == "gains" and not all(self.params.in_range(g)
+                                             for lp in self.rig.loops for g in lp.gains):
+                why.append(cond)
+            elif f"arm_{cond}" in vals and abs(self.signals[cond]) > vals[f"arm_{cond}"]:
+                why.append(cond)
+        return why
+
+    def _status_fields(self) -> list[tuple[str, object]]:
+        since = self.time_s - (self.last_hb_s if self.last_hb_s is not None
+                               else self._boot_step * self.dt_s)
+        why = self.interlock_reasons()
+        return [("mode", self.mode.name), ("loop", self.mode.loop or "-"),
+                ("motor", self.motor), ("fault", self.fault or "none"),
+                ("why", ",".join(why) or "none"), ("drops", self.drops),
+                ("rx_err", self.rx_err), ("hb_ms", min(round(since * 1000), U32 - 1))]
+
+    def _busy_gains(self) -> frozenset[str]:
+        if self.mode.name in ("relay", "open", "inject"):
+            return frozenset(self.rig.loop(self.mode.loop).gains)
+        return frozenset()
+
+    # ------------------------------------------------------------------ replies
+
+    @staticmethod
+    def _encode(msg) -> bytes:
+        return BoardCodec.encode(msg)
+
+    def _event(self, kind: str, **fields) -> None:
+        self.tx.put(self._encode(m.Event(self.time_us, kind, tuple(fields.items()))), "event")
+
+    def _answer_bad(self, ev: BadFrame) -> None:
+        """§3: a command whose body was unreadable gets ``err`` when its seq was readable."""
+        reply_code = _MESSAGE_ERRORS.get(ev.code)
+        if reply_code is None:
+            return
+        tokens = ev.raw.decode("ascii", "replace").split(" ")
+        if len(tokens) < 2 or not tokens[1].isdigit() or int(tokens[1]) >= m.SEQ_MODULO:
+            return
+        if reply_code == "bad_args" and tokens[0] not in m.COMMANDS:
+            return
+        text = ev.detail.replace("'", "")[:60]
+        self.tx.put(self._encode(m.Err(int(tokens[1]), reply_code, text)), "reply")
+
+    def _command(self, cmd: m.Command) -> None:
+        if cmd == self._last_cmd:                     # §4.2: resend, do not act again
+            self.tx.put(self._last_reply, "reply")
+            return
+        handler = getattr(self, "_on_" + cmd.VERB)
+        result = handler(cmd)
+        if isinstance(result, tuple):
+            reply = m.Err(cmd.seq, result[0], result[1])
+        else:
+            reply = m.Ok(cmd.seq, tuple(result))
+        data = self._encode(reply)
+        self._last_cmd, self._last_reply = cmd, data
+        self.tx.put(data, "reply")
+
+    # Each handler returns the reply fields (a list) or an (error code, text) tuple.
+
+    def _on_hello(self, cmd):
+        try:
+            major, _minor = parse_version(cmd.version)
+        except RemoteProtocolError:
+            return "bad_args", "version major.minor"
+        if major != m.PROTOCOL_VERSION[0]:
+            return "version", "board speaks %d.%d" % m.PROTOCOL_VERSION
+        info = BoardInfo(m.PROTOCOL_VERSION, self.rig.board, FW_VERSION, self.rig.rig,
+                         self.rate_hz, self.rig.watchdog_ms, len(self.rig.params),
+                         len(self.rig.signals), len(self.rig.loops), simulated=True)
+        return info.to_fields()
+
+    def _on_param(self, cmd):
+        if cmd.index >= len(self.rig.params):
+            return "unknown_name", f"no parameter {cmd.index}"
+        return self.params.info(cmd.index).to_fields()
+
+    def _on_signal(self, cmd):
+        if cmd.index >= len(self.rig.signals):
+            return "unknown_name", f"no signal {cmd.index}"
+        s = self.rig.signals[cmd.index]
+        return SignalInfo(cmd.index, s.name, s.unit).to_fields()
+
+    def _on_loop(self, cmd):
+        if cmd.index >= len(self.rig.loops):
+            return "unknown_name", f"no loop {cmd.index}"
+        lp = self.rig.loops[cmd.index]
+        return LoopInfo(cmd.index, lp.name, lp.measure, lp.output, lp.gains, lp.plant,
+                        lp.relay).to_fields()
+
+    def _on_get(self, cmd):
+        for name in cmd.names:
+            if name not in self.params:
+                return "unknown_name", f"no parameter {name}"
+        return [(name, self.params.values[name]) for name in cmd.names]
+
+    def _on_set(self, cmd):
+        if len({k for k, _ in cmd.values}) != len(cmd.values):
+            return "bad_args", "a name given twice"
+        refusal = self.params.check_set(cmd.values, self._busy_gains())
+        if refusal is not None:
+            return refusal.code, refusal.text
+        return self.params.apply(cmd.values)            # §5.5: all at once, between periods
+
+    def _on_save(self, cmd):
+        try:
+            crc = self.nv.save(self.params.writable_image())
+        except OSError as exc:
+            return "storage", f"write failed: {exc.strerror or exc}"[:60]
+        return [("count", len(self.params.writable_image())), ("crc", "%04X" % crc)]
+
+    def _on_restore(self, cmd):
+        if self.motor == "running":
+            return "state", "motor running"
+        image = self.nv.image or {}
+        self.params.values.update(image)
+        return [("count", len(image))]
+
+    def _on_arm(self, cmd):
+        code = REFUSALS.get((self.motor, "arm"))
+        if code == "state":
+            return code, "motor running"
+        why = self.interlock_reasons()
+        if why:
+            return "interlock", ",".join(why)
+        self._happen("arm")
+        return [("motor", self.motor)]
+
+    def _on_disarm(self, cmd):
+        self._happen("disarm")
+        return [("motor", self.motor)]
+
+    def _on_clear(self, cmd):
+        was = self.motor
+        self._happen("clear")                           # §7.3: never starts the motor
+        if was == "tripped":
+            self.fault = None
+            self._event("clear")
+        return [("motor", self.motor)]
+
+    def _on_kill(self, cmd):
+        self._trip("kill")
+        return [("motor", self.motor)]
+
+    def _on_status(self, cmd):
+        return self._status_fields()
+
+    def _on_stream(self, cmd):
+        rate = cmd.rate_hz
+        if rate < 0.0:
+            return "range", f"rate_hz 0..{self.rate_hz:g}"
+        if rate == 0.0:
+            self.stream_div = 0
+            return [("rate_hz", 0)]
+        ratio = self.rate_hz / rate                     # nearest loop rate / n (§6.1)
+        lo, hi = max(1, math.floor(ratio)), max(1, math.ceil(ratio))
+        div = lo if abs(self.rate_hz / lo - rate) <= abs(self.rate_hz / hi - rate) else hi
+        self.stream_div = div
+        return [("rate_hz", self.rate_hz / div)]
+
+    def _on_mode(self, cmd):
+        run = parse_mode(cmd.name, cmd.args, self.rig, self.params.values,
+                         has_body_push=hasattr(self.plant, "push"))
+        if isinstance(run, ModeRefusal):
+            return run.code, run.text
+        happening = "stop" if run.name == "off" else "run"
+        if next_state(self.motor, happening) is None:
+            return REFUSALS.get((self.motor, happening), "state"), f"motor {self.motor}"
+        if run.name == "inject" and self.mode.name != "hold":
+            return "state", "inject starts from hold"
+        if run.name == "off":
+            self._happen("stop")
+            if self.mode.name != "off":
+                self._set_mode(run)
+        else:
+            self._happen("run")
+            self._set_mode(run)
+        return applied_fields(run)
+
+
+def make_board(rig: str = "balance", *, drive: str = "speed", num=(1.0,), den=(1.0, 1.0),
+               delay_s: float = 0.0, seed: int = 0, noise: float = 1.0,
+               rate_hz: float = 500.0, state_path: str | None = None, **board_kw) -> SimBoard:
+    """A board for ``rig`` with its plant seeded by ``seed`` (see ``SimBoard`` for the rest)."""
+    rd = rig_def(rig, drive=drive, num=num, den=den, delay_s=delay_s, rate_hz=rate_hz)
+    plant = rd.make_plant(np.random.default_rng(seed), noise, rate_hz)
+    return SimBoard(rd, plant, state_path=state_path, **board_kw)
