@@ -1,0 +1,177 @@
+"""The safety bar and the base screens that put it on every screen and over every dialog.
+
+The bar shows link state, SIMULATED for a simulated board, motor state with the trip cause,
+the failing arm conditions in words and the kill keys (DESIGN.md, Decision 6). Its state is
+the App's ``safety`` reactive (a :class:`~bench.ui.state.SafetyState`), fed by the App's
+timer; each bar watches it, so a pushed screen or dialog shows the same thing at once.
+
+Header and Footer belong to each screen in Textual, so every screen derives from
+:class:`BenchScreen` (or :class:`BenchModal` for dialogs), which composes the bar and the
+footer stacked in one bottom container (two widgets docked at the bottom would overlap).
+
+Must not import: bench.link, bench.rig, bench.tuning, serial.
+"""
+
+from __future__ import annotations
+
+from typing import Generic, TypeVar
+
+from textual.app import ComposeResult
+from textual.containers import Vertical
+from textual.content import Content
+from textual.screen import ModalScreen, Screen
+from textual.widgets import Footer, Static
+
+from .state import KILL_KEYS_TEXT, SafetyState
+
+MOTOR_STYLE = {
+    "off": "bold $success",
+    "armed": "bold $warning",
+    "running": "bold reverse $warning",
+    "tripped": "bold reverse $error",
+    "unknown": "bold $text-muted",
+}
+LINK_STYLE = {"ok": "bold $success", "connecting": "bold $warning"}
+
+
+def bar_lines(state: SafetyState) -> Content:
+    """The bar's two lines as styled text (plain text, no markup parsing)."""
+    sep = ("  │  ", "$text-muted")
+    if state.alarm:
+        first = Content.assemble(("  ALARM  ", "bold reverse $error"), " ",
+                                 (state.alarm, "bold $error"))
+    else:
+        link_parts = [("LINK ", "$text-muted"),
+                      (state.link, LINK_STYLE.get(state.link, "bold $error")),
+                      f"  {state.port}"]
+        if state.link == "ok":
+            link_parts.append(f"  {state.frames_per_s:.0f} frames/s  {state.errors} errors")
+        first = Content.assemble(*link_parts)
+    parts = [first]
+    if state.simulated:
+        parts += [sep, ("SIMULATED", "bold reverse $secondary")]
+    parts += [sep, ("MOTOR ", "$text-muted"),
+              (state.motor_text, MOTOR_STYLE.get(state.motor, "bold $error"))]
+    if state.mode and state.mode != "off":
+        parts += [f"  mode {state.mode}"]
+    parts += [sep, ("KILL ", "bold $error"), (KILL_KEYS_TEXT, "bold")]
+    line1 = Content.assemble(*parts)
+    if state.motor == "tripped":
+        line2 = Content.assemble(("Tripped", "bold $error"),
+                                 f" ({state.fault or 'cause not given'}): clear the fault "
+                                 "(c), then arm again deliberately.")
+    elif state.why and state.motor == "off":
+        line2 = Content.assemble(("Arming blocked: ", "$warning"), "; ".join(state.why))
+    elif state.motor == "off":
+        line2 = Content.assemble(("Ready to arm", "$success"), " (a): every interlock holds.")
+    elif state.motor in ("armed", "running"):
+        line2 = Content.assemble(("Motor enabled.", "bold $warning"),
+                                 f" Kill: {KILL_KEYS_TEXT}. Disarm: d.")
+    else:
+        line2 = Content("Motor state not known yet.")
+    if state.note:
+        line2 = Content.assemble(line2, sep, (state.note, "italic"))
+    return Content.assemble(line1, "\n", line2)
+
+
+class SafetyBar(Static):
+    """Two lines of safety state; turns into an alarm when the link is lost or stale."""
+
+    DEFAULT_CSS = """
+    SafetyBar {
+        height: 2;
+        padding: 0 1;
+        background: $panel;
+        color: $foreground;
+    }
+    SafetyBar.-alarm { background: $error 30%; }
+    SafetyBar.-tripped { background: $error 15%; }
+    SafetyBar.-live { background: $warning 15%; }
+    """
+
+    def __init__(self) -> None:
+        super().__init__("", markup=False)
+        self.state: SafetyState | None = None
+
+    def on_mount(self) -> None:
+        self.watch(self.app, "safety", self.show_state, init=True)
+
+    def show_state(self, state: SafetyState) -> None:
+        self.state = state
+        self.set_class(bool(state.alarm), "-alarm")
+        self.set_class(state.motor == "tripped" and not state.alarm, "-tripped")
+        self.set_class(state.motor in ("armed", "running") and not state.alarm, "-live")
+        self.update(bar_lines(state))
+
+    @property
+    def text(self) -> str:
+        """The bar's plain text (for tests and logs)."""
+        return self.content.plain if hasattr(self.content, "plain") else str(self.content)
+
+
+NAV = (("1", "Live", "live"), ("2", "Experiments", "experiments"), ("3", "Gains", "gains"),
+       ("4", "Sequences", "sequences"), ("5", "Link", "link"), ("F1", "Help", "help"))
+
+
+class TopBar(Static):
+    """The app's name and the screens with their keys; the present one highlighted.
+    Each name is clickable."""
+
+    DEFAULT_CSS = """
+    TopBar { height: 1; background: $panel; color: $text-muted; padding: 0 1; }
+    """
+
+    def __init__(self, current: str) -> None:
+        super().__init__("", markup=False)
+        self.current = current
+
+    def on_mount(self) -> None:
+        items = []
+        for key, label, mode in NAV:
+            style = "bold reverse $primary" if label == self.current else "$foreground"
+            items.append(f"[{style} @click=app.switch_mode('{mode}')] {key} {label} [/]")
+        self.update(Content.from_markup("[bold $primary]rigbench[/]   " + " ".join(items)))
+
+
+class BottomStack(Vertical):
+    """The safety bar above the footer, docked together at the bottom."""
+
+    DEFAULT_CSS = """
+    BottomStack { dock: bottom; height: auto; }
+    """
+
+
+class BenchScreen(Screen):
+    """A full screen with header, body, safety bar and footer. Subclasses write
+    :meth:`compose_body`."""
+
+    def compose(self) -> ComposeResult:
+        yield TopBar(self.SUB_TITLE or "")
+        yield from self.compose_body()
+        with BottomStack():
+            yield SafetyBar()
+            yield Footer()
+
+    def compose_body(self) -> ComposeResult:  # pragma: no cover - overridden
+        yield from ()
+
+
+ResultType = TypeVar("ResultType")
+
+
+class BenchModal(ModalScreen[ResultType], Generic[ResultType]):
+    """A dialog that keeps the safety bar visible beneath it. Subclasses write
+    :meth:`compose_dialog`; the kill keys work here as everywhere (App priority bindings)."""
+
+    DEFAULT_CSS = """
+    BenchModal { align: center middle; }
+    """
+
+    def compose(self) -> ComposeResult:
+        yield from self.compose_dialog()
+        with BottomStack():
+            yield SafetyBar()
+            yield Footer()
+
+    def compose_dialog(self) -> ComposeResult:  # pragma: no cover - overridden
+        yield from ()
