@@ -312,23 +312,27 @@ def read_values(link, names: Iterable[str]) -> dict[str, float]:
 
 
 def profile_from_board(link, loop: str, *, name: str | None = None, extra: Iterable[str] = (),
+                       limits: Iterable[str] | None = None,
                        limit_prefixes: tuple[str, ...] = ("trip_", "arm_"),
                        source: str = "pulled", date: str | None = None,
                        notes: str | None = None) -> Profile:
     """The board's current values of ``loop``'s gains (plus ``extra`` parameters) as a profile.
 
-    Limits are the writable parameters whose names start with ``limit_prefixes`` (the
-    protocol gives ``trip_`` and ``arm_`` their meaning, PROTOCOL.md §5.2).
+    Limits are ``limits`` when given, else the writable parameters whose names start with
+    ``limit_prefixes`` (the protocol gives ``trip_`` and ``arm_`` their meaning, §5.2).
     """
     loops, params, info = link.loops, link.params, link.info
     if loop not in loops:
         raise ValueError(f"the board has no loop {loop!r}; it has: {', '.join(loops) or 'none'}")
     gain_names = list(dict.fromkeys([*loops[loop].gains, *extra]))
-    unknown = [n for n in gain_names if n not in params]
+    if limits is None:
+        limit_names = [n for n, p in params.items() if p.writable and n not in gain_names
+                       and n.startswith(tuple(limit_prefixes))]
+    else:
+        limit_names = [n for n in dict.fromkeys(limits) if n not in gain_names]
+    unknown = [n for n in gain_names + limit_names if n not in params]
     if unknown:
         raise ValueError(f"the board has no parameter {', '.join(unknown)}")
-    limit_names = [n for n, p in params.items() if p.writable and n not in gain_names
-                   and n.startswith(tuple(limit_prefixes))]
     values = read_values(link, gain_names + limit_names)
 
     def setting(n):

@@ -92,36 +92,44 @@ def _line(node) -> int:
     return node.start_mark.line + 1
 
 
-def _convert(node, path: str, depth: int = 0):
+def _sub(field: str, key) -> str:
+    if isinstance(key, int):
+        return f"{field}[{key}]"
+    return f"{field}.{key}" if field else key
+
+
+def _convert(node, path: str, field: str = "", depth: int = 0):
+    where = field or "(top)"
     if depth > MAX_DEPTH:
-        raise SchemaError(path, _line(node), "(file)", f"nested deeper than {MAX_DEPTH} levels")
+        raise SchemaError(path, _line(node), where, f"nested deeper than {MAX_DEPTH} levels")
     tag = node.tag
     if isinstance(node, yaml.MappingNode):
         if tag != _MAP:
-            raise SchemaError(path, _line(node), "(file)", f"tag {tag} is not allowed")
+            raise SchemaError(path, _line(node), where, f"tag {tag} is not allowed")
         out = _Map()
         out.line, out.lines = _line(node), {}
         for knode, vnode in node.value:
             if not isinstance(knode, yaml.ScalarNode) or knode.tag not in (_STR, _INT):
-                raise SchemaError(path, _line(knode), "(file)",
+                raise SchemaError(path, _line(knode), where,
                                   "keys must be plain names, not lists, mappings or other values")
             key = knode.value
             if key in out:
-                raise SchemaError(path, _line(knode), key,
+                raise SchemaError(path, _line(knode), _sub(field, key),
                                   f"duplicate key (first given on line {out.lines[key][0]})")
-            out[key] = _convert(vnode, path, depth + 1)
+            out[key] = _convert(vnode, path, _sub(field, key), depth + 1)
             out.lines[key] = (_line(knode), _line(vnode))
         return out
     if isinstance(node, yaml.SequenceNode):
         if tag != _SEQ:
-            raise SchemaError(path, _line(node), "(file)", f"tag {tag} is not allowed")
-        out = _Seq(_convert(item, path, depth + 1) for item in node.value)
+            raise SchemaError(path, _line(node), where, f"tag {tag} is not allowed")
+        out = _Seq(_convert(item, path, _sub(field, i), depth + 1)
+                   for i, item in enumerate(node.value, 1))
         out.line, out.lines = _line(node), [_line(item) for item in node.value]
         return out
-    return _scalar(node, path)
+    return _scalar(node, path, where)
 
 
-def _scalar(node, path: str):
+def _scalar(node, path: str, where: str):
     text, tag = node.value, node.tag
     try:
         if tag == _STR:
@@ -138,8 +146,9 @@ def _scalar(node, path: str):
                 return -math.inf if low.startswith("-") else math.inf
             return math.nan if low == ".nan" else float(text)
     except (ValueError, KeyError):
-        raise SchemaError(path, _line(node), "(file)", f"{text!r} is not a valid {tag[len(_TAG):]}")
-    raise SchemaError(path, _line(node), "(file)", f"tag {tag} is not allowed")
+        raise SchemaError(path, _line(node), where,
+                          f"{text!r} is not a valid {tag[len(_TAG):]}") from None
+    raise SchemaError(path, _line(node), where, f"tag {tag} is not allowed")
 
 
 def load_yaml_text(text: str, path: str | Path = "<text>") -> "Cursor":
@@ -220,11 +229,7 @@ class Cursor:
                            field if field is not None else (self.field or "(top)"), message)
 
     def _child(self, key: str | int, value, line: int) -> "Cursor":
-        if isinstance(key, int):
-            field = f"{self.field}[{key}]"
-        else:
-            field = f"{self.field}.{key}" if self.field else key
-        return Cursor(value, self.path, field, line)
+        return Cursor(value, self.path, _sub(self.field, key), line)
 
     # -- containers
 
@@ -238,12 +243,16 @@ class Cursor:
                 raise self.unknown_key(key, allowed)
         for key in required:
             if key not in self.value:
-                raise self.error(f"missing required key {key!r}")
+                raise self.missing(key)
         return MapCursor(self)
 
     def expect_mapping(self) -> None:
         if not isinstance(self.value, dict):
             raise self.error(f"expected a mapping (key: value lines), got {_kind(self.value)}")
+
+    def missing(self, key: str) -> SchemaError:
+        return self._child(key, None, self.line).error(
+            "required key missing")
 
     def unknown_key(self, key: str, allowed: Iterable[str]) -> SchemaError:
         allowed = sorted(allowed)
@@ -342,7 +351,7 @@ class MapCursor:
     def __getitem__(self, key: str) -> Cursor:
         c = self.cursor
         if key not in c.value:
-            raise c.error(f"missing required key {key!r}")
+            raise c.missing(key)
         return c._child(key, c.value[key], c.value.lines[key][1])
 
     def get(self, key: str) -> Cursor | None:
