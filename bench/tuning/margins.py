@@ -18,7 +18,9 @@ Definitions (L the loop transfer for negative feedback, see bench.tuning.loop):
   1 + L along s = σ0 + jω (σ0 a small positive shift that keeps poles at s = 0 on the
   left), Z = P − winding, P the open-loop poles right of the contour.
 
-Public API: Margins, margins, loop_margins.
+Public API: Margins, margins, loop_margins; re-exported from bench.tuning.loop for
+convenience: LoopController, PlantModel, LoopTransfer, loop_transfer, state_feedback_loop,
+simulate_disturbance, DisturbanceResponse.
 
 Must not import: bench.link, bench.ui, bench.rig, serial, textual, control.
 """
@@ -31,9 +33,12 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import brentq, minimize_scalar
 
-from .loop import LoopController, LoopTransfer, loop_transfer
+from .loop import (DisturbanceResponse, LoopController, LoopTransfer, PlantModel,
+                   loop_transfer, simulate_disturbance, state_feedback_loop)
 
-__all__ = ["Margins", "margins", "loop_margins"]
+__all__ = ["Margins", "margins", "loop_margins", "simulate_disturbance", "DisturbanceResponse",
+           "LoopController", "PlantModel", "LoopTransfer", "loop_transfer",
+           "state_feedback_loop"]
 
 
 @dataclass(frozen=True)
@@ -53,7 +58,7 @@ class Margins:
 
 
 def _db(x):
-    return None if x is None else 20.0 * math.log10(x)
+    return None if x is None else float(20.0 * math.log10(x))
 
 
 def margins(controller: LoopController, plant) -> Margins:
@@ -71,7 +76,20 @@ def _scale(loop: LoopTransfer) -> tuple[float, float]:
         mags = np.r_[mags, 1.0 / loop.delay_s]
     if len(mags) == 0:
         mags = np.array([1.0])
-    return float(mags.min()) * 1e-4, float(mags.max()) * 1e4
+    lo, hi = float(mags.min()) * 1e-4, float(mags.max()) * 1e4
+
+    def mag(w):
+        return float(np.abs(loop.response(np.array([w]))[0]))
+
+    for _ in range(8):  # |L| still large at the top: the crossover lies higher
+        if mag(hi) <= 0.1:
+            break
+        hi *= 10.0
+    for _ in range(8):  # |L| small but rising to the left (integrators): look lower
+        if mag(lo) >= 10.0 or mag(lo / 10.0) <= 1.5 * mag(lo):
+            break
+        lo /= 10.0
+    return lo, hi
 
 
 def _grid(loop: LoopTransfer, lo: float, hi: float, per_decade: int = 200) -> np.ndarray:
@@ -198,5 +216,10 @@ def loop_margins(loop: LoopTransfer) -> Margins:
         if stable:
             dms = [math.radians(p % 360.0) / x for p, x in pms if x > 0]
             dm = min(dms) if dms else None
-    return Margins(stable, upper, _db(upper), lower, _db(lower), pm, wgc, dm, ms,
-                   20.0 * math.log10(ms) if math.isfinite(ms) else math.inf, w_pc, method)
+    def f(x):
+        return None if x is None else float(x)
+
+    ms = float(ms)
+    return Margins(bool(stable), f(upper), _db(upper), f(lower), _db(lower), f(pm), f(wgc),
+                   f(dm), ms, 20.0 * math.log10(ms) if math.isfinite(ms) else math.inf,
+                   f(w_pc), method)

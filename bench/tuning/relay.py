@@ -58,6 +58,9 @@ class RelayResult:
     static_gain: float | None       # ∫y/∫u over the cycles used, biased relay only
     t_start_s: float | None = None  # first and last boundary of the cycles used
     t_end_s: float | None = None
+    relay_amplitude: float | None = None  # the relay settings, for the record
+    hysteresis: float | None = None
+    bias: float | None = None
 
 
 def rising_switches(relay, *, level: float = 0.0) -> np.ndarray:
@@ -147,8 +150,8 @@ def analyse_relay(t_s, relay, u, y, *, amplitude: float, hysteresis: float = 0.0
                   phase_centre_deg: float = -180.0) -> RelayResult:
     """Analyse a logged relay experiment (see the module docstring for conventions).
 
-    ``amplitude`` is the relay's half step d (u = bias ± d); ``hysteresis`` is recorded
-    for the caller's benefit only: the exact point needs no correction for it.
+    ``amplitude`` is the relay's half step d (u = bias ± d). ``hysteresis`` is only
+    recorded in the result: the exact point needs no correction for it.
     """
     t = np.asarray(t_s, dtype=float)
     r = np.asarray(relay, dtype=float)
@@ -169,7 +172,7 @@ def analyse_relay(t_s, relay, u, y, *, amplitude: float, hysteresis: float = 0.0
     if usable < 1:
         return RelayResult(False, f"only {n_cycles} whole cycle(s) logged, "
                            f"{discard_cycles} discarded", 0, None, None, None, None,
-                           None, None, None, None)
+                           None, None, None, None, None, None, amplitude, hysteresis, bias)
     rises = rises[discard_cycles:]
     periods, amps, gains = _cycle_stats(t, uu, yy, rises)
     series = (periods, amps, gains) if bias != 0.0 else (periods, amps)
@@ -206,7 +209,7 @@ def analyse_relay(t_s, relay, u, y, *, amplitude: float, hysteresis: float = 0.0
     ku = 4.0 * amplitude / (math.pi * amp) if amp > 0 else None
     return RelayResult(converged, reason, used, period, _rel_std(periods), amp,
                        _rel_std(amps), ku, period, point, static_gain,
-                       float(t[a]), float(t[b]))
+                       float(t[a]), float(t[b]), amplitude, hysteresis, bias)
 
 
 @dataclass(frozen=True)

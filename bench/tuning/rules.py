@@ -42,7 +42,7 @@ Must not import: bench.link, bench.ui, bench.rig, serial, textual, control.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import asdict, dataclass, field, is_dataclass
 from typing import Any
 
 from .point import FrequencyPoint, wrap_phase_deg
@@ -127,6 +127,34 @@ class Proposal:
     @property
     def kd(self) -> float | None:
         return self.parallel.kd if self.ideal is not None else None
+
+    def as_dict(self) -> dict:
+        """Plain, JSON-ready dict: the ideal form as 'form' {k, ti_s, td_s}, the parallel
+        gains kp, ki, kd, and margins/details with numbers as floats (complex as [re, im])."""
+        form = None if self.ideal is None else {"k": self.ideal.k, "ti_s": self.ideal.ti_s,
+                                                 "td_s": self.ideal.td_s}
+        margins = self.margins
+        if is_dataclass(margins):
+            margins = asdict(margins)
+        return _plain({"rule": self.rule, "kind": self.kind, "applies": self.applies,
+                       "reason": self.reason, "source": self.source, "notes": self.notes,
+                       "form": form, "kp": self.kp, "ki": self.ki, "kd": self.kd,
+                       "margins": margins, "details": self.details})
+
+
+def _plain(x):
+    if isinstance(x, dict):
+        return {str(k): _plain(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_plain(v) for v in x]
+    if isinstance(x, complex) or (hasattr(x, "imag") and hasattr(x, "real")
+                                  and getattr(x, "imag", 0) != 0):
+        return [float(x.real), float(x.imag)]
+    if isinstance(x, bool) or x is None or isinstance(x, str):
+        return x
+    if hasattr(x, "tolist"):
+        return _plain(x.tolist())
+    return float(x)
 
 
 # rule id -> (kind, source, notes, function (ku, tu, kappa) -> IdealPid)
