@@ -145,7 +145,7 @@ class SimBoard:
         """One loop period. ``firmware=False``: the firmware is stalled (plant only, the
         last command held, no control, no output)."""
         if self.rig.held_upright and self.motor in ("off", "armed"):
-            self.plant.set_state(tilt_rad=math.radians(self.hand_tilt_deg), rate_rad_s=0.0)
+            self._hold_body()
         self.plant.step(self._pending_si)
         self._steps += 1
         if not firmware:
@@ -166,6 +166,13 @@ class SimBoard:
             self.tx.put(self._encode(m.Status(self.time_us, self._status_fields())), "status")
 
     # ------------------------------------------------------------------ loop period parts
+
+    def _hold_body(self) -> None:
+        """The simulated hand: body at ``hand_tilt_deg``, still; stopping the body leaves
+        the wheel's absolute speed (body rate + wheel speed relative to it) unchanged."""
+        tr = self.plant.truth()
+        self.plant.set_state(tilt_rad=math.radians(self.hand_tilt_deg), rate_rad_s=0.0,
+                             wheel_rad_s=tr["wheel_rad_s"] + tr["rate_rad_s"])
 
     def _safety(self) -> None:
         if self.motor not in ("armed", "running"):

@@ -10,9 +10,10 @@ PID (PROTOCOL.md §5.4), parallel form, discrete at the loop period dt::
   +1 for a reverse one; ẏf is dy/dt (sample difference, or a rate sensor such as the gyro)
   through a first-order low-pass with time constant ``dfilt_s`` (0: unfiltered).
 - The integral is stored as the sum of ki·e·dt, so a change of ki does not bump the output.
-- Anti-windup by **clamping** (conditional integration): the integral does not move in a
-  step where the unclipped output is beyond a limit and the integrand pushes further out.
-  The output is clipped to ±limit. (Back-calculation was not chosen: it needs a tracking
+- Anti-windup by **clamping** (conditional integration): in a step where the integrand
+  pushes the output beyond a limit, the integral moves only as far as brings the output to
+  that limit (never further out; it is not pulled back either). The output is clipped to
+  ±limit. (Back-calculation was not chosen: it needs a tracking
   time constant that would be one more parameter to declare.)
 - ``e_i`` is e plus an offset: the relay of a ``relay=integral`` loop (METHODS.md §4).
 
@@ -74,11 +75,15 @@ class Pid:
             self.integral = self._bumpless - p - d
             self._bumpless = None
         step = ki * (e + integral_offset) * dt
-        u = p + self.integral + step + d
-        if (u > limit and step > 0.0) or (u < -limit and step < 0.0):
-            u -= step  # clamping: hold the integral while it would wind further out
-        else:
-            self.integral += step
+        i_new = self.integral + step
+        u = p + i_new + d
+        # clamping: the integral moves outward only as far as brings u to its limit
+        if u > limit and step > 0.0:
+            i_new = max(self.integral, limit - p - d)
+        elif u < -limit and step < 0.0:
+            i_new = min(self.integral, -limit - p - d)
+        self.integral = i_new
+        u = p + i_new + d
         return limit if u > limit else (-limit if u < -limit else u)
 
 
