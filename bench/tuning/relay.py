@@ -21,8 +21,11 @@ Conventions
   ``None`` when ``bias == 0``. Signals must be deviations from the operating point where
   u = 0 gives y = 0.
 - Convergence: after discarding ``discard_cycles`` cycles, the longest trailing run of
-  cycles whose cycle-to-cycle change in period and amplitude is below ``tol`` (relative to
-  the mean) must hold at least ``min_cycles`` cycles; those cycles are the ones used.
+  cycles whose cycle-to-cycle change in period and amplitude (and, for a biased relay, in
+  the per-cycle ∫y/∫u, whose slow transient otherwise biases the static gain by ~1%) is
+  below ``tol`` (relative to the mean) must hold at least ``min_cycles`` cycles; those
+  cycles are the ones used. Not converged: all cycles after the discarded ones are used
+  and ``reason`` says why.
 
 Public API: analyse_relay, RelayResult, RelayTracker, RelayProgress, FrequencyPoint,
 fundamental_ratio.
