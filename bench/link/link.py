@@ -87,17 +87,20 @@ class Link:
                           heartbeat_s=heartbeat_s, ring_rows=ring_rows, **kwargs)
 
     @classmethod
-    def attach(cls, port, **kwargs) -> "Link":
-        """Wrap an open pyserial-like port object, start and handshake."""
+    def attach(cls, port, *, kill_first: bool = False, **kwargs) -> "Link":
+        """Wrap an open pyserial-like port object, start and handshake. ``kill_first``
+        sends the kill bytes before anything else (``rigbench kill``)."""
         link = cls(port, **kwargs)
         try:
-            link.start()
+            link.start(kill_first=kill_first)
         except BaseException:
             link.close()
             raise
         return link
 
-    def start(self) -> None:
+    def start(self, *, kill_first: bool = False) -> None:
+        if kill_first:
+            self.channel.write_kill()
         self.channel.start()
         self._handshake(resync=False, hello_timeout_s=self.handshake_timeout_s)
         self._resync_thread = threading.Thread(target=self._resync_loop, daemon=True,

@@ -1,0 +1,149 @@
+"""``rigbench``: the command-line program (console script ``rigbench = bench.cli:main``).
+
+Each subcommand lives in its own module ``bench/commands/<name>.py`` with two functions,
+``add_parser(subparsers) -> argparse.ArgumentParser`` and ``run(args) -> int``; the names in
+``COMMANDS`` below are the ones registered, in the order ``--help`` lists them. A command
+returns an exit code or raises: ``CommandError(code, message)`` for an expected failure,
+``LinkError``/``BoardRefused`` from the link; ``main`` turns these into one line on stderr
+and the exit code. A traceback is printed only with ``--debug``.
+
+Exit codes (``EXIT_CODES``):
+
+    0    ok
+    1    internal error (a bug in rigbench: run again with --debug and report it)
+    2    usage: bad arguments or a file given on the command line cannot be used
+    3    link: port missing, busy or not permitted; link lost; no reply from the board
+    4    the board refused a command (its error code and text are printed)
+    5    a guard tripped or a safety stop ended the run
+    6    a check failed (a verification or comparison came out wrong)
+    130  interrupted (Ctrl-C) before the command finished
+
+Must not import Textual at module level (commands that need it import it themselves).
+"""
+
+from __future__ import annotations
+
+import argparse
+import importlib
+import sys
+import traceback
+
+EXIT_OK = 0
+EXIT_INTERNAL = 1
+EXIT_USAGE = 2
+EXIT_LINK = 3
+EXIT_REFUSED = 4
+EXIT_TRIP = 5
+EXIT_CHECK = 6
+EXIT_INTERRUPTED = 130
+
+EXIT_CODES: dict[int, str] = {
+    EXIT_OK: "ok",
+    EXIT_INTERNAL: "internal error (a bug in rigbench: run again with --debug and report it)",
+    EXIT_USAGE: "usage: bad arguments or a file given on the command line cannot be used",
+    EXIT_LINK: "link: port missing, busy or not permitted; link lost; no reply from the board",
+    EXIT_REFUSED: "the board refused a command",
+    EXIT_TRIP: "a guard tripped or a safety stop ended the run",
+    EXIT_CHECK: "a check failed",
+    EXIT_INTERRUPTED: "interrupted (Ctrl-C)",
+}
+
+# Subcommand modules under bench/commands/, in the order --help shows them.
+COMMANDS = ["ports", "info", "watch", "kill"]
+
+DEFAULT_PORT = "sim://balance"
+
+
+class CommandError(Exception):
+    """An expected failure of a command: ``message`` (one line) and an exit ``code``."""
+
+    def __init__(self, code: int, message: str) -> None:
+        super().__init__(message)
+        self.code = code
+
+
+class UsageError(Exception):
+    pass
+
+
+class Parser(argparse.ArgumentParser):
+    """argparse with usage errors raised (main prints them as one line)."""
+
+    def error(self, message: str):
+        raise UsageError(f"{self.prog}: {message} (see {self.prog} --help)")
+
+
+def build_parser() -> Parser:
+    parser = Parser(prog="rigbench",
+                    description="Tune, verify and document the control loops of balanced rigs.",
+                    epilog="exit codes: " + "; ".join(f"{k} {v.split(':')[0].split(' (')[0]}"
+                                                      for k, v in EXIT_CODES.items()))
+    parser.add_argument("--debug", action="store_true", help="show tracebacks of errors")
+    sub = parser.add_subparsers(dest="command", metavar="COMMAND")
+    for name in COMMANDS:
+        try:
+            module = importlib.import_module(f"bench.commands.{name}")
+            sp = module.add_parser(sub)
+            run = module.run
+        except Exception as exc:  # noqa: BLE001 - one broken command must not take `kill` down
+            sp = sub.add_parser(name, help=f"(cannot load: {type(exc).__name__})",
+                                add_help=False)
+            sp.add_argument("rest", nargs=argparse.REMAINDER)
+            run = _broken(name, exc)
+        sp.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
+                        help="show tracebacks of errors")
+        sp.set_defaults(_run=run)
+    return parser
+
+
+def _broken(name: str, exc: Exception):
+    def run(args):
+        raise RuntimeError(f"command {name!r} cannot be loaded: {type(exc).__name__}: {exc}") \
+            from exc
+    return run
+
+
+def _fail(code: int, message: str, debug: bool) -> int:
+    if debug:
+        traceback.print_exc(file=sys.stderr)
+    text = " ".join(str(message).split()) or EXIT_CODES.get(code, "error")
+    print(text if text.startswith("rigbench") else f"rigbench: {text}", file=sys.stderr)
+    return code
+
+
+def main(argv: list[str] | None = None) -> int:
+    """Run rigbench with ``argv`` (default: sys.argv[1:]); return the exit code."""
+    import bench  # noqa: F401  (registers the sim:// URL handler before any port opens)
+    from bench.link import BoardRefused, LinkError
+
+    argv = sys.argv[1:] if argv is None else list(argv)
+    debug = "--debug" in argv
+    try:
+        parser = build_parser()
+        args = parser.parse_args(argv)
+    except UsageError as exc:
+        return _fail(EXIT_USAGE, str(exc), False)
+    except SystemExit as exc:  # --help, --version
+        return exc.code if isinstance(exc.code, int) else EXIT_OK
+    if getattr(args, "_run", None) is None:
+        return _fail(EXIT_USAGE, f"name a command: {', '.join(COMMANDS)} (see rigbench --help)",
+                     False)
+    try:
+        code = args._run(args)
+        return EXIT_OK if code is None else int(code)
+    except CommandError as exc:
+        return _fail(exc.code, str(exc), debug)
+    except BoardRefused as exc:
+        return _fail(EXIT_REFUSED, str(exc), debug)
+    except LinkError as exc:
+        return _fail(EXIT_LINK, str(exc), debug)
+    except KeyboardInterrupt:
+        return _fail(EXIT_INTERRUPTED, "interrupted", debug)
+    except Exception as exc:  # noqa: BLE001 - the user gets one line; --debug shows more
+        first = str(exc).splitlines()[0] if str(exc) else ""
+        return _fail(EXIT_INTERNAL, f"internal error: {type(exc).__name__}: {first}"
+                     " (run again with --debug and report it)", debug)
+
+
+if __name__ == "__main__":
+    sys.exit(main())
