@@ -8,7 +8,8 @@ Faults (from ``SimOptions``; times are the board's simulated seconds since it wa
   exercises framing and retries, not spurious stops.
 - ``stall``: from ``stall_after_s`` for ``stall_for_s`` the firmware does not run (the
   plant does, with the last command held); host bytes wait in a 4 kB receive FIFO (excess
-  lost) and are read when the firmware runs again.
+  lost) and are read after the first loop period once the firmware runs again (so a stall
+  longer than the watchdog timeout trips it, as a timer-driven loop would).
 - ``reset``: at ``reset_after_s`` the board reboots (``ev boot reason=reset``).
 - ``unplug``: at ``unplug_after_s`` the cable is gone: ``unplugged`` becomes True and the
   board stops.
@@ -136,10 +137,10 @@ class SimLink:
             if self.stalled:
                 b.step(firmware=False)
                 continue
-            if self._fifo:
-                data, self._fifo = bytes(self._fifo), bytearray()
-                b.receive(data)
             b.step()
+            if self._fifo:                # read after the first period: the loop's own
+                data, self._fifo = bytes(self._fifo), bytearray()   # checks come first
+                b.receive(data)
 
     def drain(self, max_bytes: int | None = None) -> bytes:
         """Board → host bytes through the line (nothing while stalled or unplugged)."""
