@@ -24,7 +24,7 @@ def add_parser(subparsers):
                    help="record to FILE (.csv) and FILE's .yaml sidecar instead of printing")
     p.add_argument("--rate", type=float, default=None, metavar="HZ",
                    help="telemetry rate to ask the board for (default 20 on the terminal, "
-                        "the board's loop rate / 2 for a recording)")
+                        "100 for a recording)")
     p.add_argument("--every", type=float, default=0.2, metavar="S",
                    help="seconds between printed lines (default 0.2)")
     p.add_argument("--force", action="store_true", help="overwrite an existing FILE")
@@ -58,7 +58,7 @@ def run(args) -> int:
         raise CommandError(EXIT_USAGE, "--every must be positive")
     with open_link(args) as link:
         if args.csv:
-            rate = args.rate if args.rate is not None else link.info.rate_hz / 2
+            rate = args.rate if args.rate is not None else 100.0
             try:
                 recorder = Recorder(args.csv, link, overwrite=args.force,
                                     notes=[f"rigbench watch --rate {rate:g}"])

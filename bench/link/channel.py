@@ -106,9 +106,10 @@ class Channel:
         t = self.clock.now()
         self._last_rx: float | None = None
         self._next_hb = t
-        # counters (one writer each; health() reads them unlocked: ints are atomic)
+        # counters: requesters and the reader both count, under a small lock
         self.c = dict(timeouts=0, resends=0, late_replies=0, heartbeats=0, rx_bytes=0,
                       tx_bytes=0)
+        self._count_lock = threading.Lock()
         self._latency: deque = deque(maxlen=64)
         self._rates: deque = deque(maxlen=16)  # (t, rx_frames, tm_rows) samples
 
@@ -165,6 +166,10 @@ class Channel:
         if self._closed or self._stop:
             raise LinkError(f"link to {self.url} is closed")
 
+    def _count(self, key: str, n: int = 1) -> None:
+        with self._count_lock:
+            self.c[key] += n
+
     # ------------------------------------------------------------------ writing
 
     def _raw_write(self, data: bytes) -> None:
@@ -175,7 +180,7 @@ class Channel:
         except Exception as exc:  # noqa: BLE001 - any I/O failure means the port is gone
             self._mark_lost(exc)
             raise LinkLost(self._lost or f"link to {self.url} lost") from None
-        self.c["tx_bytes"] += len(data)
+        self._count("tx_bytes", len(data))
 
     def write(self, data: bytes) -> float:
         """Write one frame (a pending kill goes first); return the link-clock time."""
@@ -237,6 +242,14 @@ class Channel:
         else:
             self._demand_event.clear()
 
+    def _clock_demand(self) -> bool:
+        """A thread sleeping on the port's own virtual clock (``clock.sleep``) needs time to
+        move too (the simulated board's clock says who sleeps with ``next_deadline``)."""
+        next_deadline = getattr(self.clock, "next_deadline", None)
+        if next_deadline is None or self.ingest.reset_seen.is_set():
+            return False
+        return next_deadline() is not None
+
     def update_demand(self) -> None:
         with self._cond:
             self._update_demand()
@@ -295,11 +308,11 @@ class Channel:
         try:
             for attempt in range(tries):
                 if attempt:
-                    self.c["resends"] += 1
+                    self._count("resends")
                 t_sent = self.write(frame)
                 if self.wait_until(lambda: slot.reply is not None, t_sent + timeout):
                     break
-                self.c["timeouts"] += 1
+                self._count("timeouts")
             else:
                 hint = "" if cmd_cls.IDEMPOTENT else " (not resent: ask `status`)"
                 raise LinkTimeout(f"no reply from {self.url} to {cmd_cls.VERB!r} within "
@@ -323,7 +336,8 @@ class Channel:
     def _run(self) -> None:
         try:
             while not self._stop:
-                if self.paced and not self._demand_event.wait(0.05):
+                if self.paced and not self._demand_event.is_set() and not self._clock_demand():
+                    self._demand_event.wait(0.01)
                     continue
                 now = self.clock.now()
                 if now >= self._next_hb:

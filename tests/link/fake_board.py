@@ -347,3 +347,52 @@ class PtyBoard:
         if self._run:
             self.unplug()
         os.close(self._slave)
+
+
+class SocketBoard:
+    """A FakeBoard behind a TCP socket in real time, for ``socket://127.0.0.1:<port>``."""
+
+    def __init__(self, board: FakeBoard | None = None) -> None:
+        import socket
+
+        self.board = board or FakeBoard()
+        self._server = socket.create_server(("127.0.0.1", 0))
+        self.url = "socket://127.0.0.1:%d" % self._server.getsockname()[1]
+        self._run = True
+        self._thread = threading.Thread(target=self._serve, daemon=True)
+        self._thread.start()
+
+    def _serve(self) -> None:
+        self._server.settimeout(5.0)
+        try:
+            conn, _ = self._server.accept()
+        except OSError:
+            return
+        conn.setblocking(False)
+        t0 = time.monotonic()
+        with conn:
+            while self._run:
+                ready, _, _ = select.select([conn], [], [], 0.002)
+                now = time.monotonic() - t0
+                if ready:
+                    try:
+                        data = conn.recv(4096)
+                    except OSError:
+                        return
+                    if not data:
+                        return
+                    self.board.feed(data, now)
+                self.board.advance_to(now)
+                if self.board.out:
+                    try:
+                        n = conn.send(bytes(self.board.out))
+                    except BlockingIOError:
+                        n = 0
+                    except OSError:
+                        return
+                    del self.board.out[:n]
+
+    def close(self) -> None:
+        self._run = False
+        self._thread.join(1.0)
+        self._server.close()

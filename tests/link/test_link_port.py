@@ -7,7 +7,7 @@ import time
 
 import pytest
 import serial
-from fake_board import PtyBoard
+from fake_board import PtyBoard, SocketBoard
 
 from bench.link import Link, LinkError, LinkLost
 from bench.link.errors import open_error
@@ -29,6 +29,18 @@ def test_handshake_and_telemetry_over_a_pty_in_real_time(pty_board, thread_error
         assert len(link.snapshot()) >= 10
         h = link.health()
         assert h.state == "ok" and h.reply_latency_s is not None and h.heartbeats >= 2
+
+
+def test_socket_url_reads_fixed_chunks(thread_errors):
+    server = SocketBoard()
+    try:
+        with Link.open(server.url) as link:
+            assert link.channel.read_chunk == 4096  # socket:// in_waiting says only 0 or 1
+            assert link.stream(100) == 100.0
+            link.sleep(0.3)
+            assert len(link.snapshot()) >= 10 and link.health().bad_frames == {}
+    finally:
+        server.close()
 
 
 def test_unplug_on_a_pty_gives_link_lost_not_a_traceback(pty_board, thread_errors):

@@ -81,3 +81,12 @@ def test_a_noisy_line_costs_frames_not_commands(thread_errors):
             link.sleep(0.1)
         h = link.health()
         assert sum(h.bad_frames.values()) > 0 and h.lost_frames > 0
+
+
+def test_sleeping_on_the_simulated_clock_moves_time_too(sim_link):
+    # a paced virtual clock runs while anyone waits: on the link, or on the port's clock
+    sim_link.stream(100)
+    t0, cur = sim_link.now(), sim_link.telemetry_cursor()
+    sim_link.clock.sleep(2.0)
+    assert sim_link.now() - t0 == pytest.approx(2.0, abs=0.05)
+    assert 190 <= len(sim_link.read_since(cur)[1]) <= 205
