@@ -110,6 +110,7 @@ class Link:
     def close(self) -> None:
         """Stop the threads promptly and close the port. Safe to call twice."""
         self.channel.close()
+        self.channel.ingest.reset_seen.set()  # wakes the resync thread, which sees the stop
         if self._resync_thread is not None and self._resync_thread is not threading.current_thread():
             self._resync_thread.join(1.0)
 
@@ -162,7 +163,7 @@ class Link:
         ch = self.channel
         ch.resync_ident = threading.get_ident()
         while not (ch.lost_reason or ch.stopped):
-            if not ch.ingest.reset_seen.wait(0.05):
+            if not ch.ingest.reset_seen.wait(0.5) or ch.stopped:
                 continue
             try:
                 self._handshake(resync=True, hello_timeout_s=self.handshake_timeout_s)
