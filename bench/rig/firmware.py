@@ -75,6 +75,9 @@ class SimBoard:
         self.clock_start_us = int(clock_start_us) % U32
         self.hand_tilt_deg = hand_tilt_deg
         self._status_every = max(1, round(self.rate_hz / STATUS_HZ))
+        names = {s.name for s in rig.signals}
+        self._trip_params = [(p.name, p.name[5:]) for p in rig.params   # §5.2 trip_<signal>
+                             if p.name.startswith("trip_") and p.name[5:] in names]
         self._steps = 0
         self.boots = 0
         self._boot("power")
@@ -180,12 +183,12 @@ class SimBoard:
         if self.last_hb_s is None or self.time_s - self.last_hb_s > self.watchdog_s:
             self._trip("watchdog")
             return
-        for p in self.rig.params:
-            if p.name.startswith("trip_") and p.name[5:] in self.signals:
-                v = self.signals[p.name[5:]]
-                if abs(v) > self.params.values[p.name]:
-                    self._trip(f"{p.name[5:]}_limit", v)
-                    return
+        vals = self.params.values
+        for param, signal in self._trip_params:
+            v = self.signals[signal]
+            if abs(v) > vals[param]:
+                self._trip(f"{signal}_limit", v)
+                return
 
     def _run_mode(self) -> None:
         out = self.engine.run(self.signals, self.params.values, self.mode)
