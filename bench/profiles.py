@@ -14,7 +14,6 @@ from __future__ import annotations
 
 import datetime as _dt
 import difflib
-import json
 import re
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -187,7 +186,22 @@ def _scalar(value) -> str:
                 return text
         except SchemaError:
             pass
-    return json.dumps(text, ensure_ascii=not text.isprintable())
+    return _quote(text)
+
+
+def _quote(text: str) -> str:
+    """A YAML double-quoted scalar; anything not printable is written as an escape."""
+    out = []
+    for ch in text:
+        if ch in '"\\':
+            out.append("\\" + ch)
+        elif ch.isprintable():
+            out.append(ch)
+        else:
+            code = ord(ch)
+            out.append(f"\\x{code:02x}" if code < 0x100 else
+                       f"\\u{code:04x}" if code < 0x10000 else f"\\U{code:08x}")
+    return '"' + "".join(out) + '"'
 
 
 def _block(text: str, indent: str = "  ") -> str:
@@ -197,7 +211,7 @@ def _block(text: str, indent: str = "  ") -> str:
     ok = (text.strip() and not text.endswith("\n\n") and not body[0][:1].isspace()
           and all(ln.isprintable() and ln == ln.rstrip() for ln in body))
     if not ok:
-        return " " + json.dumps(text, ensure_ascii=not text.replace("\n", "").isprintable())
+        return " " + _quote(text)
     chomp = "" if text.endswith("\n") else "-"
     return f" |{chomp}\n" + "\n".join(indent + ln if ln else "" for ln in body)
 
@@ -352,8 +366,16 @@ def profile_from_board(link, loop: str, *, name: str | None = None, extra: Itera
 
 
 def same_value(a: float, b: float, *, digits: int = 7) -> bool:
-    """Equal to ``digits`` significant digits (parameters travel with 7, PROTOCOL.md §3)."""
-    return abs(a - b) <= 10.0 ** (1 - digits) * max(abs(a), abs(b))
+    """Equal to ``digits`` significant digits (parameters travel with 7, PROTOCOL.md §3).
+
+    Allowed difference: one unit in the last of those digits (each side may be rounded by
+    half a unit) plus the rounding of a board that stores float32 (relative 2**-24).
+    """
+    m = max(abs(a), abs(b))
+    if m == 0.0:
+        return True
+    exponent = int(f"{m:.{digits - 1}e}".split("e")[1])
+    return abs(a - b) <= 10.0 ** (exponent - digits + 1) + m * 2.0 ** -24
 
 
 @dataclass(frozen=True)
