@@ -24,7 +24,6 @@ from __future__ import annotations
 
 import statistics
 import threading
-import time
 from collections import deque
 
 import serial
@@ -36,6 +35,7 @@ from .clock import clock_of, is_virtual
 from .errors import BoardRefused, LinkError, LinkLost, LinkTimeout
 from .ingest import Ingest
 from .records import LinkEvent, LinkHealth
+from .waits import Waits
 
 
 class _Slot:
@@ -44,14 +44,6 @@ class _Slot:
     def __init__(self) -> None:
         self.reply = None
         self.rx_time = 0.0
-
-
-class _Waiter:
-    __slots__ = ("predicate", "deadline", "done", "owner")
-
-    def __init__(self, predicate, deadline: float) -> None:
-        self.predicate, self.deadline, self.done = predicate, deadline, False
-        self.owner = threading.get_ident()
 
 
 def _one_line(exc: BaseException) -> str:
@@ -80,24 +72,21 @@ class Channel:
         self.stale_s = stale_s
         self.read_chunk = read_chunk  # fixed-size reads (socket:// cannot tell in_waiting)
         self.kill_lock_wait_s = kill_lock_wait_s
-        self.virtual_stall_s = virtual_stall_s
-        # With a virtual clock, reading is what moves time. "demand": the reader reads only
-        # while some thread waits on the link (a reply, a sleep), so simulated time passes
-        # only when the host asks for it and runs are repeatable; "free": it always reads.
+        # virtual clock: "demand" reads only while someone waits (waits.py); "free" always
         self.paced = self.virtual and virtual_pace == "demand"
-        self._waiters: list[_Waiter] = []
-        self._demand_event = threading.Event()  # set while someone waits on the link
-        self.resync_ident: int | None = None  # thread that handshakes after a restart
         self.codec = HostCodec()
         self._hb_frame = self.codec.encode(Heartbeat())
         self._seq_lock = threading.Lock()
         self._wlock = threading.Lock()
-        self._cond = threading.Condition()
         self._pending: dict[int, _Slot] = {}
         self._kill_pending = False
         self._kill_time: float | None = None
         self.ingest = Ingest(ring_rows=ring_rows, event_rows=event_rows,
                              status_rows=status_rows)
+        self.waits = Waits(self.clock, virtual=self.virtual, paced=self.paced,
+                           reset_seen=self.ingest.reset_seen, url=self.url,
+                           virtual_stall_s=virtual_stall_s)
+        self._cond = self.waits.cond  # replies are filed under the same condition
         self.events = self.ingest.events
         self._thread: threading.Thread | None = None
         self._stop = False
@@ -214,74 +203,8 @@ class Channel:
     # ------------------------------------------------------------------ waiting
 
     def wait_until(self, predicate, deadline: float) -> bool:
-        """Wait until ``predicate()`` (called under the channel's lock, also by the reader:
-        keep it cheap) is true or the link clock passes ``deadline``. Raises LinkLost."""
-        waiter = _Waiter(predicate, deadline)
-        with self._cond:
-            if predicate():
-                return True
-            self._waiters.append(waiter)
-            self._update_demand()
-            try:
-                return self._wait_locked(waiter)
-            finally:
-                if waiter in self._waiters:
-                    self._waiters.remove(waiter)
-                self._update_demand()
-
-    def _update_demand(self) -> None:
-        """Paced virtual clock: time may run while someone waits, except that after a board
-        restart only the resync thread's waits count, so the re-handshake happens before
-        simulated time runs on for anyone else (called with ``_cond`` held)."""
-        if self.ingest.reset_seen.is_set() and self.resync_ident is not None:
-            demand = any(w.owner == self.resync_ident for w in self._waiters)
-        else:
-            demand = bool(self._waiters)
-        if demand:
-            self._demand_event.set()
-        else:
-            self._demand_event.clear()
-
-    def _clock_demand(self) -> bool:
-        """A thread sleeping on the port's own virtual clock (``clock.sleep``) needs time to
-        move too (the simulated board's clock says who sleeps with ``next_deadline``)."""
-        next_deadline = getattr(self.clock, "next_deadline", None)
-        if next_deadline is None or self.ingest.reset_seen.is_set():
-            return False
-        return next_deadline() is not None
-
-    def update_demand(self) -> None:
-        with self._cond:
-            self._update_demand()
-
-    def _wait_locked(self, waiter: "_Waiter") -> bool:
-        last_t = stalled_since = None
-        while True:
-            if waiter.predicate():
-                return True
-            self.check_usable()
-            now = self.clock.now()
-            if waiter.done or now >= waiter.deadline:
-                return False
-            if self.virtual:
-                if now != last_t:
-                    last_t, stalled_since = now, time.monotonic()
-                elif time.monotonic() - stalled_since > self.virtual_stall_s:
-                    raise LinkTimeout(f"simulated clock of {self.url} stopped advancing")
-                self._cond.wait(0.05)
-            else:
-                self._cond.wait(min(waiter.deadline - now, 0.05))
-
-    def _settle_waiters(self, now: float) -> None:
-        """Reader side: retire waiters whose wait is over, so that a paced virtual clock
-        stops at once instead of running on until the waiting thread gets scheduled."""
-        with self._cond:
-            for w in list(self._waiters):
-                if w.predicate() or now >= w.deadline:
-                    w.done = True
-                    self._waiters.remove(w)
-            self._update_demand()
-            self._cond.notify_all()
+        """See Waits.wait_until (link-clock deadline). Raises LinkLost when the port goes."""
+        return self.waits.wait_until(predicate, deadline, self.check_usable)
 
     def sleep(self, seconds: float) -> None:
         """Let ``seconds`` of link-clock time pass (virtual time too)."""
@@ -336,8 +259,7 @@ class Channel:
     def _run(self) -> None:
         try:
             while not self._stop:
-                if self.paced and not self._demand_event.is_set() and not self._clock_demand():
-                    self._demand_event.wait(0.01)
+                if self.waits.idle():
                     continue
                 now = self.clock.now()
                 if now >= self._next_hb:
@@ -354,7 +276,7 @@ class Channel:
                 if not self._rates or now - self._rates[-1][0] >= 0.25:
                     ic = self.ingest.c
                     self._rates.append((now, ic["rx_frames"], ic["tm_rows"]))
-                self._settle_waiters(now)
+                self.waits.settle(now)
         except Exception as exc:  # noqa: BLE001 - unplug shows up as many exception types
             # (a failed heartbeat write has already marked the link lost; a stuck write
             # that timed out ends here too: a port that cannot take 10 bytes is gone)

@@ -161,7 +161,7 @@ class Link:
 
     def _resync_loop(self) -> None:
         ch = self.channel
-        ch.resync_ident = threading.get_ident()
+        ch.waits.resync_ident = threading.get_ident()
         while not (ch.lost_reason or ch.stopped):
             if not ch.ingest.reset_seen.wait(0.5) or ch.stopped:
                 continue
@@ -175,7 +175,7 @@ class Link:
             except (LinkError, BoardRefused):
                 continue  # a board still booting: try again while the flag is up
             finally:
-                ch.update_demand()
+                ch.waits.update_demand()
 
     # ------------------------------------------------------------------ requests
 
