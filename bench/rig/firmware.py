@@ -1,6 +1,8 @@
 """The simulated board: a rig's firmware behaviour on the board side of the codec.
 
-One ``SimBoard`` is one board. Host bytes go in with ``receive(data)``; ``step()`` runs one
+One ``SimBoard`` is one board (command handlers in bench.rig.firmware_commands, loops in
+bench.rig.firmware_control, parameters and storage in bench.rig.firmware_params, mode
+fields and the transmit buffer in bench.rig.firmware_modes). Host bytes go in with ``receive(data)``; ``step()`` runs one
 loop period (plant, sensors, safety, controllers, telemetry, status); ``output()`` drains
 the transmit buffer. Nothing here reads a clock or starts a thread: time is the count of
 loop periods (``time_s``), so a board is deterministic for a given plant seed and input.
@@ -30,26 +32,24 @@ import math
 import numpy as np
 
 from bench.rig.boards import RigDef, rig_def
+from bench.rig.firmware_commands import FW_VERSION, BoardCommands
 from bench.rig.firmware_control import LoopEngine, ModeRun
-from bench.rig.firmware_modes import ModeRefusal, TxBuffer, applied_fields, parse_mode
+from bench.rig.firmware_modes import TxBuffer
 from bench.rig.firmware_params import NvStore, ParamTable
 from bench.wire import messages as m
 from bench.wire.codec import BoardCodec
-from bench.wire.describe import BoardInfo, SignalInfo, LoopInfo, parse_version
-from bench.wire.errors import RemoteProtocolError
 from bench.wire.frame import BadFrame, KillByte
 from bench.wire.states import INTERLOCK_CONDITIONS, REFUSALS, next_state
 
 __all__ = ["SimBoard", "make_board", "FW_VERSION"]
 
-FW_VERSION = "0.1.0"
 STATUS_HZ = 5.0
 U32 = 1 << 32
 _MESSAGE_ERRORS = {"bad_number": "bad_args", "bad_field": "bad_args",
                    "unknown_verb": "unknown_verb"}
 
 
-class SimBoard:
+class SimBoard(BoardCommands):
     """A simulated board running ``rig`` on ``plant`` (see the module docstring).
 
     ``state_path``: JSON file of the non-volatile storage (None: in memory).
@@ -321,127 +321,6 @@ class SimBoard:
         data = self._encode(reply)
         self._last_cmd, self._last_reply = cmd, data
         self.tx.put(data, "reply")
-
-    # Each handler returns the reply fields (a list) or an (error code, text) tuple.
-
-    def _on_hello(self, cmd):
-        try:
-            major, _minor = parse_version(cmd.version)
-        except RemoteProtocolError:
-            return "bad_args", "version major.minor"
-        if major != m.PROTOCOL_VERSION[0]:
-            return "version", "board speaks %d.%d" % m.PROTOCOL_VERSION
-        info = BoardInfo(m.PROTOCOL_VERSION, self.rig.board, FW_VERSION, self.rig.rig,
-                         self.rate_hz, self.rig.watchdog_ms, len(self.rig.params),
-                         len(self.rig.signals), len(self.rig.loops), simulated=True)
-        return info.to_fields()
-
-    def _on_param(self, cmd):
-        if cmd.index >= len(self.rig.params):
-            return "unknown_name", f"no parameter {cmd.index}"
-        return self.params.info(cmd.index).to_fields()
-
-    def _on_signal(self, cmd):
-        if cmd.index >= len(self.rig.signals):
-            return "unknown_name", f"no signal {cmd.index}"
-        s = self.rig.signals[cmd.index]
-        return SignalInfo(cmd.index, s.name, s.unit).to_fields()
-
-    def _on_loop(self, cmd):
-        if cmd.index >= len(self.rig.loops):
-            return "unknown_name", f"no loop {cmd.index}"
-        lp = self.rig.loops[cmd.index]
-        return LoopInfo(cmd.index, lp.name, lp.measure, lp.output, lp.gains, lp.plant,
-                        lp.relay).to_fields()
-
-    def _on_get(self, cmd):
-        for name in cmd.names:
-            if name not in self.params:
-                return "unknown_name", f"no parameter {name}"
-        return [(name, self.params.values[name]) for name in cmd.names]
-
-    def _on_set(self, cmd):
-        if len({k for k, _ in cmd.values}) != len(cmd.values):
-            return "bad_args", "a name given twice"
-        refusal = self.params.check_set(cmd.values, self._busy_gains())
-        if refusal is not None:
-            return refusal.code, refusal.text
-        return self.params.apply(cmd.values)            # §5.5: all at once, between periods
-
-    def _on_save(self, cmd):
-        try:
-            crc = self.nv.save(self.params.writable_image())
-        except OSError as exc:
-            return "storage", f"write failed: {exc.strerror or exc}"[:60]
-        return [("count", len(self.params.writable_image())), ("crc", "%04X" % crc)]
-
-    def _on_restore(self, cmd):
-        if self.motor == "running":
-            return "state", "motor running"
-        image = self.nv.image or {}
-        self.params.values.update(image)
-        return [("count", len(image))]
-
-    def _on_arm(self, cmd):
-        code = REFUSALS.get((self.motor, "arm"))
-        if code == "state":
-            return code, "motor running"
-        why = self.interlock_reasons()
-        if why:
-            return "interlock", ",".join(why)
-        self._happen("arm")
-        return [("motor", self.motor)]
-
-    def _on_disarm(self, cmd):
-        self._happen("disarm")
-        return [("motor", self.motor)]
-
-    def _on_clear(self, cmd):
-        was = self.motor
-        self._happen("clear")                           # §7.3: never starts the motor
-        if was == "tripped":
-            self.fault = None
-            self._event("clear")
-        return [("motor", self.motor)]
-
-    def _on_kill(self, cmd):
-        self._trip("kill")
-        return [("motor", self.motor)]
-
-    def _on_status(self, cmd):
-        return self._status_fields()
-
-    def _on_stream(self, cmd):
-        rate = cmd.rate_hz
-        if rate < 0.0:
-            return "range", f"rate_hz 0..{self.rate_hz:g}"
-        if rate == 0.0:
-            self.stream_div = 0
-            return [("rate_hz", 0)]
-        ratio = self.rate_hz / rate                     # nearest loop rate / n (§6.1)
-        lo, hi = max(1, math.floor(ratio)), max(1, math.ceil(ratio))
-        div = lo if abs(self.rate_hz / lo - rate) <= abs(self.rate_hz / hi - rate) else hi
-        self.stream_div = div
-        return [("rate_hz", self.rate_hz / div)]
-
-    def _on_mode(self, cmd):
-        run = parse_mode(cmd.name, cmd.args, self.rig, self.params.values,
-                         has_body_push=hasattr(self.plant, "push"))
-        if isinstance(run, ModeRefusal):
-            return run.code, run.text
-        happening = "stop" if run.name == "off" else "run"
-        if next_state(self.motor, happening) is None:
-            return REFUSALS.get((self.motor, happening), "state"), f"motor {self.motor}"
-        if run.name == "inject" and self.mode.name != "hold":
-            return "state", "inject starts from hold"
-        if run.name == "off":
-            self._happen("stop")
-            if self.mode.name != "off":
-                self._set_mode(run)
-        else:
-            self._happen("run")
-            self._set_mode(run)
-        return applied_fields(run)
 
 
 def make_board(rig: str = "balance", *, drive: str = "speed", num=(1.0,), den=(1.0, 1.0),
