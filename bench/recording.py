@@ -1,15 +1,17 @@
 """Recordings: telemetry to CSV with a YAML sidecar, written so that a crash loses < 1 s.
 
-``Recorder(path_csv, link)`` pulls rows and events from a link by cursor
-(``link.read_since``, ``link.events_since``) in a small thread, or when you call ``poll()``.
-The CSV starts with one header line of ``name [unit]`` columns: ``host_time [s]``,
-``board_time [s]``, ``frame [1]``, then one column per telemetry signal in the board's
-declared units (``numpy.genfromtxt(..., names=True)`` turns these into ``host_time_s``,
-``tilt_deg``, ``rate_degs``...). Lines are collected in memory and written whole, at least every
-``flush_s`` seconds of wall time, with one ``os.write`` and an ``fsync``: a crash or unplug
-leaves a file that ends on a complete line. The sidecar ``<name>.yaml`` (board identity,
-parameters at the start, events with their times, notes on what ran, counts) is rewritten
-atomically at every flush and at close; ``complete: false`` until a clean close.
+``Recorder(path_csv, link)`` pulls rows, events and status frames from a link by cursor
+(``read_since``, ``events_since``, ``statuses_since``) in a small thread, or when you call
+``poll()``. The CSV starts with one header line of ``name [unit]`` columns:
+``host_time [s]``, ``board_time [s]``, ``frame [1]``, then one column per telemetry signal
+in the board's declared units (``numpy.genfromtxt(..., names=True)`` turns these into
+``host_time_s``, ``tilt_deg``, ``rate_degs``...). Lines are collected in memory and written
+whole, at least every ``flush_s`` seconds of wall time, with one ``os.write`` and an
+``fsync``: a crash or unplug leaves a file that ends on a complete line. The sidecar
+``<name>.yaml`` holds the board identity, the parameters at the start, events with their
+times (board events, link happenings, and changes of motor state, mode or fault seen in
+status frames), notes on what ran and counts; it is rewritten atomically at every flush
+and at close, with ``complete: false`` until a clean close.
 
 ``load_recording(path)`` reads a recording back (arrays plus sidecar); bad input raises
 ``RecordingError`` naming the file and line.
@@ -111,6 +113,8 @@ class Recorder:
         self._fmt = "%.6f,%.6f,%d" + "".join(",%.6g" for _ in self.signals)
         self._tm_cursor = link.telemetry_cursor()
         self._ev_cursor = link.event_cursor()
+        self._st_cursor = link.status_cursor()
+        self._state = None  # (motor, mode, loop, fault) of the last status seen
         info = link.info
         self._meta = {
             "format": FORMAT,
@@ -202,6 +206,16 @@ class Recorder:
                 "host_time_s": _plain(ev.host_time_s), "board_time_s": _plain(ev.board_time_s),
                 "source": ev.source, "kind": ev.kind,
                 "fields": {str(k): _plain(v) for k, v in ev.fields.items()}})
+        self._st_cursor, statuses = self.link.statuses_since(self._st_cursor)
+        for st in statuses:  # status frames come often: keep only changes of state
+            state = (st.motor, st.mode, st.loop, st.fault)
+            if state != self._state:
+                self._state = state
+                self._events.append({
+                    "host_time_s": st.host_time_s, "board_time_s": st.board_time_s,
+                    "source": "status", "kind": "state",
+                    "fields": {"motor": st.motor, "mode": st.mode, "loop": st.loop,
+                               "fault": st.fault}})
         self.rows_skipped += block.skipped
         if not len(block):
             return 0

@@ -46,6 +46,8 @@ def test_round_trip_keeps_rows_events_and_notes(tmp_path, sim_link):
     assert [n["text"] for n in rec_back.sidecar["notes"]] == ["bench check", "kill next"]
     trips = [e for e in rec_back.events if e["kind"] == "trip"]
     assert trips and trips[0]["fields"]["cause"] == "kill"
+    motors = [e["fields"]["motor"] for e in rec_back.events if e["kind"] == "state"]
+    assert motors == ["off", "tripped"]  # status changes only, not every status frame
     names = np.genfromtxt(path, delimiter=",", names=True).dtype.names
     assert names[:4] == ("host_time_s", "board_time_s", "frame_1", "tilt_deg")
 
