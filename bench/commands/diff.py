@@ -25,7 +25,6 @@ def add_parser(subparsers):
     p.add_argument("--changes-only", action="store_true", help="hide unchanged values")
     add_port(p)
     add_json(p)
-    p.set_defaults(command=NAME, run=run)
     return p
 
 

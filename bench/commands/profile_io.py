@@ -1,5 +1,6 @@
-"""Shared pieces of the profile commands (push, pull, diff): exit codes, opening the link,
-turning errors into one line on stderr and an exit code.
+"""Shared pieces of the profile commands (push, pull, diff): opening the link, and turning
+their errors (bad file, refused profile, board refusal, link failure) into one line on
+stderr, or one JSON object with ``--json``, and the exit code (bench/cli.py).
 
 Must not import textual or bench.ui.
 """
@@ -10,22 +11,12 @@ import json
 import sys
 from contextlib import contextmanager
 
+from bench.cli import EXIT_CHECK, EXIT_LINK, EXIT_OK, EXIT_REFUSED, EXIT_USAGE  # noqa: F401
+from bench.commands._common import add_json_option as add_json  # noqa: F401
+from bench.commands._common import add_port_option as add_port  # noqa: F401
 from bench.link import BoardRefused, Link, LinkError
 from bench.profile_push import PushRefused
 from bench.yamlload import SchemaError
-
-# Exit codes (README, "Exit codes").
-EXIT_OK, EXIT_INTERNAL, EXIT_USAGE, EXIT_LINK, EXIT_REFUSED, EXIT_GUARD, EXIT_CHECK = range(7)
-DEFAULT_PORT = "sim://balance"
-
-
-def add_port(parser) -> None:
-    parser.add_argument("--port", default=DEFAULT_PORT, metavar="URL",
-                        help="device path, pyserial URL or sim://... (default: %(default)s)")
-
-
-def add_json(parser) -> None:
-    parser.add_argument("--json", action="store_true", help="print one JSON object")
 
 
 @contextmanager

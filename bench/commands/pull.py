@@ -30,7 +30,6 @@ def add_parser(subparsers):
     p.add_argument("--force", action="store_true", help="replace an existing file")
     add_port(p)
     add_json(p)
-    p.set_defaults(command=NAME, run=run)
     return p
 
 

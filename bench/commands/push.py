@@ -31,7 +31,6 @@ def add_parser(subparsers):
     p.add_argument("--dry-run", action="store_true",
                    help="check and show the difference; send nothing")
     add_json(p)
-    p.set_defaults(command=NAME, run=run)
     return p
 
 
