@@ -206,3 +206,29 @@ def test_virtual_clock_guard_raises_instead_of_hanging():
     clock = VirtualClock(stall_guard_s=0.2)
     with pytest.raises(ClockStalled, match="nothing is reading"):
         clock.sleep(1.0)
+
+
+def test_heartbeat_thread_sleeping_on_the_virtual_clock_keeps_the_board_armed():
+    """A host whose heartbeat comes from its own thread sleeping on ``port.clock``: simulated
+    time waits for the woken thread, so the watchdog never sees a gap (PROTOCOL.md §7.2)."""
+    h = PortHost("sim://wheel?clock=virtual")
+    stop = threading.Event()
+
+    def beat():
+        while not stop.is_set():
+            h.port.write(h.codec.encode(m.Heartbeat()))
+            h.port.clock.sleep(0.1)
+
+    th = threading.Thread(target=beat, daemon=True)
+    th.start()
+    try:
+        h.read_for(0.3, hb=False)
+        assert isinstance(h.ask(m.Arm), m.Ok)
+        h.ask(m.Mode, "hold")
+        got = h.read_for(10.0, hb=False)
+    finally:
+        stop.set()
+        h.read_for(0.2, hb=False)          # let the sleeper wake and see the stop
+        th.join(5)
+    assert not [x for x in got if isinstance(x, m.Event) and x.kind == "trip"]
+    assert h.port.board.motor == "running"
