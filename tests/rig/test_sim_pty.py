@@ -14,6 +14,7 @@ import pytest
 import serial
 
 from bench.rig.pty import run_sim_server, serve_pty
+from bench.rig.simlink import SimLink
 from bench.rig.url import parse_sim_url
 from bench.wire import HostCodec
 from bench.wire import messages as m
@@ -25,6 +26,7 @@ ROOT = Path(__file__).parents[2]
 
 class Served:
     def __init__(self, url: str) -> None:
+        self.link = SimLink(parse_sim_url(url))
         self.ready = threading.Event()
         self.stop = threading.Event()
         self.path = None
@@ -35,7 +37,8 @@ class Served:
             self.ready.set()
 
         def run():
-            self.stats = serve_pty(parse_sim_url(url), on_ready=on_ready, stop=self.stop)
+            self.stats = serve_pty(parse_sim_url(url), on_ready=on_ready, stop=self.stop,
+                                   link=self.link)
 
         self.thread = threading.Thread(target=run, daemon=True)
         self.thread.start()
@@ -76,10 +79,14 @@ def test_unread_telemetry_is_dropped_and_counted():
         with serial.Serial(s.path, timeout=0.05) as port:
             codec = HostCodec()
             ask(port, codec, m.Stream, 2000.0)
-            time.sleep(1.0)                               # nobody reads: the pty fills up
+            board = s.link.board
+            for _ in range(1000):                         # nobody reads: the pty fills up
+                if board.drops > 0:
+                    break
+                time.sleep(0.01)
             port.reset_input_buffer()
             drops = int(ask(port, codec, m.StatusRequest).get("drops"))
-            assert drops > 0
+            assert drops > 0                              # and the board says so
     finally:
         s.close()
 
