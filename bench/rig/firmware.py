@@ -2,10 +2,11 @@
 
 One ``SimBoard`` is one board (command handlers in bench.rig.firmware_commands, loops in
 bench.rig.firmware_control, parameters and storage in bench.rig.firmware_params, mode
-fields and the transmit buffer in bench.rig.firmware_modes). Host bytes go in with ``receive(data)``; ``step()`` runs one
-loop period (plant, sensors, safety, controllers, telemetry, status); ``output()`` drains
-the transmit buffer. Nothing here reads a clock or starts a thread: time is the count of
-loop periods (``time_s``), so a board is deterministic for a given plant seed and input.
+fields and the transmit buffer in bench.rig.firmware_modes). Host bytes go in with
+``receive(data)``; ``step()`` runs one loop period (plant, sensors, safety, controllers,
+telemetry, status); ``output()`` drains the transmit buffer. Nothing here reads a clock
+or starts a thread: time is the count of loop periods (``time_s``), so a board is
+deterministic for a given plant seed and input.
 
 What it implements (PROTOCOL.md section beside the code):
 - §4 every command gets exactly one reply; a command repeated with the sequence number of

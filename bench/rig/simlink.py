@@ -105,7 +105,8 @@ class SimLink:
     def stalled(self) -> bool:
         o = self.options
         t = self.board.time_s
-        return o.stall_after_s is not None and o.stall_after_s <= t < o.stall_after_s + o.stall_for_s
+        return (o.stall_after_s is not None
+                and o.stall_after_s <= t < o.stall_after_s + o.stall_for_s)
 
     def write(self, data: bytes) -> None:
         """Host → board bytes through the line (the kill byte acts at once)."""

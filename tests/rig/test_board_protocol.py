@@ -31,8 +31,10 @@ def test_every_command_gets_exactly_one_reply(host):
     """PROTOCOL.md §4.1, one row each, in a plausible session order."""
     host.run(0.2)
     info = BoardInfo.from_fields(host.ask(m.Hello).fields)
-    assert (info.rig, info.rate_hz, info.watchdog_ms, info.simulated) == ("balance", 500, 500, True)
-    params = [ParamInfo.from_fields(host.ask(m.DescribeParam, i).fields) for i in range(info.params)]
+    assert (info.rig, info.rate_hz, info.watchdog_ms, info.simulated) == \
+        ("balance", 500, 500, True)
+    params = [ParamInfo.from_fields(host.ask(m.DescribeParam, i).fields)
+              for i in range(info.params)]
     signals = [SignalInfo.from_fields(host.ask(m.DescribeSignal, i).fields)
                for i in range(info.signals)]
     loops = [LoopInfo.from_fields(host.ask(m.DescribeLoop, i).fields) for i in range(info.loops)]
@@ -151,7 +153,8 @@ def test_save_crc_matches_values_read_back(tmp_path):
     assert stored["params"]["tilt_kp"] == 0.7
     # a new board on the same storage boots with the stored values
     h2 = Host(make_board("balance", state_path=str(path)))
-    assert h2.ask(m.Get, ("tilt_kp", "trim_ki")).fields == (("tilt_kp", "0.7"), ("trim_ki", "0.04"))
+    assert h2.ask(m.Get, ("tilt_kp", "trim_ki")).fields == \
+        (("tilt_kp", "0.7"), ("trim_ki", "0.04"))
     # restore brings them back after a change, and is refused while running
     h2.ask(m.Set, (("tilt_kp", 0.9),))
     assert h2.ask(m.Restore).get("count") == reply.get("count")

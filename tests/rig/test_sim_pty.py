@@ -100,7 +100,8 @@ def test_virtual_clock_is_refused_on_a_pty():
 
 def test_command_line_front_prints_path_links_and_stops_on_ctrl_c(tmp_path):
     link = tmp_path / "board"
-    code = f"from bench.rig.pty import run_sim_server; raise SystemExit(run_sim_server('wheel', {str(link)!r}))"
+    code = ("from bench.rig.pty import run_sim_server; "
+            f"raise SystemExit(run_sim_server('wheel', {str(link)!r}))")
     proc = subprocess.Popen([sys.executable, "-c", code], cwd=ROOT, stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, text=True,
                             env={**os.environ, "PYTHONPATH": str(ROOT)})
