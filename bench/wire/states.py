@@ -46,7 +46,9 @@ REFUSALS: dict[tuple[str, str], str] = {
 # Interlock conditions the board checks before arming (PROTOCOL.md §7.3), in report order.
 INTERLOCK_CONDITIONS = ("fault", "heartbeat", "tilt", "wheel", "gains")
 
-# Trip causes a board may report in ``ev <t> trip cause=...`` and ``st ... fault=...``.
+# Common trip causes a board reports in ``ev <t> trip cause=...`` and ``st ... fault=...``.
+# Not exhaustive: a board adds ``<signal>_limit`` for any ``trip_<signal>`` parameter, so a
+# host must show an unknown cause as it is, never reject it.
 TRIP_CAUSES = (
     "kill", "watchdog", "tilt_limit", "wheel_limit", "relay_bound", "reset", "output_limit",
 )
