@@ -6,6 +6,7 @@ from __future__ import annotations
 import dataclasses
 import os
 import re
+import sys
 from pathlib import Path
 
 import pytest
@@ -17,23 +18,12 @@ from bench.profiles import (
     Profile, Provenance, SchemaError, Setting, check_against_board, diff_profiles, dump_profile,
     format_diff, load_profile, load_profile_text, same_value, save_profile,
 )
-from bench.rig.boards import rig_def
-from bench.wire.describe import BoardInfo, LoopInfo, ParamInfo
+
+sys.path.insert(0, str(Path(__file__).parent))
+from board_decl import declared  # noqa: E402
 
 ROOT = Path(__file__).parents[1]
 BAD = ROOT / "tests" / "fixtures" / "profiles_bad"
-
-
-def declared(rig: str):
-    """What a simulated board of ``rig`` declares in discovery (PROTOCOL.md §5)."""
-    rd = rig_def(rig)
-    params = {p.name: ParamInfo(i, p.name, p.unit, p.minimum, p.maximum, p.default, p.writable)
-              for i, p in enumerate(rd.params)}
-    loops = {lp.name: LoopInfo(i, lp.name, lp.measure, lp.output, lp.gains, lp.plant, lp.relay)
-             for i, lp in enumerate(rd.loops)}
-    info = BoardInfo((1, 0), rd.board, "0.1.0", rd.rig, rd.rate_hz, rd.watchdog_ms,
-                     len(params), len(rd.signals), len(loops), True)
-    return params, loops, info
 
 
 def _expectation(path: Path):
@@ -62,7 +52,7 @@ def test_bad_profile_names_file_line_and_field(path):
 
 @pytest.mark.parametrize("path", BOARD_FIXTURES, ids=lambda p: p.stem)
 def test_profile_that_does_not_fit_the_board(path):
-    params, loops, info = declared("balance")
+    params, loops, _, info = declared("balance")
     problems = check_against_board(load_profile(path), params, loops, info=info)
     assert [p.format(str(path)) for p in problems] == [_expectation(path)[1]]
 
@@ -71,13 +61,13 @@ def test_profile_that_does_not_fit_the_board(path):
                                        ("demo-balance-soft", "balance"), ("demo-wheel", "wheel")])
 def test_demo_profiles_fit_their_simulated_boards(name, rig):
     profile = load_profile(ROOT / "profiles" / f"{name}.yaml")
-    params, loops, info = declared(rig)
+    params, loops, _, info = declared(rig)
     assert profile.demo
     assert check_against_board(profile, params, loops, info=info) == []
 
 
 def test_board_checks_name_every_problem():
-    params, loops, info = declared("balance")
+    params, loops, _, info = declared("balance")
     text = (ROOT / "profiles" / "demo-balance-start.yaml").read_text()
     text = text.replace("board: sim-balance-1", "board: bench-7").replace("rig: balance",
                                                                           "rig: wheel")
