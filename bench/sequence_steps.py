@@ -15,7 +15,7 @@ Must not import textual, bench.ui, bench.commands, bench.link or control.
 from __future__ import annotations
 
 import re
-from dataclasses import dataclass, field, replace
+from dataclasses import dataclass, field, fields, replace
 from pathlib import Path
 
 from bench.profiles import Profile
@@ -24,7 +24,7 @@ from bench.wire.describe import format_value
 __all__ = ["METRICS", "OPS", "GUARD_KEYS", "MAX_STEPS", "Guards", "Settled", "Step", "PushStep",
            "ArmStep", "HoldStep", "DisarmStep", "WaitStep", "RelayStep", "SweepStep",
            "RecordStep", "SetStep", "CheckStep", "RepeatStep", "Sequence", "expand",
-           "count_steps"]
+           "count_steps", "describe_step"]
 
 MAX_STEPS = 10000  # after unrolling repeats
 OPS = ("<", "<=", ">", ">=")
@@ -243,3 +243,38 @@ def _expand(steps, bindings, guards: Guards, out: list) -> None:
                                where=f"{s.where}.for", timeout_s=s.timeout_s, guards=g,
                                bindings=inner))
             _expand(s.steps, inner, g, out)
+
+
+_COMMON_FIELDS = ("kind", "index", "line", "where", "timeout_s", "guards", "bindings", "profile")
+
+
+def describe_step(step: Step, *, project: Path | None = None) -> str:
+    """One line for a dry run: ``index kind field=value ...`` and the repeat values in force."""
+    parts = []
+    for f in fields(step):
+        if f.name in _COMMON_FIELDS or isinstance(step, CheckStep):
+            continue
+        value = getattr(step, f.name)
+        if isinstance(value, Path):
+            value = value.relative_to(project) if project and value.is_relative_to(project) \
+                else value
+        elif isinstance(value, bool):
+            value = str(value).lower()
+        elif isinstance(value, float):
+            value = format_value(value)
+        elif isinstance(value, tuple):
+            value = ",".join(format_value(v) for v in value)
+        elif isinstance(value, dict):
+            value = " ".join(f"{k}={format_value(v)}" for k, v in value.items())
+        elif isinstance(value, Settled):
+            value = f"|{value.signal}|<{format_value(value.below)} for {format_value(value.for_s)} s"
+        if value is not None:
+            parts.append(value if f.name == "values" else f"{f.name}={value}")
+    if isinstance(step, CheckStep):
+        parts.append(f"{step.metric} {step.op} {format_value(step.value)}")
+    if step.timeout_s is not None:
+        parts.append(f"timeout_s={format_value(step.timeout_s)}")
+    text = f"{step.index:<8} {step.kind:<7} {' '.join(str(p) for p in parts)}".rstrip()
+    if step.bindings:
+        text += "   [" + ", ".join(f"{k}={format_value(v)}" for k, v in step.bindings) + "]"
+    return text

@@ -12,7 +12,7 @@ from bench.sequence_file import (
     STEP_KINDS, SchemaError, expand, load_sequence, load_sequence_text, project_folder,
 )
 from bench.sequence_steps import (
-    METRICS, CheckStep, Guards, PushStep, RecordStep, RelayStep, RepeatStep, SetStep, SweepStep,
+    METRICS, CheckStep, describe_step, Guards, PushStep, RecordStep, RelayStep, RepeatStep, SetStep, SweepStep,
     WaitStep,
 )
 
@@ -240,3 +240,18 @@ def test_readme_documents_the_vocabulary_and_its_example_loads():
     seq = load_sequence_text(block, ROOT / "sequences" / "README-example.yaml")
     assert [s.name for s in expand(seq) if s.kind == "record"] == [
         "after-kp0.5", "after-kp0.64", "after-kp0.8"]
+
+
+def test_dry_run_lines():
+    seq = load_sequence(ROOT / "sequences" / "demo-wheel-relay.yaml")
+    lines = [describe_step(s, project=seq.project).split() for s in expand(seq)]
+    assert lines[0] == ["1", "push", "path=profiles/demo-wheel.yaml", "persist=false"]
+    assert lines[6] == ["7", "check", "relay.cycles", ">=", "6"]
+    assert lines[9] == ["10", "set", "speed_kp=0.2", "[speed_kp=0.2]"]
+    assert lines[11] == ["10.2", "sweep", "loop=speed", "shape=step", "at=setpoint",
+                         "amplitudes=2,-2", "repeats=2", "spacing_s=2", "time_s=1",
+                         "[speed_kp=0.2]"]
+    assert lines[12][3] == "name=after-kp0.2"
+    seq = load_sequence(ROOT / "sequences" / "demo-balance-check.yaml")
+    assert describe_step(seq.steps[3]).split() == ["4", "wait", "settled=|tilt|<1", "for", "2",
+                                                   "s", "timeout_s=20"]
