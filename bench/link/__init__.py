@@ -10,12 +10,12 @@ from .errors import (
     BoardRefused, IncompatibleBoard, LinkError, LinkLost, LinkTimeout, SaveMismatch,
 )
 from .link import Link
-from .records import LINK_STATES, BoardStatus, LinkEvent, LinkHealth, SaveResult
+from .records import LINK_STATES, BoardStatus, LinkEvent, LinkHealth, RawLine, SaveResult
 from .ring import TelemetryBlock
 from .timebase import BoardClock, ClockMap, FrameCounter
 
 __all__ = [
     "Link", "LinkError", "LinkLost", "LinkTimeout", "IncompatibleBoard", "BoardRefused",
-    "SaveMismatch", "BoardStatus", "LinkEvent", "LinkHealth", "SaveResult", "LINK_STATES",
+    "SaveMismatch", "BoardStatus", "LinkEvent", "LinkHealth", "RawLine", "SaveResult", "LINK_STATES",
     "TelemetryBlock", "RealClock", "BoardClock", "ClockMap", "FrameCounter",
 ]

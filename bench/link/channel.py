@@ -35,6 +35,7 @@ from .clock import clock_of, is_virtual
 from .errors import BoardRefused, LinkError, LinkLost, LinkTimeout
 from .ingest import Ingest
 from .records import LinkEvent, LinkHealth
+from .ring import CursorLog
 from .waits import Waits
 
 
@@ -59,7 +60,7 @@ class Channel:
                  stale_s: float = 1.0, read_chunk: int | None = None,
                  kill_lock_wait_s: float = 0.05, event_rows: int = 2000,
                  status_rows: int = 2000, virtual_stall_s: float = 30.0,
-                 virtual_pace: str = "demand") -> None:
+                 virtual_pace: str = "demand", raw_chunks: int = 4096) -> None:
         if virtual_pace not in ("demand", "free"):
             raise ValueError(f"virtual_pace must be 'demand' or 'free', not {virtual_pace!r}")
         self.port = port
@@ -88,6 +89,7 @@ class Channel:
                            virtual_stall_s=virtual_stall_s)
         self._cond = self.waits.cond  # replies are filed under the same condition
         self.events = self.ingest.events
+        self.raw = CursorLog(raw_chunks)  # (time, ">" or "<", bytes) per write / read
         self._thread: threading.Thread | None = None
         self._stop = False
         self._closed = False
@@ -170,6 +172,7 @@ class Channel:
             self._mark_lost(exc)
             raise LinkLost(self._lost or f"link to {self.url} lost") from None
         self._count("tx_bytes", len(data))
+        self.raw.append((self.clock.now(), ">", bytes(data)))
 
     def write(self, data: bytes) -> float:
         """Write one frame (a pending kill goes first); return the link-clock time."""
@@ -271,6 +274,7 @@ class Channel:
                 if data:
                     self._last_rx = now
                     self.c["rx_bytes"] += len(data)
+                    self.raw.append((now, "<", data))
                     for reply in self.ingest.handle(self.codec.receive(data), now):
                         self._match(reply, now)
                 if not self._rates or now - self._rates[-1][0] >= 0.25:

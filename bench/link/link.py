@@ -31,7 +31,7 @@ from bench.wire.messages import (
 
 from .channel import Channel
 from .errors import BoardRefused, IncompatibleBoard, LinkError, LinkLost, SaveMismatch, open_error
-from .records import BoardStatus, LinkEvent, LinkHealth, SaveResult
+from .records import BoardStatus, LinkEvent, LinkHealth, RawLine, SaveResult, raw_lines
 from .ring import TelemetryBlock
 
 _FIXED_CHUNK_SCHEMES = ("socket://", "rfc2217://")  # in_waiting says only 0 or 1
@@ -309,6 +309,14 @@ class Link:
 
     def statuses_since(self, cursor: int) -> tuple[int, list]:
         return self.channel.ingest.statuses.since(cursor)
+
+    def raw_cursor(self) -> int:
+        return self.channel.raw.cursor()
+
+    def raw_since(self, cursor: int) -> tuple[int, list[RawLine]]:
+        """What crossed the link since ``cursor``, as console lines (heartbeats included)."""
+        cursor, chunks = self.channel.raw.since(cursor)
+        return cursor, raw_lines(chunks)
 
     @property
     def last_status(self) -> BoardStatus | None:

@@ -9,6 +9,7 @@ Must not import bench.rig, bench.ui or domain modules.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass, field
 
 from bench.wire.errors import RemoteProtocolError
@@ -79,6 +80,35 @@ class LinkEvent:
 
     def get(self, key: str, default=None):
         return self.fields.get(key, default)
+
+
+@dataclass(frozen=True)
+class RawLine:
+    """Bytes that crossed the link, for a console: ``>`` to the board, ``<`` from it.
+
+    A read or write chunk is split at line ends; a line cut by a chunk boundary shows as
+    two pieces. Non-printable bytes (the kill byte) appear as ``\\x18``.
+    """
+
+    host_time_s: float
+    direction: str
+    text: str
+
+    def __str__(self) -> str:
+        return f"{self.host_time_s:10.3f} {self.direction} {self.text}"
+
+
+_UNPRINTABLE = re.compile(rb"[^\x20-\x7e]")
+
+
+def raw_lines(chunks) -> list[RawLine]:
+    out = []
+    for t, direction, data in chunks:
+        for piece in data.split(b"\n"):
+            piece = _UNPRINTABLE.sub(lambda m: b"\\x%02x" % m.group()[0], piece.rstrip(b"\r"))
+            if piece:
+                out.append(RawLine(t, direction, piece.decode("ascii")))
+    return out
 
 
 @dataclass(frozen=True)

@@ -234,3 +234,15 @@ def test_status_request_and_status_frames(link):
     cur, sts = link.statuses_since(0)
     assert len(sts) >= 2 and all(s.board_time_s is not None for s in sts)
     assert sts[-1].host_time_s == pytest.approx(sts[-1].board_time_s, abs=0.05)
+
+
+def test_raw_tap_shows_both_directions_and_the_kill_byte(link):
+    cur = link.raw_cursor()
+    link.get("tilt_kp")
+    link.kill()
+    cur, lines = link.raw_since(cur)
+    texts = [(ln.direction, ln.text) for ln in lines]
+    assert any(d == ">" and t.startswith("@get ") for d, t in texts)
+    assert any(d == "<" and t.startswith("@ok ") and "tilt_kp=20" in t for d, t in texts)
+    assert (">", "\\x18\\x18\\x18") in texts
+    assert str(lines[0]).split()[1] in "<>"
