@@ -19,6 +19,7 @@ from textual.app import App
 from textual.binding import Binding
 from textual.message import Message
 from textual.reactive import reactive
+from textual.worker import get_current_worker
 
 from bench.link import BoardRefused, Link, LinkError
 
@@ -98,9 +99,10 @@ class RigApp(App):
     link_serial: reactive[int] = reactive(0, init=False)  # bumps when a new link is open
 
     def __init__(self, url: str = DEFAULT_URL, *, stream_hz: float = 250.0,
-                 safety_hz: float = 10.0) -> None:
+                 safety_hz: float = 10.0, virtual_speed: float | None = 1.0) -> None:
         super().__init__()
         self.url = url
+        self.virtual_speed = virtual_speed
         self.stream_hz = stream_hz
         self.safety_hz = safety_hz
         self.link: Link | None = None
@@ -180,6 +182,30 @@ class RigApp(App):
         self.note(f"connected to {info.board}{sim}, telemetry {self.stream_rate_hz:g} Hz")
         self.link_serial += 1
         self.update_safety()
+        if getattr(message.link.clock, "virtual", False):
+            self.pace_virtual_clock(message.link)
+
+    def pace_virtual_clock(self, link: Link, *, step_s: float = 0.02) -> None:
+        """A virtual clock moves only while someone waits on the link: the UI watches live,
+        so it keeps waiting, at most ``virtual_speed`` times faster than real time (None:
+        as fast as the computer allows)."""
+        speed = self.virtual_speed
+
+        def pace() -> None:
+            worker = get_current_worker()
+            real0, sim0 = time.monotonic(), link.now()
+            while self.link is link and not worker.is_cancelled:
+                try:
+                    link.sleep(step_s)
+                except Exception:  # noqa: BLE001 - closed or lost: the bar says which
+                    return
+                if speed:
+                    ahead = (link.now() - sim0) / speed - (time.monotonic() - real0)
+                    if ahead > 0:
+                        time.sleep(min(ahead, 0.1))
+
+        self.run_worker(pace, thread=True, group="pace", exclusive=True,
+                        exit_on_error=False, name="virtual clock")
 
     def on_link_failed(self, message: LinkFailed) -> None:
         if message.url == self.url:
