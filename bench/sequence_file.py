@@ -156,6 +156,8 @@ class _Reader:
         """A path relative to the project folder that stays inside it and names a file."""
         text = cur.text(max_len=300)
         pure = PurePosixPath(text)
+        if not text.isprintable():
+            raise cur.error(f"{text!r} contains control characters")
         if "\\" in text or re.match(r"[A-Za-z]:", text) or text.startswith("~"):
             raise cur.error(f"{text!r}: write paths with / relative to the project folder")
         if pure.is_absolute():
@@ -167,7 +169,7 @@ class _Reader:
         full = self.project / pure
         try:
             real = full.resolve(strict=True)
-        except (OSError, RuntimeError):
+        except (OSError, RuntimeError, ValueError):
             raise cur.error(f"{text!r} does not exist in the project folder {self.project}") \
                 from None
         if not real.is_relative_to(self.project.resolve()):

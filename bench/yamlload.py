@@ -188,8 +188,9 @@ def load_yaml(path: str | Path) -> "Cursor":
     try:
         with open(path, "rb") as f:
             data = f.read(MAX_BYTES + 1)
-    except OSError as exc:
-        raise SchemaError(path, None, "(file)", f"cannot read: {exc.strerror or exc}") from None
+    except (OSError, ValueError) as exc:  # ValueError: a NUL in the path
+        raise SchemaError(path, None, "(file)",
+                          f"cannot read: {getattr(exc, 'strerror', None) or exc}") from None
     try:
         text = data.decode("utf-8")
     except UnicodeDecodeError as exc:

@@ -4,6 +4,7 @@ and fuzzing (any text, and mutated valid files, give a SchemaError or a valid ob
 from __future__ import annotations
 
 import math
+import os
 from pathlib import Path
 
 import pytest
@@ -15,7 +16,8 @@ from bench.sequence_file import load_sequence_text
 from bench.yamlload import SchemaError, load_yaml, load_yaml_text
 
 ROOT = Path(__file__).parents[1]
-FUZZ = settings(max_examples=300, deadline=None,
+# FUZZ_EXAMPLES=5000 for a longer search than the default run
+FUZZ = settings(max_examples=int(os.environ.get("FUZZ_EXAMPLES", 300)), deadline=None,
                 suppress_health_check=[HealthCheck.too_slow])
 
 
@@ -77,6 +79,9 @@ def test_unreadable_and_non_utf8_files(tmp_path):
     with pytest.raises(SchemaError) as e:
         load_yaml(tmp_path / "missing.yaml")
     assert "cannot read" in str(e.value) and e.value.line is None
+    with pytest.raises(SchemaError) as e:
+        load_yaml(str(tmp_path / "nul\0.yaml"))
+    assert "cannot read" in str(e.value)
 
 
 def test_very_deep_nesting_is_an_error_not_a_crash():
@@ -90,7 +95,7 @@ VALID_PROFILE = (ROOT / "profiles" / "demo-balance-start.yaml").read_text()
 VALID_SEQUENCE = (ROOT / "sequences" / "demo-balance-check.yaml").read_text()
 YAML_BITS = list(":-[]{},#&*!|>'\"%@` \n\t?.0123456789") + [
     "  ", "- ", ": ", "\n  ", "true", "null", ".nan", "1e400", "9" * 400, "!!int ", "*a",
-    "&a ", "<<: ", "---\n", "\x00", "\ufeff", "é", "..", "/etc/passwd", "{", "}"]
+    "&a ", "<<: ", "---\n", "\x00", "\ufeff", "é", "..", "/etc/passwd", "{", "}", "\\0", "\\x00"]
 
 
 @st.composite

@@ -3,6 +3,7 @@ vocabulary, paths kept inside the project folder, repeat unrolling, and the ship
 
 from __future__ import annotations
 
+import json
 import re
 from pathlib import Path
 
@@ -74,11 +75,12 @@ def test_symlink_leading_out_of_the_project_is_refused(tmp_path):
     ("C:/x.yaml", "write paths with /"), ("profiles\\w.yaml", "write paths with /"),
     ("~/w.yaml", "write paths with /"), ("profiles", "is not a file"),
     ("profiles/../profiles/w.yaml", "steps out with '..'"),
+    ("profiles/\0w.yaml", "contains control characters"),
 ])
 def test_other_bad_paths(tmp_path, path, words):
     proj = _project(tmp_path)
     with pytest.raises(SchemaError) as e:
-        load_sequence_text(_seq(f"  - push: {path!r}\n"), proj / "sequences" / "s.yaml")
+        load_sequence_text(_seq(f"  - push: {json.dumps(path)}\n"), proj / "sequences" / "s.yaml")
     assert words in e.value.message and e.value.field == "steps[1].push.profile"
 
 
