@@ -93,6 +93,10 @@ class LqrBoardGains:
 
 def lqr_board_gains(model: BalanceModel, ls, board, **lqr_kw) -> LqrBoardGains:
     """The LQR design's nearest PID and wheel-speed trim in the board's parameters."""
+    if model.drive == "torque" and ls.output_limit and "max_command" not in lqr_kw:
+        # Bryson's rule with the torque the board may use (the design's default command
+        # scale is a wheel speed)
+        lqr_kw["max_command"] = ls.output_limit * si_factor(ls.output_unit)
     d = design_lqr(model, **lqr_kw)
     scale = si_factor(ls.measure_unit) / si_factor(ls.output_unit)
     kp, kd = d.pid.kp * scale, d.pid.kd * scale

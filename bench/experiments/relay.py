@@ -14,7 +14,9 @@ the analysis of bench.tuning.relay.
    relay switches a set-point offset ±h fed to its integral only, h in the measure's units.
    **Automatic amplitude** (when ``amplitude`` is None): start small (``start_fraction``
    of ``<output>_limit`` for output relays, ``target_snr``·noise for integral relays),
-   watch two cycles, and grow until the oscillation's half peak-to-peak reaches
+   wait for ``regular_cycles`` cycles agreeing within ``regular_tol`` (noise makes the
+   relay chatter while its first steps are in the dead time), and grow until the
+   oscillation's half peak-to-peak reaches
    ``target_snr`` × noise RMS (METHODS: at least 10×), never beyond the output's limit or
    an oscillation of ``max_oscillation_fraction`` of the measure's guard.
 3. **Convergence** (RelayTracker): ``cycles`` consecutive cycles whose cycle-to-cycle
@@ -22,6 +24,7 @@ the analysis of bench.tuning.relay.
    up at ``max_s`` with the tracker's reason.
 4. **Excitation for the model fit** (integral relays): back in hold, a set-point doublet
    (+A then −A, each ``1.25`` relay periods long, A = ``excite_fraction`` × trip limit).
+   The fit window (``fit_window``) runs from the quiet hold to the end of the doublet.
    The relay alone excites one frequency well above the unstable pole, where the pole is
    hard to see; the doublet adds content at and below it (measured: the unstable-pole fit
    went from −2…−7% to within 1% on the demo rigs).
@@ -120,6 +123,18 @@ def noise_rms(x) -> float:
     return float(np.std(x - np.polyval(coef, n)))
 
 
+def _regular(tracker: RelayTracker, n: int, tol: float) -> bool:
+    """The last ``n`` cycles agree in period and amplitude within ``tol`` of their mean."""
+    if len(tracker.periods) < n:
+        return False
+    for series in (tracker.periods[-n:], tracker.amplitudes[-n:]):
+        x = np.asarray(series)
+        m = float(np.mean(x))
+        if m <= 0 or np.max(np.abs(x - m)) > tol * m:
+            return False
+    return True
+
+
 def _columns(ls: LoopSignals, signals, values, centre: float, bias: float):
     """(relay state, output deviation, measure) from telemetry rows."""
     col = {name: values[:, i] for i, name in enumerate(signals)}
@@ -139,7 +154,8 @@ def run_relay(link, loop: str, *, amplitude: float | None = None,
               target_snr: float = 20.0, hysteresis_noise: float = 2.0,
               start_fraction: float = 0.02, max_oscillation_fraction: float = 0.3,
               bound_fraction: float = 0.5, tol: float = 0.02, discard_cycles: int = 1,
-              excite: bool = True, excite_fraction: float = 0.05) -> RelayRun:
+              excite: bool = True, excite_fraction: float = 0.05,
+              regular_cycles: int = 3, regular_tol: float = 0.25) -> RelayRun:
     """Relay test on ``loop`` (see the module docstring). Raises ArmRefused if the board's
     interlock refuses to arm, ValueError for a loop or settings the board cannot take."""
     ls = loop_signals(link, loop)
@@ -164,7 +180,8 @@ def run_relay(link, loop: str, *, amplitude: float | None = None,
              target_snr=target_snr, hysteresis_noise=hysteresis_noise,
              start_fraction=start_fraction, max_osc=max_oscillation_fraction,
              bound_fraction=bound_fraction, tol=tol, discard=discard_cycles,
-             excite=excite, excite_fraction=excite_fraction)
+             excite=excite, excite_fraction=excite_fraction,
+             regular_cycles=regular_cycles, regular_tol=regular_tol)
     res = exp.result
     stop, reason = state["stop"], state["reason"]
     if res.stopped_by != "done":
@@ -188,7 +205,8 @@ def run_relay(link, loop: str, *, amplitude: float | None = None,
 
 def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, bias, max_s,
          cycles, settle_s, quiet_s, target_snr, hysteresis_noise, start_fraction, max_osc,
-         bound_fraction, tol, discard, excite, excite_fraction) -> None:
+         bound_fraction, tol, discard, excite, excite_fraction, regular_cycles,
+         regular_tol) -> None:
     budget = max_s + settle_s + quiet_s
     exp.hold()
     exp.report("settling", budget_s=budget, fraction=0.0, force=True,
@@ -204,7 +222,7 @@ def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, b
     st["sigma"], st["u0"], st["y0"] = sigma, float(np.mean(col[ls.output])), \
         float(np.mean(col[ls.measure]))
     scale = ls.trip or max(abs(st["y0"]), 1.0)
-    hyst = hysteresis if hysteresis is not None else max(hysteresis_noise * sigma, 1e-6 * scale)
+    hyst = hysteresis if hysteresis is not None else max(hysteresis_noise * sigma, 1e-9 * scale)
     target = target_snr * max(sigma, 1e-6 * scale)
     guard = exp.limits.get(ls.measure)
     osc_cap = max_osc * guard if guard else math.inf
@@ -218,7 +236,7 @@ def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, b
         d_max = 0.25 * ls.trip if ls.trip else math.inf
         d = amplitude if amplitude is not None else target
         mode_bias = bias
-    if d > d_max:
+    if d > d_max and (amplitude is None or ls.relay == "output"):
         raise ValueError(f"relay amplitude {d:g} exceeds what the output allows ({d_max:g})")
     bound = bound_fraction * ls.trip if ls.trip else None
     settings = RelaySettings(d, hyst, bias, centre, bound, amplitude is None)
@@ -252,23 +270,29 @@ def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, b
                    estimate=est, message=f"relay amplitude {settings.amplitude:.4g}")
 
     tracker = start(d)
-    # -- automatic amplitude: grow until the oscillation stands well above the noise
+    # -- automatic amplitude: grow until the oscillation stands well above the noise.
+    # Only regular cycles count: while the relay's first steps are still in the plant's
+    # dead time, noise makes it chatter with short, random cycles of noise amplitude.
     while amplitude is None:
         t_att = exp.elapsed_s()
-        exp.wait(min(attempt_s, max_s - (exp.elapsed_s() - t_start)),
-                 until=lambda: len(tracker.periods) >= 2, on_block=feed)
-        a = tracker.amplitudes[-1] if tracker.amplitudes else None
+        regular = exp.wait(min(attempt_s, max_s - (exp.elapsed_s() - t_start)),
+                           until=lambda: _regular(tracker, regular_cycles, regular_tol),
+                           on_block=feed)
+        a = float(np.mean(tracker.amplitudes[-2:])) if regular else None
         settings.attempts.append((d, a))
         if a is not None and (a >= target or a >= osc_cap):
             break
         if d >= d_max or exp.elapsed_s() - t_start >= max_s:
             if a is None:
                 st["stop"], st["reason"] = "gave_up", (
-                    f"no relay cycle formed within {exp.elapsed_s() - t_att:.1f} s at the "
+                    f"no regular relay cycle within {exp.elapsed_s() - t_att:.1f} s at the "
                     f"largest amplitude allowed ({d:.4g})")
                 return
             break  # keep the largest amplitude allowed; the noise ratio is reported
-        grow = 4.0 if a is None else min(max(1.3 * target / a, 1.5), 4.0)
+        if a is None:
+            grow = 4.0 if not tracker.periods else 2.0
+        else:
+            grow = min(max(1.3 * target / a, 1.5), 4.0)
         d_new = min(d * grow, d_max)
         if a is not None and osc_cap < math.inf:
             d_new = min(d_new, d * osc_cap / a)
@@ -289,7 +313,7 @@ def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, b
         return
     st["t_conv"] = exp.link.now()
     st["stop"], st["reason"] = "converged", ""
-    t_fit0 = an.t_start_s
+    t_fit0 = t_quiet  # all of it is closed-loop data of the free rig: more to fit
     if ls.relay == "integral" and excite and ls.trip:
         exp.mode("hold")
         period = an.period_s

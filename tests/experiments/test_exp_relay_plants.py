@@ -1,0 +1,107 @@
+"""Relay autotune on simulated linear plants (sim://plant, virtual clock): the measured
+point against python-control, Ku and Tu against the describing-function error band, and
+the gain proposals' predicted margins."""
+
+import math
+
+import control
+import numpy as np
+import pytest
+
+from bench.experiments.proposals import propose
+from bench.experiments.relay import run_relay
+
+# METHODS.md §3 plants: url num, den, dead time; exact Ku, Tu [calc, python-control];
+# describing-function errors of an ideal relay on these plants, period and Ku [calc]
+PLANTS = {
+    "lag3": ("1", "1,3,3,1", 0.0, 8.0000, 3.6276, 0.014, -0.024),
+    "fopdt": ("1", "1,1", 1.0, 2.2618, 3.0971, -0.038, -0.11),
+    "sopdt": ("1", "1,2,1", 0.5, 4.6879, 3.2718, 0.011, -0.054),
+}
+
+_runs = {}
+
+
+def _relay(open_sim, name, noise):
+    key = (name, noise)
+    if key not in _runs:
+        num, den, delay, *_ = PLANTS[name]
+        link = open_sim(f"sim://plant?num={num}&den={den}&delay={delay}&noise={noise}&seed=3")
+        _runs[key] = run_relay(link, "main", max_s=60.0)
+    return _runs[key]
+
+
+def _reference(name, omega):
+    # G(jω) from python-control, dead time as e^{-jωL}
+    num, den, delay, *_ = PLANTS[name]
+    g = control.tf([float(x) for x in num.split(",")], [float(x) for x in den.split(",")])
+    return complex(g(1j * omega)) * np.exp(-1j * omega * delay)
+
+
+@pytest.mark.parametrize("noise,gain_tol,phase_tol_deg", [(0, 0.01, 1.0), (1, 0.03, 2.0)])
+@pytest.mark.parametrize("name", list(PLANTS))
+def test_measured_point_is_the_plant_response(open_sim_shared, name, noise, gain_tol, phase_tol_deg):
+    run = _relay(open_sim_shared, name, noise)
+    assert run.converged, run.reason
+    p = run.point
+    g = _reference(name, p.omega_rad_s)
+    # python-control G(jω) at the measured ω: 1% / 1° without noise, 3% / 2° with noise
+    # (brief's tolerances; Y1/U1 over whole periods is exact, Åström & Hägglund 1984)
+    assert p.gain == pytest.approx(abs(g), rel=gain_tol)
+    dphi = (p.phase_deg - math.degrees(np.angle(g)) + 180.0) % 360.0 - 180.0
+    assert abs(dphi) < phase_tol_deg
+    # the third harmonic is a second exact point, G(3jω)
+    p3 = run.points[1]
+    assert p3.omega_rad_s == pytest.approx(3 * p.omega_rad_s)
+    assert p3.gain == pytest.approx(abs(_reference(name, p3.omega_rad_s)), rel=3 * gain_tol)
+
+
+@pytest.mark.parametrize("noise", [0, 1])
+@pytest.mark.parametrize("name", list(PLANTS))
+def test_ku_tu_within_describing_function_band(open_sim_shared, name, noise):
+    _, _, _, ku, tu, df_period, df_ku = PLANTS[name]
+    run = _relay(open_sim_shared, name, noise)
+    # METHODS.md §3 [calc]: describing-function errors of an ideal relay on these plants;
+    # band ±2 points for the hysteresis (2× noise RMS) and 2 ms sampling
+    assert run.tu_s / tu - 1 == pytest.approx(df_period, abs=0.02)
+    assert run.ku / ku - 1 == pytest.approx(df_ku, abs=0.02)
+
+
+def test_automatic_amplitude_and_hysteresis_follow_the_noise(open_sim_shared):
+    run = _relay(open_sim_shared, "sopdt", 1)
+    s = run.settings
+    assert s.automatic
+    # METHODS.md §3 (common practice): hysteresis ≈ 2× noise RMS, oscillation ≥ 10× noise
+    assert s.hysteresis == pytest.approx(2 * run.noise_rms, rel=1e-9)
+    assert run.noise_rms == pytest.approx(1e-3, rel=0.2)  # the plant's declared noise
+    assert run.analysis.amplitude >= 10 * run.noise_rms
+
+
+@pytest.mark.filterwarnings("ignore:stability_margins")
+def test_proposals_on_a_stable_plant(open_sim_shared):
+    run = _relay(open_sim_shared, "lag3", 1)
+    ps = propose(run)
+    # the rules take Ku, Tu at the fitted model's −180° crossing: the exact ultimate point
+    # of 1/(s+1)^3 is Ku = 8, Tu = 3.6276 s (METHODS.md §3 [calc])
+    assert ps.ultimate["ku"] == pytest.approx(8.0, rel=0.02)
+    assert ps.ultimate["tu_s"] == pytest.approx(3.6276, rel=0.01)
+    zn = ps.by_rule("ziegler-nichols-pid")
+    # Ziegler & Nichols (1942): K = 0.6 Ku, Ti = Tu/2, Td = Tu/8 in parallel form
+    assert zn.kp == pytest.approx(0.6 * ps.ultimate["ku"])
+    assert zn.ki == pytest.approx(zn.kp / (ps.ultimate["tu_s"] / 2))
+    assert zn.gains == {"main_kp": zn.kp, "main_ki": zn.ki, "main_kd": zn.kd}
+    # AMIGO needs a static gain: an unbiased relay has none (Åström & Hägglund 2006)
+    assert not ps.by_rule("amigo-pid").applies
+    # margins predicted on the fitted model agree with python-control's margins of the
+    # same discrete loop (2 ms, backward-Euler integral, filtered derivative) on the true
+    # plant, discretised by python-control with a zero-order hold
+    h, tf = 0.002, run.loop.dfilt_s
+    z = control.tf([1.0, 0.0], [1.0], h)
+    c = zn.kp + zn.ki * h * z / (z - 1) + zn.kd * (z - 1) / ((tf + h) * z - tf)
+    plant = control.c2d(control.tf([1.0], [1.0, 3.0, 3.0, 1.0]), h, "zoh")
+    gm, pm, _, _ = control.margin(c * plant)
+    assert zn.margins.gain_margin_upper == pytest.approx(gm, rel=0.05)
+    assert zn.margins.phase_margin_deg == pytest.approx(pm, abs=2.0)
+    ranked = sorted((p for p in ps.proposals if p.rank), key=lambda p: p.rank)
+    assert ranked and all(p.predicted_stable for p in ranked)
+    assert ps.best() is ranked[0]
