@@ -5,8 +5,9 @@ For each gain set, in hold: wait ``settle_s``; then for every amplitude and repe
 ``inject`` (PROTOCOL.md §8: ``shape`` pulse or step, ``at`` body, setpoint or output, the
 amplitude in N.m for ``at=body``, else in the measure's/output's units), signs
 alternating so the wheel does not wind up one way, each followed by ``settle_s`` of
-recording. Metrics per injection (bench.tuning.metrics.disturbance_metrics) on the loop's
-error: measure minus the streamed set-point signal when the board streams one (set-point
+recording (a step lasts that long, and its return is waited out before the next one).
+Metrics per injection over [injection, injection + settle_s (+ pulse width)]
+(bench.tuning.metrics.disturbance_metrics), on the loop's error: measure minus the streamed set-point signal when the board streams one (set-point
 steps then give the tracking error), else the measure's deviation from its mean over the
 ``pre_s`` before the injection. The band is ``band_noise`` × the error's noise RMS in the
 ``pre_s`` window (at least ``band_min``). Per gain set: mean and spread per metric, over
@@ -14,8 +15,9 @@ all injections and per amplitude (bench.tuning.metrics.summarise).
 
 A **fall** (|measure| beyond its guard, or a board trip) kills the motor (runner.py) and
 is recorded for that set; with ``rearm_after_fall`` the fault is cleared and the sweep
-goes on with the next set (the person must have stood the rig up: on the simulated rig a
-hand lifts it while the motor is off), otherwise the sweep stops there. The original
+goes on with the next set once the board's interlock would allow arming again (within
+``rearm_wait_s``: a person stands the rig up and the wheel runs down; on the simulated rig
+a hand lifts it while the motor is off), otherwise the sweep stops there. The original
 values of every parameter a set changes are restored at the end, whatever happened.
 
 Must not import: textual, bench.ui, bench.commands, control.
@@ -132,6 +134,7 @@ def run_sweep(link, gain_sets, *, loop: str | None = None, amplitudes=(0.02, 0.0
               repeats: int = 3, kind: str = "pulse", at: str = "body", width_s: float = 0.1,
               settle_s: float = 2.0, pre_s: float = 0.5, alternate_sign: bool = True,
               band_noise: float = 3.0, band_min: float = 1e-6, rearm_after_fall: bool = False,
+              rearm_wait_s: float = 10.0,
               cancel=None, progress=None, results_dir=None,
               guards: Guards | None = None) -> SweepResult:
     """Run the sweep (see the module docstring); returns a SweepResult."""
@@ -186,8 +189,7 @@ def run_sweep(link, gain_sets, *, loop: str | None = None, amplitudes=(0.02, 0.0
                 r.injections.append(Injection(r.name, float("nan"), -1, res.ended_s, None, True,
                                               res.detail))
                 pending.remove(i)
-            if fell and rearm_after_fall and pending:
-                link.clear()
+            if fell and rearm_after_fall and pending and _rearm(link, rearm_wait_s):
                 continue
             stop, detail = ("fell" if fell else res.stopped_by), res.detail
             break
@@ -209,6 +211,14 @@ def run_sweep(link, gain_sets, *, loop: str | None = None, amplitudes=(0.02, 0.0
                        experiments)
 
 
+def _rearm(link, wait_s: float) -> bool:
+    """Clear the fault and wait (up to ``wait_s``) until the interlock would allow arming:
+    someone has to stand the rig up and the wheel has to run down first."""
+    link.clear()
+    return link.wait_until(lambda: link.last_status is not None and link.last_status.motor
+                           == "off" and not link.last_status.why, wait_s)
+
+
 def _run_set(exp: Experiment, ls, gs: GainSet, out: SetResult, amplitudes, repeats, kind, at,
              width_s, settle_s, pre_s, alternate, band_noise, band_min, total, counter) -> None:
     out.applied = exp.set(**gs.values)
@@ -224,10 +234,11 @@ def _run_set(exp: Experiment, ls, gs: GainSet, out: SetResult, amplitudes, repea
             time_s = width_s if kind == "pulse" else settle_s
             t0 = exp.link.now()
             exp.mode("inject", loop=ls.name, shape=kind, at=at, amp=amp, time_s=time_s)
-            exp.wait(settle_s + (width_s if kind == "pulse" else 0.0))
+            record_s = settle_s + (width_s if kind == "pulse" else 0.0)
+            exp.wait(record_s)
+            m = _metrics(exp, ls, t0, t0 + record_s, pre_s, band_noise, band_min, guard)
             if kind == "step":  # the step ends by itself: let it settle before the next
                 exp.wait(settle_s)
-            m = _metrics(exp, ls, t0, pre_s, band_noise, band_min, guard)
             out.injections.append(Injection(gs.name, amp, rep, t0, m, bool(m and m.fell)))
             counter["done"] += 1
             exp.report("sweep", fraction=counter["done"] / total, force=True,
@@ -237,10 +248,10 @@ def _run_set(exp: Experiment, ls, gs: GainSet, out: SetResult, amplitudes, repea
     out.completed = True
 
 
-def _metrics(exp: Experiment, ls, t0: float, pre_s: float, band_noise: float,
+def _metrics(exp: Experiment, ls, t0: float, t1: float, pre_s: float, band_noise: float,
              band_min: float, guard) -> DisturbanceMetrics | None:
     t, v = exp.data()
-    sel = t >= t0 - pre_s
+    sel = (t >= t0 - pre_s) & (t <= t1 + 1e-9)
     t, v = t[sel], v[sel]
     col = {n: v[:, i] for i, n in enumerate(exp.signals)}
     y = col[ls.measure]

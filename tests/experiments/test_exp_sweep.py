@@ -1,0 +1,81 @@
+"""Disturbance sweeps: metrics against python-control, falls, restoring the gains."""
+
+import control
+import numpy as np
+import pytest
+
+from bench.experiments.sweep import GainSet, gain_set, run_sweep
+
+
+def test_setpoint_step_iae_matches_python_control(open_sim):
+    link = open_sim("sim://plant?num=1&den=1,3,3,1&noise=0")
+    sets = [GainSet("slow", {"main_kp": 0.5, "main_ki": 0.25, "main_kd": 0.0}),
+            GainSet("brisk", {"main_kp": 2.0, "main_ki": 0.8, "main_kd": 0.0})]
+    sw = run_sweep(link, sets, amplitudes=(0.1, 0.2), repeats=1, kind="step", at="setpoint",
+                   settle_s=12.0)
+    assert sw.stopped_by == "done"
+    h, T = 0.002, 12.0
+    for gs in sets:
+        kp, ki = gs.values["main_kp"], gs.values["main_ki"]
+        # reference: the board's discrete loop (backward-Euler integral, u[k] held over the
+        # next period) around the plant discretised with a zero-order hold, python-control
+        z = control.tf([1.0, 0.0], [1.0], h)
+        c = kp + ki * h * z / (z - 1)
+        p = control.c2d(control.tf([1.0], [1.0, 3.0, 3.0, 1.0]), h, "zoh")
+        t = np.arange(0.0, T, h)
+        _, e = control.step_response(control.feedback(1, c * p), t)
+        iae = 0.1 * float(np.sum(np.abs(e[:-1])) * h)
+        res = sw.by_name(gs.name)
+        assert res.completed and not res.fell
+        first, second = res.injections
+        # the first step starts from rest: the same response, to 0.5%
+        assert first.metrics.iae == pytest.approx(iae, rel=0.005)
+        # the second (−0.2, signs alternate) starts while the first one's return still
+        # decays a little: within 5% of twice the reference
+        assert second.amplitude == -0.2
+        assert second.metrics.iae == pytest.approx(2 * iae, rel=0.05)
+        assert res.summary["iae"].count == 2
+        assert res.by_amplitude[0.1]["iae"].mean == pytest.approx(first.metrics.iae)
+    # the original gains came back
+    assert link.get("main_kp", "main_ki", "main_kd") == {"main_kp": 0.5, "main_ki": 0.25,
+                                                         "main_kd": 0.0}
+
+
+def test_a_fall_is_recorded_and_the_sweep_goes_on_when_asked(open_sim):
+    link = open_sim("sim://balance?seed=7")
+    start = link.get("tilt_kp", "tilt_ki", "tilt_kd")
+    # P alone never stabilises the speed-drive tilt loop (METHODS.md §4 [calc])
+    bad = {"tilt_kp": 0.3, "tilt_ki": 0.0, "tilt_kd": 0.0}
+    sw = run_sweep(link, [("start", start), ("p only", bad), ("start again", start)],
+                   amplitudes=(0.02,), repeats=1, settle_s=1.0, rearm_after_fall=True)
+    assert sw.stopped_by == "done"
+    assert sw.by_name("p only").fell and not sw.by_name("p only").completed
+    assert sw.by_name("start").completed and sw.by_name("start again").completed
+    assert not sw.by_name("start again").fell
+    assert link.get(*start) == pytest.approx(start)
+    assert link.status().motor == "off"
+
+
+def test_a_fall_ends_the_sweep_by_default(open_sim):
+    link = open_sim("sim://balance?seed=7")
+    start = link.get("tilt_kp", "tilt_ki", "tilt_kd")
+    sw = run_sweep(link, [("p only", {"tilt_kp": 0.3, "tilt_ki": 0.0}), ("start", start)],
+                   amplitudes=(0.02,), repeats=1, settle_s=1.0)
+    assert sw.stopped_by == "fell" and sw.by_name("p only").fell
+    assert sw.by_name("start").injections == []
+    st = link.status()
+    assert st.motor == "tripped" and link.port.board.signals["cmd"] == 0.0
+    assert link.get(*start) == pytest.approx(start)  # restored even after the fall
+
+
+def test_gain_sets_from_dicts_profiles_and_bad_input(open_sim):
+    assert gain_set({"a": 1}, "x") == GainSet("x", {"a": 1.0})
+    with pytest.raises(TypeError):
+        gain_set(3)
+    with pytest.raises(ValueError):
+        gain_set({})
+    link = open_sim("sim://balance")
+    with pytest.raises(ValueError, match="no parameter"):
+        run_sweep(link, [{"tilt_kq": 1.0}], loop="tilt")
+    with pytest.raises(ValueError):
+        run_sweep(link, [{"tilt_kp": 1.0}], kind="ramp")
