@@ -111,7 +111,8 @@ class RigApp(App):
         self.note_text = ""
         self.trip_cause: str | None = None
         self.kills_sent = 0
-        self.last_result = None  # the last experiment's result object (Gains screen reads it)
+        self.last_relay = None  # the last relay outcome (runners.RelayOutcome)
+        self.cancel_events: set = set()  # cancel flags of running experiments
         self._event_cursor = 0
         for theme in THEMES:
             self.register_theme(theme)
@@ -219,7 +220,8 @@ class RigApp(App):
         link = self.link
         if link is None:
             return None
-        rate = self.stream_rate_hz or link.info.rate_hz
+        # an experiment may raise the stream rate up to the loop rate: bound by that
+        rate = max(self.stream_rate_hz or 0.0, link.info.rate_hz)
         return link.snapshot(seconds=seconds, rows=int(seconds * rate * 1.25) + 64)
 
     def telemetry_cursor(self) -> int:
@@ -264,7 +266,7 @@ class RigApp(App):
     def action_kill(self) -> None:
         """Kill bytes now, on this thread; then stop any experiment worker."""
         link = self.link
-        self.workers.cancel_group(self, "experiment")
+        self.cancel_experiments()
         if link is None:
             self.note("KILL: no link is open: nothing was sent. Use the hardware cut-off.")
             self.update_safety()
@@ -279,6 +281,12 @@ class RigApp(App):
             self.kills_sent += 1
             self.note("kill sent; waiting for the board to confirm")
         self.update_safety()
+
+    def cancel_experiments(self) -> None:
+        """Set the cancel flag of every running experiment (the runner leaves the rig safe)."""
+        for event in list(self.cancel_events):
+            event.set()
+        self.workers.cancel_group(self, "experiment")
 
     def need_link(self, what: str) -> Link | None:
         if self.link is None:

@@ -1,9 +1,10 @@
 """Experiments screen: a relay autotune or a disturbance sweep on one of the board's loops,
-with its parameters, live progress (cycles as they form), cancel, and the results.
+with its settings, live progress (cycles as they form), cancel, and the results.
 
-The experiment itself (mode changes, guards, recording, analysis) is domain code run in a
-thread worker through :mod:`bench.ui.runners`; this screen collects the parameters, shows
-progress messages and the result object, and cancels. Kill (ctrl+k, F9) also cancels.
+The experiments are domain code (bench.experiments: guards, arming through the interlock,
+modes, recording, a safe end) run in a thread worker through :mod:`bench.ui.runners`.
+This screen collects the settings, shows progress messages and the result. Kill (ctrl+k,
+F9) also cancels; cancel (x) stops in an orderly way and the runner leaves the rig safe.
 
 Must not import: bench.rig, serial, bench.ui.app.
 """
@@ -14,20 +15,19 @@ from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
 from textual.message import Message
-from textual.widgets import Checkbox, DataTable, Input, Label, ProgressBar, Select, Static
+from textual.widgets import DataTable, Input, Label, ProgressBar, Select, Static
 
 from . import runners
+from .results import cycle_row, progress_text, relay_lines, sweep_lines
 from .safety import BenchScreen
 
-FIELDS = (  # id, label, default, what it is
-    ("amplitude", "amplitude", "", "relay half step (loop output units, or measure units "
-     "for a relay on the integral channel)"),
-    ("hysteresis", "hysteresis", "", "in the measure's units"),
-    ("bias", "bias", "0", "relay bias (0: symmetric)"),
-    ("cycles", "cycles", "6", "whole cycles to collect after settling"),
-    ("sweep_amp", "sweep step", "", "disturbance step size per run"),
-    ("sweep_time", "step time s", "1", "how long each step lasts"),
-)
+# id, label, default; blank amplitude / hysteresis: the experiment sizes them
+RELAY_FIELDS = (("amplitude", "amplitude", ""), ("hysteresis", "hysteresis", ""),
+                ("bias", "bias", "0"), ("cycles", "cycles", "4"), ("max_s", "max time s", "60"))
+SWEEP_FIELDS = (("amplitudes", "step sizes", "0.02, 0.04"), ("repeats", "repeats", "3"),
+                ("width_s", "pulse width s", "0.1"))
+GAIN_CHOICES = (("current gains", "current"), ("current + best proposal", "best"),
+                ("current + 3 best proposals", "top3"))
 
 
 class ExperimentProgress(Message):
@@ -37,39 +37,13 @@ class ExperimentProgress(Message):
 
 
 class ExperimentDone(Message):
-    def __init__(self, result, text: str) -> None:
+    def __init__(self, kind: str, result, text: str) -> None:
         super().__init__()
-        self.result, self.text = result, text
+        self.kind, self.result, self.text = kind, result, text
 
 
-def cycle_row(p) -> tuple[str, ...]:
-    def f(v, spec=".4g"):
-        return "–" if v is None else format(v, spec)
-
-    return (str(p.cycles), f(p.period_s), f(p.amplitude), f(p.ku),
-            f(None if p.period_change is None else 100 * p.period_change, ".2g"),
-            "settled" if p.settled else "")
-
-
-def result_lines(result) -> list[str]:
-    """The measured figures of a relay result, in words; fields that are missing are left
-    out (the runner decides what it measures)."""
-    lines = []
-    relay = getattr(result, "relay", result)
-    conv = getattr(relay, "converged", None)
-    if conv is not None:
-        lines.append("converged" if conv else f"NOT converged: {relay.reason}")
-    for label, attr, unit in (("cycles used", "cycles", ""), ("Ku", "ku", ""),
-                              ("Tu", "tu_s", "s"), ("oscillation amplitude", "amplitude", ""),
-                              ("static gain", "static_gain", "")):
-        v = getattr(relay, attr, None)
-        if v is not None:
-            lines.append(f"{label:<22} {v:.4g} {unit}".rstrip())
-    point = getattr(relay, "point", None)
-    if point is not None:
-        lines.append(f"{'measured point':<22} gain {point.gain:.4g}, phase "
-                     f"{point.phase_deg:.1f}°, at {point.omega_rad_s:.4g} rad/s")
-    return lines
+def form_row(label: str, widget) -> Horizontal:
+    return Horizontal(Label(label, classes="form-label"), widget, classes="form-row")
 
 
 class ExperimentsScreen(BenchScreen):
@@ -82,112 +56,142 @@ class ExperimentsScreen(BenchScreen):
 
     def __init__(self) -> None:
         super().__init__()
-        self.running = False
-        self.progress_seen = 0
+        self.running: str | None = None
+        self.cycles_shown = 0
 
     def compose_body(self) -> ComposeResult:
         with Horizontal(id="exp-top"):
             with Vertical(id="exp-form"):
-                with Horizontal(classes="form-row"):
-                    yield Label("loop", classes="form-label")
-                    yield Select([], prompt="loop", allow_blank=True, compact=True,
-                                 id="exp-loop")
-                yield Checkbox("choose amplitude and hysteresis automatically", True,
-                               compact=True, id="exp-auto")
-                for fid, label, default, _ in FIELDS:
-                    with Horizontal(classes="form-row"):
-                        yield Label(label, classes="form-label")
-                        yield Input(default, id=f"exp-{fid}", type="number", compact=True)
+                yield form_row("loop", Select([], prompt="loop", allow_blank=True,
+                                              compact=True, id="exp-loop"))
+                yield Label("Relay test (r); blank amplitude/hysteresis: sized "
+                            "automatically", classes="section")
+                for fid, label, default in RELAY_FIELDS:
+                    yield form_row(label, Input(default, id=f"exp-{fid}", compact=True))
+                yield Label("Disturbance sweep (t)", classes="section")
+                yield form_row("gain sets", Select(GAIN_CHOICES, value="current",
+                                                   allow_blank=False, compact=True,
+                                                   id="exp-sets"))
+                yield form_row("shape", Select([("pulse", "pulse"), ("step", "step")],
+                                               value="pulse", allow_blank=False,
+                                               compact=True, id="exp-kind"))
+                yield form_row("at", Select([(a, a) for a in ("body", "setpoint", "output")],
+                                            value="body", allow_blank=False, compact=True,
+                                            id="exp-at"))
+                for fid, label, default in SWEEP_FIELDS:
+                    yield form_row(label, Input(default, id=f"exp-{fid}", compact=True))
                 yield Static("", id="exp-hint", markup=False)
             with Vertical(id="exp-live"):
                 yield Label("Progress", classes="section")
-                yield ProgressBar(id="exp-bar", show_eta=False)
+                yield ProgressBar(id="exp-bar", show_eta=False, total=1.0)
                 yield Static("idle", id="exp-state", markup=False)
-                yield DataTable(id="exp-cycles", cursor_type="none")
+                yield DataTable(id="exp-cycle-table", cursor_type="none")
         yield Label("Result", classes="section")
         yield Static("No experiment run yet.", id="exp-result", markup=False)
 
     def on_mount(self) -> None:
-        self.query_one("#exp-cycles", DataTable).add_columns(
-            "cycle", "period s", "amplitude", "Ku", "Δperiod %", "")
+        self.query_one("#exp-cycle-table", DataTable).add_columns(
+            "cycle", "period s", "amplitude", "Ku", "Δperiod %")
         self.watch(self.app, "link_serial", lambda _: self.setup(), init=False)
         self.setup()
 
     def setup(self) -> None:
         link = self.app.link
-        pick = self.query_one("#exp-loop", Select)
         if link is None:
             return
+        pick = self.query_one("#exp-loop", Select)
         pick.set_options([(f"{n} ({lp.plant}, relay on {lp.relay})", n)
                           for n, lp in link.loops.items()])
         if link.loops:
             pick.value = next(iter(link.loops))
-        self.show_hint()
 
     def on_select_changed(self, event: Select.Changed) -> None:
-        self.show_hint()
+        if event.select.id == "exp-loop":
+            self.show_hint()
 
     def show_hint(self) -> None:
-        link = self.app.link
-        loop = self.loop_name()
+        link, loop = self.app.link, self.loop_name()
         if link is None or loop is None:
             return
         lp = link.loops[loop]
         units = {s.name: s.unit for s in link.signals}
-        amp_unit = units.get(lp.measure if lp.relay == "integral" else lp.output, "?")
+        m_unit = units.get(lp.measure, "?")
+        amp_unit = m_unit if lp.relay == "integral" else units.get(lp.output, "?")
         self.query_one("#exp-hint", Static).update(
-            f"loop {loop}: measure {lp.measure} ({units.get(lp.measure, '?')}), output "
-            f"{lp.output}; amplitude in {amp_unit}, hysteresis in "
-            f"{units.get(lp.measure, '?')}. Needs the motor armed (a).")
+            f"loop {loop}: measure {lp.measure} ({m_unit}), output {lp.output}. Relay "
+            f"amplitude in {amp_unit}, hysteresis in {m_unit}. The experiment arms through "
+            "the board's interlock and leaves the rig safe at the end.")
 
     def loop_name(self) -> str | None:
         value = self.query_one("#exp-loop", Select).value
         return None if value is Select.BLANK else str(value)
 
-    def numbers(self) -> dict[str, float | None]:
+    def numbers(self, fields) -> dict:
         out = {}
-        for fid, label, _, _ in FIELDS:
+        for fid, label, _ in fields:
             text = self.query_one(f"#exp-{fid}", Input).value.strip()
             try:
-                out[fid] = float(text) if text else None
+                if fid == "amplitudes":
+                    out[fid] = tuple(float(x) for x in text.replace(",", " ").split())
+                elif fid in ("cycles", "repeats"):
+                    out[fid] = int(text)
+                elif text:
+                    out[fid] = float(text)
+                elif fid not in ("amplitude", "hysteresis"):  # blank: the default
+                    continue
+                else:
+                    out[fid] = None  # sized by the experiment
             except ValueError:
                 raise ValueError(f"{label}: {text!r} is not a number") from None
         return out
 
+    def gain_sets(self, link, loop: str) -> list:
+        names = link.loops[loop].gains
+        sets = [("current", {n: link.params[n].value for n in names})]
+        choice = self.query_one("#exp-sets", Select).value
+        outcome = self.app.last_relay
+        if choice != "current" and outcome is not None and outcome.proposals is not None \
+                and outcome.loop_name == loop:
+            ranked = sorted((p for p in outcome.proposals.proposals if p.rank is not None),
+                            key=lambda p: p.rank)
+            sets += [(p.rule, dict(p.gains)) for p in ranked[:1 if choice == "best" else 3]]
+        elif choice != "current":
+            raise ValueError("no proposals for this loop yet: run a relay test first")
+        return sets
+
     # ------------------------------------------------------------------ run
 
     def _start(self, kind: str) -> None:
+        state = self.query_one("#exp-state", Static)
         if self.running:
-            self.notify("An experiment is already running (x cancels).", severity="warning")
+            state.update(f"a {self.running} test is running (x cancels)")
             return
-        link = self.app.need_link(f"{kind} test")
-        loop = self.loop_name()
+        link, loop = self.app.need_link(f"{kind} test"), self.loop_name()
         if link is None or loop is None:
             return
+        if runners.find(kind) is None:
+            state.update(runners.missing_text(kind))
+            return
         try:
-            values = self.numbers()
+            if kind == "relay":
+                options = dict(loop=loop, **self.numbers(RELAY_FIELDS))
+            else:
+                options = dict(loop=loop, gain_sets=self.gain_sets(link, loop),
+                               kind=self.query_one("#exp-kind", Select).value,
+                               at=self.query_one("#exp-at", Select).value,
+                               **self.numbers(SWEEP_FIELDS))
         except ValueError as exc:
-            self.query_one("#exp-state", Static).update(str(exc))
+            state.update(str(exc))
             return
-        auto = self.query_one("#exp-auto", Checkbox).value
-        runner = runners.find(kind)
-        if runner is None:
-            self.query_one("#exp-state", Static).update(runners.missing_text(kind))
-            self.app.note(f"{kind}: {runners.missing_text(kind)}")
-            return
-        self.running = True
-        self.progress_seen = 0
-        self.query_one("#exp-cycles", DataTable).clear()
-        self.query_one("#exp-bar", ProgressBar).update(total=values.get("cycles") or 6,
-                                                        progress=0)
-        self.query_one("#exp-state", Static).update(f"{kind} test on loop {loop} running…")
-        options = dict(loop=loop, auto=auto, **values)
-        worker = runners.run_in_worker(self, kind, runner, link, options,
-                                       on_progress=lambda p: self.post_message(
-                                           ExperimentProgress(p)),
-                                       on_done=lambda r, t: self.post_message(
-                                           ExperimentDone(r, t)))
-        self.app.note(f"{kind} test started on loop {loop} ({worker.name})")
+        self.running = kind
+        self.cycles_shown = 0
+        self.query_one("#exp-cycle-table", DataTable).clear()
+        self.query_one("#exp-bar", ProgressBar).update(total=1.0, progress=0.0)
+        state.update(f"{kind} test on loop {loop} starting…")
+        runners.start(self.app, kind, link, options,
+                      on_progress=lambda p: self.post_message(ExperimentProgress(p)),
+                      on_done=lambda r, t: self.post_message(ExperimentDone(kind, r, t)))
+        self.app.note(f"{kind} test started on loop {loop}")
 
     def action_start_relay(self) -> None:
         self._start("relay")
@@ -196,34 +200,34 @@ class ExperimentsScreen(BenchScreen):
         self._start("sweep")
 
     def action_cancel(self) -> None:
+        state = self.query_one("#exp-state", Static)
         if not self.running:
-            self.query_one("#exp-state", Static).update("nothing running")
+            state.update("nothing running")
             return
-        self.app.workers.cancel_group(self.app, "experiment")
-        self.query_one("#exp-state", Static).update("cancelling: the runner leaves the "
-                                                    "motor safe (mode off)…")
+        self.app.cancel_experiments()
+        state.update("cancelling: the experiment ends in order and leaves the rig safe…")
 
     def on_experiment_progress(self, message: ExperimentProgress) -> None:
         p = message.progress
-        if hasattr(p, "cycles"):
-            table = self.query_one("#exp-cycles", DataTable)
-            while self.progress_seen < p.cycles:
-                self.progress_seen += 1
-                table.add_row(*cycle_row(p))
-            self.query_one("#exp-bar", ProgressBar).update(progress=p.cycles)
-        text = getattr(p, "text", None)
-        if text:
-            self.query_one("#exp-state", Static).update(text)
+        if p.fraction is not None:
+            self.query_one("#exp-bar", ProgressBar).update(progress=p.fraction)
+        self.query_one("#exp-state", Static).update(progress_text(p))
+        row = cycle_row(p)
+        if row is not None and p.cycles > self.cycles_shown:
+            self.cycles_shown = p.cycles
+            self.query_one("#exp-cycle-table", DataTable).add_row(*row)
 
     def on_experiment_done(self, message: ExperimentDone) -> None:
-        self.running = False
+        self.running = None
         self.query_one("#exp-state", Static).update(message.text)
         self.app.note(message.text)
-        if message.result is None:
+        result = message.result
+        if result is None:
+            self.query_one("#exp-result", Static).update(message.text)
             return
-        self.app.last_result = message.result
-        lines = result_lines(message.result)
-        n = len(getattr(message.result, "proposals", None) or [])
-        lines.append(f"{n} proposals with predicted margins: see the Gains screen (3)."
-                     if n else "No proposals.")
+        if message.kind == "relay":
+            self.app.last_relay = result
+            lines = relay_lines(result)
+        else:
+            lines = sweep_lines(result)
         self.query_one("#exp-result", Static).update("\n".join(lines))

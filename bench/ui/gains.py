@@ -1,27 +1,24 @@
 """Gains screen: the board's gains and limits with their ranges, proposals from the last
-experiment with predicted margins, editing with range checks, push (difference shown first,
-then one atomic ``set`` and a read-back), save as a profile, load a profile, store on board.
+relay test with predicted margins, editing with range checks; push, store, save and load
+are in :mod:`bench.ui.gains_actions`.
 
-Values are in the board's declared units throughout. Profile reading, checking and writing
-are bench.profiles; the board calls go through the link in thread workers.
+Values are in the board's declared units throughout.
 
 Must not import: bench.rig, serial, bench.ui.app.
 """
 
 from __future__ import annotations
 
-import re
-from dataclasses import replace
 from pathlib import Path
 
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import Horizontal, Vertical
+from textual.containers import Horizontal
 from textual.widgets import DataTable, Label, Select, Static
 
-from bench import profiles
-
-from .dialogs import ConfirmDialog, PromptDialog
+from .dialogs import PromptDialog
+from .gains_actions import GainsBoardActions
+from .results import proposal_items, proposal_rows
 from .safety import BenchScreen
 from .view import format_value
 
@@ -32,30 +29,7 @@ def fmt(v) -> str:
     return "–" if v is None else f"{v:.6g}"
 
 
-def margin_text(m) -> str:
-    if m is None:
-        return "no model: margins not predicted"
-    if not m.stable:
-        return "UNSTABLE on the model"
-    gm = f"GM {m.gain_margin_upper_db:.1f} dB" if m.gain_margin_upper_db is not None else "GM ∞"
-    if m.gain_margin_lower_db is not None:
-        gm += f" / {m.gain_margin_lower_db:.1f} dB"
-    pm = f"PM {m.phase_margin_deg:.0f}°" if m.phase_margin_deg is not None else "PM –"
-    return f"{gm}  {pm}  Ms {m.ms:.2f}"
-
-
-def predicted(m) -> dict[str, float]:
-    """Predicted margins in the profile's provenance keys (bench.profiles.PREDICTED_KEYS)."""
-    if m is None:
-        return {}
-    pairs = {"gain_margin_db": m.gain_margin_upper_db,
-             "gain_margin_lower_db": m.gain_margin_lower_db,
-             "phase_margin_deg": m.phase_margin_deg, "delay_margin_s": m.delay_margin_s,
-             "ms": m.ms, "crossover_rad_s": m.crossover_rad_s}
-    return {k: float(v) for k, v in pairs.items() if v is not None}
-
-
-class GainsScreen(BenchScreen):
+class GainsScreen(GainsBoardActions, BenchScreen):
     SUB_TITLE = "Gains"
     BINDINGS = [
         Binding("e", "edit", "Edit value"),
@@ -72,41 +46,46 @@ class GainsScreen(BenchScreen):
         self.profile_dir = Path(profile_dir)
         self.loop: str | None = None
         self.pending: dict[str, float] = {}
+        self.loaded = None  # a profile loaded from a file, pushed as it is
         self.origin = ""  # where the pending values came from, in words
-        self.origin_proposal = None  # the proposal pending values came from, if any
+        self.origin_proposal = None  # the proposal they came from, if any
         self._proposals: list = []
-        self._link_id = None
 
     def compose_body(self) -> ComposeResult:
         with Horizontal(id="gains-top"):
             yield Label("Loop", classes="section")
-            yield Select([], prompt="loop", allow_blank=True, compact=True,
-                         id="gains-loop")
+            yield Select([], prompt="loop", allow_blank=True, compact=True, id="gains-loop")
             yield Static("", id="gains-origin", markup=False)
         yield DataTable(id="gains-table", cursor_type="row", zebra_stripes=True)
-        yield Label("Proposals from the last experiment (enter takes one)", classes="section")
+        yield Label("Proposals from the last relay test, ranked (enter takes one)",
+                    classes="section")
         yield DataTable(id="proposals", cursor_type="row")
         yield Static("", id="gains-note", markup=False)
 
     def on_mount(self) -> None:
-        table = self.query_one("#gains-table", DataTable)
-        table.add_columns("parameter", "unit", "range", "board", "new", "change")
-        props = self.query_one("#proposals", DataTable)
-        props.add_columns("rule", "form", "kp", "ki", "kd", "predicted margins", "note")
+        self.query_one("#gains-table", DataTable).add_columns(
+            "parameter", "unit", "range", "board", "new", "change")
+        self.query_one("#proposals", DataTable).add_columns(
+            "rank", "rule", "form", "kp", "ki", "kd", "predicted margins", "IAE", "note")
         self.watch(self.app, "link_serial", lambda _: self.setup(), init=False)
         self.setup()
 
     def on_screen_resume(self) -> None:
-        self.show_proposals()
         self.show_table()
+        self.show_proposals()
+
+    def say(self, text: str) -> None:
+        self.query_one("#gains-note", Static).update(text)
+
+    def _drop(self) -> None:
+        self.pending, self.loaded, self.origin, self.origin_proposal = {}, None, "", None
 
     # ------------------------------------------------------------------ contents
 
     def setup(self) -> None:
         link = self.app.link
         if link is None:
-            self.query_one("#gains-note", Static).update("No link open: connect on the Link "
-                                                         "screen (5).")
+            self.say("No link open: connect on the Link screen (5).")
             return
         pick = self.query_one("#gains-loop", Select)
         pick.set_options([(name, name) for name in link.loops])
@@ -114,14 +93,15 @@ class GainsScreen(BenchScreen):
             self.loop = next(iter(link.loops))
             with pick.prevent(Select.Changed):
                 pick.value = self.loop
-        self.pending, self.origin, self.origin_proposal = {}, "", None
+        self._drop()
         self.show_table()
         self.show_proposals()
 
     def on_select_changed(self, event: Select.Changed) -> None:
         if event.select.id == "gains-loop" and event.value is not Select.BLANK:
-            self.loop = str(event.value)
-            self.pending, self.origin, self.origin_proposal = {}, "", None
+            if str(event.value) != self.loop:
+                self.loop = str(event.value)
+                self._drop()
             self.show_table()
             self.show_proposals()
 
@@ -133,7 +113,7 @@ class GainsScreen(BenchScreen):
         gains = list(link.loops[self.loop].gains)
         limits = [n for n, p in link.params.items()
                   if p.writable and n.startswith(LIMIT_PREFIXES) and n not in gains]
-        return gains + limits
+        return gains + limits + [n for n in self.pending if n not in gains + limits]
 
     def show_table(self) -> None:
         link = self.app.link
@@ -147,37 +127,31 @@ class GainsScreen(BenchScreen):
             new = self.pending.get(name)
             change = ""
             if new is not None:
-                change = (f"{100 * (new - p.value) / abs(p.value):+.3g} %" if p.value
-                          else "new")
+                change = f"{100 * (new - p.value) / abs(p.value):+.3g} %" if p.value else "new"
             table.add_row(name, p.unit, f"{fmt(p.minimum)} .. {fmt(p.maximum)}",
                           fmt(p.value), fmt(new) if new is not None else "", change, key=name)
         if row is not None and table.row_count:
             table.move_cursor(row=min(row, table.row_count - 1))
         self.query_one("#gains-origin", Static).update(
-            f"pending: {self.origin}" if self.pending else "no pending changes")
+            f"pending: {self.origin} (p pushes, u drops)" if self.pending
+            else "no pending changes")
 
     def show_proposals(self) -> None:
-        result = self.app.last_result
-        props = self.query_one("#proposals", DataTable)
-        props.clear()
+        outcome = self.app.last_relay
+        table = self.query_one("#proposals", DataTable)
+        table.clear()
         self._proposals = []
-        loop = getattr(result, "loop", None)
-        if result is None or (loop is not None and loop != self.loop):
-            props.add_row("(none yet: run a relay test on the Experiments screen, 2)",
-                          "", "", "", "", "", "")
+        if outcome is None or outcome.proposals is None or outcome.loop_name != self.loop:
+            why = outcome.proposal_error if outcome is not None and outcome.loop_name == \
+                self.loop and outcome.proposal_error else \
+                "none yet: run a relay test on this loop (Experiments screen, 2)"
+            table.add_row("", why, "", "", "", "", "", "", "")
             return
-        for prop in getattr(result, "proposals", None) or []:
-            self._proposals.append(prop)
-            if prop.applies:
-                props.add_row(prop.rule, prop.kind, fmt(prop.kp), fmt(prop.ki), fmt(prop.kd),
-                              margin_text(prop.margins), prop.notes[:40])
-            else:
-                props.add_row(prop.rule, prop.kind, "", "", "", "", prop.reason[:60])
+        self._proposals = proposal_items(outcome.proposals)
+        for row in proposal_rows(outcome.proposals):
+            table.add_row(*row)
 
     # ------------------------------------------------------------------ editing
-
-    def _note(self, text: str) -> None:
-        self.query_one("#gains-note", Static).update(text)
 
     def on_data_table_row_selected(self, event: DataTable.RowSelected) -> None:
         if event.data_table.id == "proposals":
@@ -187,18 +161,19 @@ class GainsScreen(BenchScreen):
 
     def take_proposal(self, index: int) -> None:
         link = self.app.link
-        if link is None or index >= len(self._proposals) or self.loop not in link.loops:
+        if link is None or index >= len(self._proposals):
             return
         prop = self._proposals[index]
-        if not prop.applies:
-            self._note(f"{prop.rule} does not apply: {prop.reason}")
+        if not prop.applies or not prop.gains:
+            self.say(f"{prop.rule} does not apply: {prop.reason}")
             return
-        kp_name, ki_name, kd_name = link.loops[self.loop].gains
-        self.pending = {kp_name: prop.kp, ki_name: prop.ki, kd_name: prop.kd}
+        self._drop()
+        self.pending = {n: float(v) for n, v in prop.gains.items()}
         self.origin, self.origin_proposal = f"proposal {prop.rule}", prop
-        bad = [n for n, v in self.pending.items() if not link.params[n].admits(v)]
-        self._note(f"{', '.join(bad)} outside the board's range: the board would refuse "
-                   "the push" if bad else "Proposal staged: push it with p.")
+        bad = [n for n, v in self.pending.items()
+               if n not in link.params or not link.params[n].admits(v)]
+        self.say(f"{', '.join(bad)} outside the board's range: it would refuse the push"
+                 if bad else "Proposal staged: p pushes it (the difference is shown first).")
         self.show_table()
 
     def action_edit(self) -> None:
@@ -208,7 +183,6 @@ class GainsScreen(BenchScreen):
             return
         name = str(table.coordinate_to_cell_key((table.cursor_row, 0)).row_key.value)
         p = link.params[name]
-        current = self.pending.get(name, p.value)
 
         def done(text: str | None) -> None:
             if text is None:
@@ -216,135 +190,25 @@ class GainsScreen(BenchScreen):
             try:
                 value = float(text)
             except ValueError:
-                self._note(f"{text!r} is not a number; {name} unchanged")
+                self.say(f"{text!r} is not a number; {name} unchanged")
                 return
             if not p.admits(value):
-                self._note(f"{fmt(value)} is outside {name}'s range {fmt(p.minimum)} .. "
-                           f"{fmt(p.maximum)} {p.unit}; unchanged")
+                self.say(f"{fmt(value)} is outside {name}'s range {fmt(p.minimum)} .. "
+                         f"{fmt(p.maximum)} {p.unit}; unchanged")
                 return
             self.pending[name] = value
-            self.origin, self.origin_proposal = "edited by hand", None
+            self.loaded, self.origin, self.origin_proposal = None, "edited by hand", None
             self.show_table()
 
         self.app.push_screen(PromptDialog(
             f"New value for {name}", f"Range {fmt(p.minimum)} .. {fmt(p.maximum)} {p.unit}; "
-            f"the board has {fmt(p.value)}.", value=format_value(current).strip()), done)
+            f"the board has {fmt(p.value)}.",
+            value=format_value(self.pending.get(name, p.value)).strip()), done)
 
     def action_undo(self) -> None:
-        self.pending, self.origin, self.origin_proposal = {}, "", None
+        self._drop()
         self.show_table()
-
-    # ------------------------------------------------------------------ board
 
     def action_reload(self) -> None:
         self.app.board_command("read gains back", lambda link: len(link.refresh_params()),
                                on_done=lambda _: self.show_table())
-
-    def action_push(self) -> None:
-        link = self.app.link
-        if link is None or not self.pending:
-            self._note("Nothing to push: edit a value (e) or take a proposal first.")
-            return
-        lines = []
-        for name, new in self.pending.items():
-            p = link.params[name]
-            lines.append(f"{name:<14} {fmt(p.value):>12} -> {fmt(new):<12} {p.unit}")
-        body = ("The board now has -> will get (one atomic set; read back after):\n\n"
-                + "\n".join(lines) + f"\n\nFrom: {self.origin}.")
-        values = dict(self.pending)
-
-        def push(link):
-            applied = link.set(**values)
-            back = profiles.read_values(link, list(values))
-            wrong = [n for n in values if not profiles.same_value(back[n], applied[n])]
-            return (f"{len(applied)} values applied; read back "
-                    + ("matches" if not wrong else f"DIFFERS for {', '.join(wrong)}"))
-
-        def after(msg) -> None:
-            if msg.ok:
-                self.pending = {}
-            self._note(msg.text if not msg.ok else str(msg.result))
-            self.show_table()
-
-        def confirmed(yes: bool | None) -> None:
-            if yes:
-                self.app.board_command("push gains", push, on_done=after)
-
-        self.app.push_screen(ConfirmDialog("Push these gains?", body, "Push to the board",
-                                           danger=True), confirmed)
-
-    def action_store(self) -> None:
-        def confirmed(yes: bool | None) -> None:
-            if yes:
-                self.app.board_command(
-                    "store on board",
-                    lambda link: f"stored {link.save().count} parameters, CRC checked")
-
-        self.app.push_screen(ConfirmDialog(
-            "Store the parameters in the board's memory?",
-            "The board will boot with its present values, every writable parameter.",
-            "Store on the board", danger=False), confirmed)
-
-    def action_save_profile(self) -> None:
-        link = self.app.link
-        if link is None or self.loop is None:
-            return
-        prop = self.origin_proposal if not self.pending else None
-        default = re.sub(r"[^a-z0-9_-]+", "-", f"{link.info.rig}-{self.loop}").strip("-")
-
-        def save(name: str | None) -> None:
-            if not name:
-                return
-            path = Path(name if name.endswith(".yaml") else f"{name}.yaml")
-            if not path.is_absolute() and path.parent == Path("."):
-                path = self.profile_dir / path
-
-            def work(link):
-                prof = profiles.profile_from_board(link, self.loop, name=path.stem)
-                if prop is not None and all(
-                        profiles.same_value(prof.gains[n].value, v, digits=6)
-                        for n, v in zip(link.loops[self.loop].gains,
-                                        (prop.kp, prop.ki, prop.kd))):
-                    prof = replace(prof, provenance=replace(
-                        prof.provenance, source="rule", method=prop.rule,
-                        predicted=predicted(prop.margins)))
-                return str(profiles.save_profile(prof, path))
-
-            self.app.board_command("save profile", work,
-                                   on_done=lambda m: self._note(
-                                       f"saved {m.result}" if m.ok else m.text))
-
-        self.app.push_screen(PromptDialog(
-            "Save the board's gains as a profile",
-            f"The values the board has now for loop {self.loop} (read again before "
-            f"writing). File name (in {self.profile_dir}/):", value=default), save)
-
-    def action_load_profile(self) -> None:
-        def load(name: str | None) -> None:
-            if not name:
-                return
-            path = Path(name)
-            if not path.exists() and (self.profile_dir / path).exists():
-                path = self.profile_dir / path
-            link = self.app.link
-            try:
-                prof = profiles.load_profile(path)
-            except Exception as exc:  # noqa: BLE001 - SchemaError, OSError: in words
-                self._note(f"cannot load {path}: {exc}")
-                return
-            problems = profiles.check_against_board(prof, link.params, link.loops,
-                                                    info=link.info) if link else []
-            errors = [p for p in problems if p.severity == "error"]
-            if errors:
-                self._note("not loaded: " + "; ".join(p.format(str(path)) for p in errors))
-                return
-            if prof.loop in (link.loops if link else {}):
-                self.loop = prof.loop
-            self.pending = prof.values()
-            self.origin, self.origin_proposal = f"profile {path}", None
-            warn = "; ".join(p.format() for p in problems)
-            self._note(f"profile staged: push it with p. {warn}".strip())
-            self.show_table()
-
-        self.app.push_screen(PromptDialog("Load a profile", "Path of a profile file "
-                                          f"(or a name in {self.profile_dir}/):"), load)

@@ -52,7 +52,7 @@ class LiveScreen(BenchScreen):
     """Plots, readouts and the caution line: the first screen a newcomer sees."""
 
     SUB_TITLE = "Live"
-    AUTO_FOCUS = None  # keys go to the screen (space pauses) until a picker is chosen
+    AUTO_FOCUS = ""  # nothing focused: keys go to the screen (space pauses)
     BINDINGS = [
         Binding("space", "pause", "Pause/resume"),
         Binding("w", "window", "Window"),
@@ -68,6 +68,7 @@ class LiveScreen(BenchScreen):
         self.redraws = 0  # for the benchmark script: redraws done
         self.last_rows = 0  # rows in the last window drawn
         self.last_cursor = -1  # ring cursor of the last window drawn
+        self.backlog_rows = 0  # rows received since the previous window drawn (at a redraw)
         self._layout_key = None
         self._scales: dict[str, tuple[float, float]] = {}
 
@@ -144,8 +145,10 @@ class LiveScreen(BenchScreen):
         block = self.app.telemetry_window(self.window_s)
         if block is None or len(block) == 0:
             return
-        self.last_rows = len(block)
-        self.last_cursor = self.app.telemetry_cursor()
+        cursor = self.app.telemetry_cursor()
+        if self.last_cursor >= 0:
+            self.backlog_rows = cursor - self.last_cursor
+        self.last_rows, self.last_cursor = len(block), cursor
         t = block.board_time_s
         t1 = float(t[-1])
         t0 = t1 - self.window_s

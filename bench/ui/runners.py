@@ -1,9 +1,9 @@
-"""Where the UI finds the domain code that runs experiments and sequences, and how it runs
-it: in a thread worker of the App's ``experiment`` group (so the kill key cancels it), with
-a cancel flag read from the worker and progress handed back through callbacks that post
-messages.
+"""How the UI runs experiments and sequences: domain functions in a thread worker of the
+App's ``experiment`` group, with a cancel flag (a ``threading.Event`` the App also sets on
+kill) and progress handed back through callbacks that post messages.
 
-A runner the build does not have is reported in words; nothing is simulated in its place.
+The domain functions are found by name; one this build lacks is reported in words and
+nothing is simulated in its place.
 
 Must not import: bench.rig, serial, bench.ui.app.
 """
@@ -11,13 +11,13 @@ Must not import: bench.rig, serial, bench.ui.app.
 from __future__ import annotations
 
 import importlib
-
-from textual.worker import get_current_worker
+import threading
+from dataclasses import dataclass
 
 # kind -> (module, function) of the domain runner
 RUNNERS = {
-    "relay": ("bench.experiments", "run_relay"),
-    "sweep": ("bench.experiments", "run_sweep"),
+    "relay": ("bench.experiments.relay", "run_relay"),
+    "sweep": ("bench.experiments.sweep", "run_sweep"),
     "sequence": ("bench.sequence_run", "run_sequence"),
 }
 
@@ -40,31 +40,67 @@ def missing_text(kind: str) -> str:
 
 def error_text(exc: BaseException) -> str:
     text = str(exc).strip().splitlines()
-    words = text[0] if text else ""
+    words = " ".join(t.strip() for t in text[:3])
     name = type(exc).__name__
     return f"{name}: {words}" if words else name
 
 
-def run_in_worker(screen, kind: str, runner, link, options: dict, *, on_progress, on_done):
-    """Start ``runner(link, cancel=..., progress=..., **options)`` in a thread worker.
+@dataclass
+class RelayOutcome:
+    """A relay run and, when it converged, the proposals made from it."""
 
-    ``on_done(result, text)`` is called from the worker with the result (None on failure or
-    cancel) and a line of words; ``on_progress(p)`` with each progress object.
+    run: object  # bench.experiments.relay.RelayRun
+    proposals: object | None  # bench.experiments.proposals.ProposalSet
+    proposal_error: str = ""
+
+    @property
+    def loop_name(self) -> str:
+        return self.run.loop.name
+
+
+def relay_and_proposals(link, *, loop: str, cancel, progress, **settings) -> RelayOutcome:
+    """Run the relay test, then propose gains from it (both domain calls)."""
+    from bench.experiments.proposals import propose
+
+    run = find("relay")(link, loop, cancel=cancel, progress=progress, **settings)
+    if not run.converged:
+        return RelayOutcome(run, None, f"no proposals: {run.stopped_by} ({run.reason})")
+    try:
+        return RelayOutcome(run, propose(run))
+    except Exception as exc:  # noqa: BLE001 - the measured run is still worth showing
+        return RelayOutcome(run, None, f"no proposals: {error_text(exc)}")
+
+
+def sweep(link, *, cancel, progress, gain_sets, **settings):
+    return find("sweep")(link, gain_sets, cancel=cancel, progress=progress, **settings)
+
+
+def sequence(link, *, cancel, progress, sequence):
+    return find("sequence")(link, sequence, cancel=cancel, progress=progress)
+
+
+CALLS = {"relay": relay_and_proposals, "sweep": sweep, "sequence": sequence}
+
+
+def start(app, kind: str, link, options: dict, *, on_progress, on_done):
+    """Start experiment ``kind`` in a thread worker; returns the worker.
+
+    ``on_done(result, text)`` is called from the worker with the result (None on failure)
+    and a line of words; ``on_progress(p)`` with each progress object.
     """
-    app = screen.app
+    cancel = threading.Event()
+    app.cancel_events.add(cancel)
+    call = CALLS[kind]
 
     def work():
-        worker = get_current_worker()
         try:
-            result = runner(link, cancel=lambda: worker.is_cancelled, progress=on_progress,
-                            **options)
+            result = call(link, cancel=cancel, progress=on_progress, **options)
         except Exception as exc:  # noqa: BLE001 - reported in words, never a traceback
             on_done(None, f"{kind} stopped: {error_text(exc)}")
-            return
-        if worker.is_cancelled:
-            on_done(None, f"{kind} cancelled; motor left off")
         else:
-            on_done(result, f"{kind} finished")
+            on_done(result, f"{kind} finished" + ("; cancelled" if cancel.is_set() else ""))
+        finally:
+            app.cancel_events.discard(cancel)
 
     return app.run_worker(work, thread=True, group="experiment", exclusive=True,
                           exit_on_error=False, name=f"{kind} run")
