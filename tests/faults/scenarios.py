@@ -1,0 +1,610 @@
+"""Fault scenarios run against the simulated board, shared by tests/faults and
+scripts/fault_table.py (which prints their figures as the table in docs/FAULTS.md).
+
+Each scenario opens ``sim://balance?clock=virtual`` (one pty scenario runs in real time),
+injects one fault, and returns an ``Outcome``: what the host showed (link state, health
+counters, an experiment's stop reason), what the board truly sent against what the host
+accepted, the motor state on the board itself at the end, and whether the recording made
+up to the fault loads and is in order.
+
+The truth comes from a tap on the board's transmit side (``BoardTap``), *before* the
+simulated line corrupts or drops anything: every telemetry row, status frame and board
+event the host accepted is looked up there, and must be there with the same values.
+
+Helpers for tests only; imports bench (link, rig, recording, experiments) but is imported by
+nothing in bench.
+"""
+
+from __future__ import annotations
+
+import os
+import signal
+import subprocess
+import sys
+import tempfile
+import threading
+import time
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+import serial
+
+import bench  # noqa: F401  (registers sim://)
+from bench.experiments.runner import Experiment, Guards
+from bench.link import BoardRefused, BoardStatus, Link, LinkError, LinkLost, LinkTimeout
+from bench.link.timebase import U32
+from bench.recording import Recorder, load_recording
+from bench.rig.pty import serve_pty
+from bench.rig.simlink import SimLink
+from bench.rig.url import parse_sim_url
+from bench.wire import HostCodec
+from bench.wire import messages as m
+
+ROOT = Path(__file__).resolve().parents[2]
+SIM = "sim://balance?clock=virtual&seed={seed}"
+STREAM_HZ = 500.0
+MODEM_PROBE = (b"AT\r\nAT+CGMI\r\nATE0V1\r\n+++\r\n\x00\xff\xfe~\x7f@@@|\r\n@tm 1 2|0000\r\n"
+               b"@ok 9|ZZZZ\n" + bytes(range(0x80, 0xA0)) + b"@hello 1 1.0")  # ends mid-frame
+
+
+# --------------------------------------------------------------------------- the truth
+
+
+class BoardTap:
+    """What the board put on the wire, read from its transmit side before the line."""
+
+    def __init__(self, board) -> None:
+        self.codec = HostCodec()
+        self.telemetry: dict[tuple[int, int], tuple[float, ...]] = {}
+        self.statuses: set = set()
+        self.events: set = set()
+        self.sent = 0
+        self.ambiguous = 0
+        inner = board.output
+
+        def output(max_bytes=None):
+            data = inner(max_bytes)
+            self._feed(data)
+            return data
+
+        board.output = output  # instance attribute: SimLink.drain calls it
+
+    def _feed(self, data: bytes) -> None:
+        for msg in self.codec.receive(data):
+            if isinstance(msg, m.Telemetry):
+                key = (msg.frame, msg.time_us)
+                self.sent += 1
+                if key in self.telemetry and self.telemetry[key] != msg.values:
+                    self.ambiguous += 1
+                self.telemetry[key] = msg.values
+            elif isinstance(msg, m.Status):
+                self.statuses.add(status_key(BoardStatus.from_fields(
+                    msg.fields, board_time_s=msg.time_us * 1e-6, host_time_s=0.0)))
+            elif isinstance(msg, m.Event):
+                self.events.add((msg.time_us, msg.kind, tuple(sorted(msg.fields))))
+
+
+def status_key(st: BoardStatus) -> tuple:
+    return (round(st.board_time_s * 1e6) % U32, st.mode, st.loop, st.motor, st.fault, st.why,
+            st.drops, st.rx_err, round(st.heartbeat_age_s * 1e3))
+
+
+@dataclass(frozen=True)
+class Accepted:
+    """What the host accepted, compared with what the board sent."""
+
+    rows: int          # telemetry rows in the host's ring
+    wrong: int         # rows, status frames and board events not exactly as sent
+    statuses: int
+    events: int
+
+
+def compare(link: Link, tap: BoardTap) -> Accepted:
+    _, block = link.read_since(0)
+    wrong = 0
+    for frame, board_s, values in zip(block.frame, block.board_time_s, block.values):
+        key = (int(frame) % U32, round(float(board_s) * 1e6) % U32)
+        if tap.telemetry.get(key) != tuple(float(v) for v in values):
+            wrong += 1
+    _, statuses = link.statuses_since(0)
+    wrong += sum(status_key(st) not in tap.statuses for st in statuses)
+    _, events = link.events_since(0)
+    board_events = [e for e in events if e.source == "board"]
+    for e in board_events:
+        key = (round(e.board_time_s * 1e6) % U32, e.kind,
+               tuple(sorted((k, str(v)) for k, v in e.fields.items())))
+        wrong += key not in tap.events
+    return Accepted(len(block), wrong, len(statuses), len(board_events))
+
+
+# --------------------------------------------------------------------------- outcomes
+
+
+@dataclass
+class Outcome:
+    """One scenario's figures (see the module docstring)."""
+
+    scenario: str
+    fault: str
+    sim_s: float = 0.0                 # link-clock seconds the scenario ran
+    states_seen: list = field(default_factory=list)   # link states, in order of change
+    link_state: str = ""               # what the host showed at the end
+    stopped_by: str | None = None      # an experiment's stop reason
+    host_motor: str | None = None      # the motor state the host believed at the end
+    line_bytes_hit: int = 0            # bytes the simulated line corrupted or dropped
+    frames_sent: int = 0               # telemetry frames the board sent
+    frames_accepted: int = 0           # telemetry rows the host accepted
+    lines_rejected: int = 0            # received lines the host refused (all codes)
+    accepted_wrong: int = 0            # accepted rows/status/events not as sent (must be 0)
+    telemetry_lost: int = 0            # sent but not accepted
+    host_counted_lost: int = 0         # telemetry the host counted missing (frame gaps)
+    host_events: list = field(default_factory=list)   # link happenings and board trips seen
+    resends: int = 0
+    motor_end: str = ""                # the board's own motor state at the end
+    fault_end: str | None = None       # the board's latched fault at the end
+    recording_rows: int | None = None
+    recording_ok: bool | None = None   # loads, frames rise, host time never goes back
+    recording_gap_s: float | None = None   # board time from the last recorded row to the fault
+    notes: str = ""
+
+    @property
+    def motor_off(self) -> bool:
+        return self.motor_end in ("off", "tripped")
+
+
+class StateLog:
+    """Link states seen at each poll, kept when they change."""
+
+    def __init__(self, link: Link) -> None:
+        self.link = link
+        self.seen: list[str] = []
+
+    def __call__(self) -> bool:
+        state = self.link.state
+        if not self.seen or self.seen[-1] != state:
+            self.seen.append(state)
+        return False  # as an ``until`` callback: never ends a wait early
+
+
+def _open(url: str, *, wrap=None, **link_kw):
+    port = serial.serial_for_url(url, timeout=0.01)
+    tap = BoardTap(port.board)
+    sim = port.link
+    try:
+        link = Link.attach(wrap(port) if wrap else port, url=url, **link_kw)
+    except BaseException:
+        port.close()
+        raise
+    return port, sim, tap, link
+
+
+def _finish(out: Outcome, link: Link, sim: SimLink, tap: BoardTap, t0: float) -> Outcome:
+    acc = compare(link, tap)
+    h = link.health()
+    out.sim_s = link.now() - t0
+    out.link_state = link.state
+    out.host_motor = link.motor_state
+    out.line_bytes_hit = sim.counts.corrupted + sim.counts.dropped
+    out.frames_sent = tap.sent
+    out.frames_accepted = acc.rows
+    out.lines_rejected = sum(v for k, v in h.bad_frames.items() if k != "kill_byte")
+    out.accepted_wrong = acc.wrong + tap.ambiguous
+    out.telemetry_lost = tap.sent - acc.rows
+    out.host_counted_lost = h.lost_frames
+    out.resends = h.resends
+    for e in link.events_since(0)[1]:
+        kind = e.kind if e.source == "link" else f"trip:{e.get('cause')}" if e.kind == "trip" else None
+        if kind and kind != "handshake" and (not out.host_events or out.host_events[-1] != kind):
+            out.host_events.append(kind)
+    out.motor_end = sim.board.motor
+    out.fault_end = sim.board.fault
+    return out
+
+
+def check_recording(path: Path, *, fault_board_s: float | None = None) -> tuple[int, bool, float | None]:
+    """Rows, in order (frames rise within each board boot, host time never goes back), and
+    the board time from the last row before the fault (the last row of the first boot) to
+    ``fault_board_s``."""
+    rec = load_recording(path)
+    frames, host_t = rec.frame, rec.host_time_s
+    boots = np.flatnonzero(np.diff(rec.board_time_s) < 0) + 1   # a restart starts a segment
+    ok = bool(np.all(np.diff(host_t) >= 0))
+    for seg in np.split(frames, boots):
+        ok = ok and bool(np.all(np.diff(seg) > 0))
+    gap = None
+    if fault_board_s is not None and len(rec):
+        first_boot = np.split(rec.board_time_s, boots)[0]
+        gap = fault_board_s - float(first_boot[-1])
+    return len(rec), ok, gap
+
+
+def _ensure(link: Link, action, want: tuple[str, ...], tries: int = 10) -> None:
+    """Arm or change mode on a bad line: these are never resent (PROTOCOL.md §4.2), so on a
+    timeout ask ``status`` and try again if it did not happen."""
+    for _ in range(tries):
+        try:
+            action()
+            return
+        except LinkTimeout:
+            if link.status().motor in want:
+                return
+    raise AssertionError(f"could not reach motor {want} in {tries} tries")
+
+
+def _run_recorded(link: Link, rec: Recorder, seconds: float, log: StateLog,
+                  step_s: float = 0.1) -> None:
+    end = link.now() + seconds
+    while link.now() < end:
+        link.sleep(step_s)
+        rec.poll()
+        log()
+
+
+# --------------------------------------------------------------------------- scenarios
+
+
+def noisy_line(kind: str, rate: float, *, seconds: float = 3.0, seed: int = 11,
+               workdir: Path) -> Outcome:
+    """Corrupt (flip a bit) or drop bytes at ``rate`` per byte, both directions, while the
+    rig balances in hold with telemetry recorded; then kill over the same line."""
+    url = SIM.format(seed=seed) + f"&{kind}={rate:g}"
+    out = Outcome(f"{kind} {rate:g}/byte", f"each byte {'bit-flipped' if kind == 'corrupt' else 'lost'} "
+                  f"with probability {rate:g}, both directions")
+    port, sim, tap, link = _open(url, retries=40, reply_timeout_s=0.2)
+    try:
+        t0 = link.now()
+        log = StateLog(link)
+        _ensure(link, link.arm, ("armed", "running"))
+        _ensure(link, lambda: link.mode("hold"), ("running",))
+        path = workdir / f"{kind}-{rate:g}.csv"
+        with Recorder(path, link, background=False) as rec:
+            link.stream(STREAM_HZ)
+            _run_recorded(link, rec, seconds, log)
+            link.kill(framed=True)
+            link.sleep(0.2)
+        log()
+        _finish(out, link, sim, tap, t0)
+        out.states_seen = log.seen
+        out.recording_rows, out.recording_ok, _ = check_recording(path)
+        out.recording_ok = out.recording_ok and out.recording_rows == out.frames_accepted
+        return out
+    finally:
+        link.close()
+
+
+class ShapedPort:
+    """A port wrapper: ``prefix`` bytes arrive before anything the board sends, and reads
+    are cut into pieces of 1..``max_piece`` bytes with a cut-off frame start (``@tm 7``)
+    slipped in every ``glitch_every`` reads. Composition: everything else is the port's."""
+
+    def __init__(self, port, *, prefix: bytes = b"", max_piece: int | None = None,
+                 glitch_every: int = 0, seed: int = 0) -> None:
+        self._port = port
+        self._prefix = prefix
+        self._max_piece = max_piece
+        self._glitch_every = glitch_every
+        self._rng = np.random.default_rng(seed)
+        self.reads = 0
+        self.glitches = 0
+
+    def __getattr__(self, name):
+        return getattr(self._port, name)
+
+    @property
+    def in_waiting(self) -> int:
+        if self._prefix:
+            return len(self._prefix)
+        return self._port.in_waiting
+
+    def read(self, size: int = 1) -> bytes:
+        if self._prefix:
+            data, self._prefix = self._prefix[:size], self._prefix[size:]
+            return data
+        self.reads += 1
+        if self._max_piece:
+            size = min(size, int(self._rng.integers(1, self._max_piece + 1)))
+        data = self._port.read(size)
+        if data and self._glitch_every and self.reads % self._glitch_every == 0:
+            self.glitches += 1
+            data = b"@tm 7 " + data
+        return data
+
+
+def garbage_before_handshake(*, seconds: float = 2.0, seed: int = 12, workdir: Path) -> Outcome:
+    """Modem probes, binary junk, bad frames and a frame cut short arrive before the
+    board's first byte (a desktop probing a new USB serial device)."""
+    url = SIM.format(seed=seed)
+    out = Outcome("garbage before handshake", f"{len(MODEM_PROBE)} bytes of modem probes, "
+                  "binary junk and broken frames before the board's first byte")
+    port, sim, tap, link = _open(url, wrap=lambda p: ShapedPort(p, prefix=MODEM_PROBE))
+    try:
+        t0 = link.now()
+        log = StateLog(link)
+        path = workdir / "garbage.csv"
+        with Recorder(path, link, background=False) as rec:
+            link.stream(STREAM_HZ)
+            _run_recorded(link, rec, seconds, log)
+        _finish(out, link, sim, tap, t0)
+        out.states_seen = log.seen
+        out.recording_rows, out.recording_ok, _ = check_recording(path)
+        return out
+    finally:
+        link.close()
+
+
+def partial_lines(*, seconds: float = 2.0, seed: int = 13, workdir: Path) -> Outcome:
+    """Reads cut into pieces of 1..7 bytes, and every 40th read a cut-off frame start
+    slipped in mid-stream: each breaks the frame it lands in."""
+    url = SIM.format(seed=seed)
+    shaped = []
+
+    def wrap(p):
+        shaped.append(ShapedPort(p, max_piece=7, glitch_every=40, seed=seed))
+        return shaped[0]
+
+    port, sim, tap, link = _open(url, wrap=wrap, retries=10)
+    out = Outcome("partial lines", "reads of 1..7 bytes; a cut-off frame start every 40th read")
+    try:
+        t0 = link.now()
+        log = StateLog(link)
+        path = workdir / "partial.csv"
+        with Recorder(path, link, background=False) as rec:
+            link.stream(200.0)
+            _run_recorded(link, rec, seconds, log)
+        _finish(out, link, sim, tap, t0)
+        out.states_seen = log.seen
+        out.notes = f"{shaped[0].glitches} cut-off frames slipped in"
+        out.recording_rows, out.recording_ok, _ = check_recording(path)
+        return out
+    finally:
+        link.close()
+
+
+def _experiment(out: Outcome, url: str, workdir: Path, seconds: float,
+                *, fault_s: float | None, after=None) -> Outcome:
+    """Balance in hold inside an Experiment (guards, recording) until the fault stops it."""
+    port, sim, tap, link = _open(url)
+    try:
+        t0 = link.now()
+        log = StateLog(link)
+        with Experiment(link, name=out.scenario, results_dir=workdir, stream_hz=STREAM_HZ,
+                        guards=Guards(stale_s=0.5)) as exp:
+            exp.hold()
+            exp.wait(seconds, until=log)
+        log()
+        if after is not None:
+            after(link, sim, log)
+        _finish(out, link, sim, tap, t0)
+        out.states_seen = log.seen
+        out.stopped_by = exp.result.stopped_by
+        if exp.result.recording is not None:
+            out.recording_rows, out.recording_ok, out.recording_gap_s = check_recording(
+                exp.result.recording, fault_board_s=fault_s)
+        return out
+    finally:
+        link.close()
+
+
+def _run_on(link: Link, sim: SimLink, log: StateLog, seconds: float = 2.0) -> None:
+    try:
+        end = link.now() + seconds
+        while link.now() < end:
+            link.sleep(0.1)
+            log()
+    except LinkError:
+        log()
+
+
+def stall(*, seed: int = 14, workdir: Path) -> Outcome:
+    """The board's firmware stops for 1.5 s mid-experiment (plant runs on, nothing sent)."""
+    url = SIM.format(seed=seed) + "&stall=3:1.5"
+    out = Outcome("stall mid-experiment", "firmware stops 1.5 s at t = 3 s (watchdog 0.5 s)")
+    return _experiment(out, url, workdir, 6.0, fault_s=3.0,
+                       after=lambda link, sim, log: _run_on(link, sim, log))
+
+
+def reset_mid_experiment(*, seed: int = 15, workdir: Path) -> Outcome:
+    """The board reboots at t = 3 s while balancing in hold inside an experiment."""
+    url = SIM.format(seed=seed) + "&reset=3"
+    out = Outcome("board reset mid-experiment", "board reboots at t = 3 s")
+    return _experiment(out, url, workdir, 6.0, fault_s=3.0,
+                       after=lambda link, sim, log: _run_on(link, sim, log))
+
+
+def _board_alone(sim: SimLink, seconds: float = 1.0) -> None:
+    """The cable is gone but the board keeps power: its firmware runs on with no host."""
+    for _ in range(round(seconds / sim.board.dt_s)):
+        sim.board.step()               # its output goes nowhere (and is not counted as sent)
+
+
+def unplug_mid_experiment(*, seed: int = 16, workdir: Path) -> Outcome:
+    """The USB cable is pulled at t = 3 s while balancing inside an experiment; the board,
+    still powered, runs on without a host."""
+    url = SIM.format(seed=seed) + "&unplug=3"
+    out = Outcome("unplug mid-experiment", "port vanishes at t = 3 s; board runs on alone")
+    return _experiment(out, url, workdir, 6.0, fault_s=3.0,
+                       after=lambda link, sim, log: _board_alone(sim))
+
+
+def unplug_mid_recording(*, seed: int = 17, workdir: Path) -> Outcome:
+    """The cable is pulled at t = 2.5 s while a recording runs (motor armed, no experiment)."""
+    url = SIM.format(seed=seed) + "&unplug=2.5"
+    out = Outcome("unplug mid-recording", "port vanishes at t = 2.5 s while recording (armed)")
+    port, sim, tap, link = _open(url)
+    try:
+        t0 = link.now()
+        log = StateLog(link)
+        link.arm()
+        link.stream(STREAM_HZ)
+        path = workdir / "unplug.csv"
+        rec = Recorder(path, link, background=False).start()
+        try:
+            _run_recorded(link, rec, 5.0, log)
+        except LinkLost:
+            log()
+        rec.close()
+        _board_alone(sim)
+        _finish(out, link, sim, tap, t0)
+        out.states_seen = log.seen
+        out.recording_rows, out.recording_ok, out.recording_gap_s = check_recording(
+            path, fault_board_s=2.5)
+        return out
+    finally:
+        link.close()
+
+
+def host_stops(*, seed: int = 18, workdir: Path) -> Outcome:
+    """The host dies while the rig balances (no kill, no disarm, no more heartbeats) and its
+    recorder is never closed; the board runs on."""
+    url = SIM.format(seed=seed)
+    out = Outcome("host dies (virtual clock)", "host threads stop mid-run, recorder never closed")
+    port, sim, tap, link = _open(url)
+    t0 = link.now()
+    log = StateLog(link)
+    link.arm()
+    link.mode("hold")
+    link.stream(STREAM_HZ)
+    path = workdir / "host-dies.csv"
+    rec = Recorder(path, link, background=False, flush_s=1e-3).start()
+    _run_recorded(link, rec, 2.0, log)
+    died_s = sim.board.time_s
+    link.channel.close()  # the host is gone: nothing more is read or written
+    _finish(out, link, sim, tap, t0)
+    for _ in range(round(1.0 / sim.board.dt_s)):   # the board runs on, nobody reads
+        sim.advance()
+        sim.drain()
+    out.motor_end, out.fault_end = sim.board.motor, sim.board.fault
+    out.states_seen = log.seen
+    out.link_state = "host gone"
+    out.recording_rows, out.recording_ok, out.recording_gap_s = check_recording(
+        path, fault_board_s=died_s)
+    out.notes = f"recording complete flag: {load_recording(path).complete}"
+    link.close()
+    return out
+
+
+def heartbeat_every(period_s: float, *, seconds: float = 3.0, seed: int = 19) -> Outcome:
+    """The host's heartbeat comes every ``period_s`` (the board's watchdog is 0.5 s)."""
+    url = SIM.format(seed=seed)
+    out = Outcome(f"heartbeat every {period_s:g} s", f"host heartbeat period {period_s:g} s, "
+                  "board watchdog 0.5 s")
+    port, sim, tap, link = _open(url, heartbeat_s=period_s)
+    try:
+        t0 = link.now()
+        log = StateLog(link)
+        refusals = 0
+        for _ in range(20):    # arming needs a fresh heartbeat: it may be refused
+            try:
+                link.arm()
+                break
+            except BoardRefused as exc:   # interlock: heartbeat not fresh
+                if exc.code != "interlock":
+                    raise
+                refusals += 1
+                link.sleep(0.1)
+        link.mode("hold")
+        link.stream(100.0)
+        _run_on(link, sim, log, seconds)
+        trips = [e.get("cause") for e in link.events_since(0)[1] if e.kind == "trip"]
+        out.notes = f"arm refused {refusals}x; trips seen by host: {trips or 'none'}"
+        _finish(out, link, sim, tap, t0)
+        out.states_seen = log.seen
+        if sim.board.motor == "running":   # a healthy heartbeat: leave the rig safe
+            link.disarm()
+            out.motor_end, out.fault_end = sim.board.motor, sim.board.fault
+        return out
+    finally:
+        link.close()
+
+
+# --------------------------------------------------------------------------- real time
+
+
+_HOST = """
+import sys, time
+from bench.link import Link
+link = Link.open(sys.argv[1])
+link.arm()
+link.mode("hold")
+link.stream(100)
+print("running", flush=True)
+time.sleep(60)
+"""
+
+
+def host_killed_on_pty(*, timeout_s: float = 20.0) -> Outcome:
+    """A host process on a pty-served board (real time) is SIGKILLed while the motor runs;
+    the board's watchdog must turn the motor off."""
+    out = Outcome("host process SIGKILLed", "host on a pty killed (SIGKILL) while running; "
+                  "real time")
+    options = parse_sim_url("sim://wheel")
+    sim = SimLink(options)
+    ready, stop = threading.Event(), threading.Event()
+    where: dict = {}
+
+    def on_ready(path):
+        where["path"] = path
+        ready.set()
+
+    server = threading.Thread(target=serve_pty, args=(options,), daemon=True,
+                              kwargs=dict(on_ready=on_ready, stop=stop, link=sim))
+    server.start()
+    proc = None
+    try:
+        if not ready.wait(10):
+            raise AssertionError("pty server did not start")
+        proc = subprocess.Popen([sys.executable, "-c", _HOST, where["path"]], cwd=ROOT,
+                                stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True,
+                                env={**os.environ, "PYTHONPATH": str(ROOT)})
+        line = proc.stdout.readline()
+        if line.strip() != "running":
+            raise AssertionError(f"host did not start: {line!r} {proc.stderr.read()[-500:]}")
+        running_before = sim.board.motor
+        killed_at = time.monotonic()
+        proc.send_signal(signal.SIGKILL)
+        proc.wait(10)
+        deadline = killed_at + timeout_s
+        while sim.board.motor == "running" and time.monotonic() < deadline:
+            time.sleep(0.01)
+        out.sim_s = time.monotonic() - killed_at
+        out.motor_end, out.fault_end = sim.board.motor, sim.board.fault
+        out.link_state = "host gone"
+        out.notes = (f"motor {running_before} before the kill; {out.motor_end} "
+                     f"{out.sim_s:.2f} s after it")
+        return out
+    finally:
+        if proc is not None and proc.poll() is None:
+            proc.kill()
+            proc.wait(10)
+        stop.set()
+        server.join(10)
+
+
+# --------------------------------------------------------------------------- the whole set
+
+NOISE_RATES = (1e-4, 1e-3, 1e-2)
+
+
+def all_scenarios(workdir: Path | None = None, *, pty: bool = True):
+    """Every scenario in table order: (name, function taking no arguments)."""
+    work = Path(tempfile.mkdtemp(prefix="rigbench-faults-")) if workdir is None else workdir
+    items = []
+    for kind in ("corrupt", "drop"):
+        for rate in NOISE_RATES:
+            items.append((f"{kind} {rate:g}",
+                          lambda kind=kind, rate=rate: noisy_line(kind, rate, workdir=work)))
+    items += [
+        ("garbage", lambda: garbage_before_handshake(workdir=work)),
+        ("partial", lambda: partial_lines(workdir=work)),
+        ("stall", lambda: stall(workdir=work)),
+        ("reset", lambda: reset_mid_experiment(workdir=work)),
+        ("unplug experiment", lambda: unplug_mid_experiment(workdir=work)),
+        ("unplug recording", lambda: unplug_mid_recording(workdir=work)),
+        ("host dies", lambda: host_stops(workdir=work)),
+        ("heartbeat 0.4", lambda: heartbeat_every(0.4)),
+        ("heartbeat 0.7", lambda: heartbeat_every(0.7)),
+    ]
+    if pty and hasattr(os, "openpty"):
+        items.append(("host killed", host_killed_on_pty))
+    return items
