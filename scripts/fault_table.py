@@ -7,9 +7,10 @@ process SIGKILLed on a pty-served board. The table in docs/FAULTS.md is this scr
 output. The figures vary a little from run to run (thread timing moves where the line's
 random faults land); "accepted but wrong" must always be 0 and the motor always off.
 
-    python scripts/fault_table.py [--seconds 3] [--json] [--no-pty]
+    python scripts/fault_table.py [--seconds 3] [--noise-only] [--no-pty] [--json]
 
-``--seconds`` sets how long each noisy-line scenario records (the tests use 3 s).
+``--seconds`` sets how long each noisy-line scenario records (the tests use 3 s);
+``--noise-only`` runs just the noisy-line scenarios.
 """
 
 from __future__ import annotations
@@ -75,12 +76,17 @@ def main(argv=None) -> int:
                     help="recording time of each noisy-line scenario (s of board time)")
     ap.add_argument("--json", action="store_true", help="print one JSON object instead")
     ap.add_argument("--no-pty", action="store_true", help="skip the real-time pty scenario")
+    ap.add_argument("--noise-only", action="store_true",
+                    help="only the noisy-line scenarios (corrupt, drop)")
     args = ap.parse_args(argv)
     work = Path(tempfile.mkdtemp(prefix="rigbench-faults-"))
     outcomes = []
     t0 = time.perf_counter()
     for name, run in scenarios.all_scenarios(work, pty=not args.no_pty):
-        if name.startswith(("corrupt", "drop")):
+        noisy = name.startswith(("corrupt", "drop"))
+        if args.noise_only and not noisy:
+            continue
+        if noisy:
             kind, rate = name.split()
             outcomes.append(scenarios.noisy_line(kind, float(rate), seconds=args.seconds,
                                                  workdir=work))
