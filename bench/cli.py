@@ -49,7 +49,8 @@ EXIT_CODES: dict[int, str] = {
 }
 
 # Subcommand modules under bench/commands/, in the order --help shows them.
-COMMANDS = ["ports", "info", "watch", "kill", "sim", "push", "pull", "diff", "run", "report"]
+COMMANDS = ["ports", "info", "watch", "kill", "sim", "tune", "sweep", "push", "pull", "diff",
+            "run", "report"]
 
 DEFAULT_PORT = "sim://balance"
 

@@ -393,7 +393,9 @@ class Experiment:
 
     def __exit__(self, exc_type, exc, tb) -> bool:
         if exc_type is not None and not issubclass(exc_type, ExperimentStopped):
-            if self._stop is None:
+            if self._stop is None and issubclass(exc_type, KeyboardInterrupt):
+                self._stop = ("cancelled", "interrupted")
+            elif self._stop is None:
                 self._stop = ("error", f"{exc_type.__name__}: {exc}")
         if self._stop is None:
             self._stop = ("done", "")

@@ -152,12 +152,12 @@ def run_sweep(link, gain_sets, *, loop: str | None = None, amplitudes=(0.02, 0.0
     names = [s.name for s in sets]
     if len(set(names)) != len(names):
         sets = [GainSet(f"{i + 1}:{s.name}", s.values) for i, s in enumerate(sets)]
-    loop = _pick_loop(link, sets, loop)
-    ls = loop_signals(link, loop)
     touched = sorted({k for s in sets for k in s.values})
     unknown = [k for k in touched if k not in link.params]
     if unknown:
         raise ValueError(f"the board has no parameter(s) {', '.join(unknown)}")
+    loop = _pick_loop(link, sets, loop)
+    ls = loop_signals(link, loop)
     original = link.get(*touched)
     results = [SetResult(s.name, dict(s.values), {}) for s in sets]
     experiments, stop, detail = [], "done", ""

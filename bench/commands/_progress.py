@@ -1,0 +1,48 @@
+"""A one-line progress bar on stderr for long experiments (tune, sweep): redrawn in place on
+a terminal, silent otherwise (pipes and log files get the final result only).
+
+Must not import Textual or bench.ui.
+"""
+
+from __future__ import annotations
+
+import sys
+
+
+class ProgressBar:
+    """Callable for bench.experiments progress callbacks (runner.Progress)."""
+
+    def __init__(self, stream=None, *, width: int = 24, enabled: bool | None = None) -> None:
+        self.stream = stream or sys.stderr
+        self.width = width
+        isatty = getattr(self.stream, "isatty", lambda: False)
+        self.enabled = isatty() if enabled is None else enabled
+        self._shown = False
+
+    def __call__(self, p) -> None:
+        if not self.enabled:
+            return
+        frac = p.fraction if p.fraction is not None else 0.0
+        done = int(round(self.width * min(max(frac, 0.0), 1.0)))
+        bar = "#" * done + "." * (self.width - done)
+        parts = [f"{p.experiment}: {p.phase}", f"[{bar}]"]
+        if p.cycles_needed:
+            parts.append(f"{p.cycles}/{p.cycles_needed}")
+        est = p.estimate or {}
+        if est.get("period_s"):
+            parts.append(f"period {est['period_s']:.4g} s")
+        if est.get("ku"):
+            parts.append(f"Ku {est['ku']:.4g}")
+        if est.get("amplitude"):
+            parts.append(f"a {est['amplitude']:.3g}")
+        parts.append(f"{p.elapsed_s:6.1f} s")
+        line = "  ".join(parts)
+        self.stream.write("\r" + line[:118].ljust(118))
+        self.stream.flush()
+        self._shown = True
+
+    def close(self) -> None:
+        if self._shown:
+            self.stream.write("\n")
+            self.stream.flush()
+            self._shown = False
