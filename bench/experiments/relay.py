@@ -31,7 +31,10 @@ the analysis of bench.tuning.relay.
 
 The plant point is the ratio of the fundamentals of the logged measure and output over
 whole periods (exact for a linear plant); the third harmonic gives a second point, G(3jω),
-used by the model fit of stable loops (pointmodel.py). Gains are in the board's units:
+used by the model fit of stable loops (pointmodel.py). With ``drift_correction`` a slow
+linear drift through the cycle boundaries (an outer loop still settling) is removed from
+both signals before the ratio (pointmodel.harmonic_points); the analysis' point is
+replaced by this one. Gains are in the board's units:
 point gain in (measure unit)/(output unit), ku in (output unit)/(measure unit); times in s.
 For integral relays Ku from 4h/(πa) is not a controller gain, so ``ku`` is None.
 
@@ -41,12 +44,12 @@ Must not import: textual, bench.ui, bench.commands, control.
 from __future__ import annotations
 
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from bench.tuning.point import FrequencyPoint
-from bench.tuning.relay import RelayResult, RelayTracker
+from bench.tuning.relay import RelayResult, RelayTracker, rising_switches
 
 from .conventions import BoardView, LoopSignals, board_view, loop_signals
 from .pointmodel import harmonic_points
@@ -155,7 +158,8 @@ def run_relay(link, loop: str, *, amplitude: float | None = None,
               start_fraction: float = 0.02, max_oscillation_fraction: float = 0.3,
               bound_fraction: float = 0.5, tol: float = 0.02, discard_cycles: int = 1,
               excite: bool = True, excite_fraction: float = 0.05,
-              regular_cycles: int = 3, regular_tol: float = 0.25) -> RelayRun:
+              regular_cycles: int = 3, regular_tol: float = 0.25,
+              drift_correction: bool = True) -> RelayRun:
     """Relay test on ``loop`` (see the module docstring). Raises ArmRefused if the board's
     interlock refuses to arm, ValueError for a loop or settings the board cannot take."""
     ls = loop_signals(link, loop)
@@ -191,9 +195,14 @@ def run_relay(link, loop: str, *, amplitude: float | None = None,
     if an is not None and an.point is not None and an.t_start_s is not None:
         s = state["settings"]
         r, u, y = _columns(ls, res.signals, res.values, s.centre, s.bias)
+        sl = res.window(an.t_start_s, an.t_end_s)
+        bounds = res.t_s[sl][rising_switches(r[sl])]
+        bounds = np.r_[an.t_start_s, bounds[bounds > an.t_start_s + 1e-9]]
         try:
             points = harmonic_points(res.t_s, u, y, t_start_s=an.t_start_s,
-                                     t_end_s=an.t_end_s, cycles=an.cycles)
+                                     t_end_s=an.t_end_s, cycles=an.cycles,
+                                     boundaries_s=bounds if drift_correction else None)
+            an = replace(an, point=points[0])
         except ValueError:
             points = [an.point]
     t_rel = state["t_relay"]
