@@ -34,7 +34,7 @@ from bench.atomic import write_text_atomic
 from bench.recording import RecordingError, load_recording
 from bench.report_plots import (
     Plot, PlotsUnavailable, need_matplotlib, plot_margins, plot_model, plot_relay, plot_signals,
-    plot_sweeps,
+    plot_sweeps, unit_text,
 )
 from bench.sequence_results import SUMMARY_FORMAT, format_number, summary_markdown
 
@@ -162,12 +162,13 @@ def _relay_plots(step: dict, folder: Path, out: Path) -> list[Plot]:
     r = relay[sel] if relay is not None else np.sign(col[loop["output"]][sel] - s["centre"])
     sw = t[rising_switches(r)] - t0
     point = (data.get("points") or [None])[0]
-    text = (f"period {an['period_s']:.4g} s, oscillation {an['amplitude']:.3g} "
-            f"{loop['measure_unit']}, {an['cycles']} cycles used")
+    mu, ou = loop["measure_unit"], loop["output_unit"]
+    text = (f"period {an['period_s']:.4g} s, oscillation {an['amplitude']:.3g}"
+            f"{unit_text(mu)}, {an['cycles']} cycles used")
     if point:
-        text += (f"\nG(jω) at ω = {point['omega_rad_s']:.4g} rad/s: gain {point['gain']:.4g} "
-                 f"{loop['measure_unit']}/{loop['output_unit']}, phase "
-                 f"{point['phase_deg']:.1f}°")
+        per = "" if mu == ou == "1" else f" {mu} per {ou}"
+        text += (f"\nG(jω) at ω = {point['omega_rad_s']:.4g} rad/s: gain {point['gain']:.4g}"
+                 f"{per}, phase {point['phase_deg']:.1f}°")
     sp = loop.get("setpoint")
     stem = _stem(step["recordings"][0])
     plots.append(plot_relay(
@@ -201,7 +202,7 @@ def _relay_plots(step: dict, folder: Path, out: Path) -> list[Plot]:
     omega = np.geomspace(min(w_pts) / 50, w_hi, 600)
     plots.append(plot_model(
         out / f"{stem}-model.png", source=rec.path.name, omega=omega,
-        response=plant.response(omega), units=f"{loop['measure_unit']} per {loop['output_unit']}",
+        response=plant.response(omega), units="1" if mu == ou == "1" else f"{mu} per {ou}",
         title=f"Step {step['index']}: identified plant of {loop['name']} ({model['kind']})",
         points={"measured in the run": pts, "recomputed from the recording": again}))
     loops = []

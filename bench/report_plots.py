@@ -21,7 +21,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["Plot", "PlotsUnavailable", "need_matplotlib", "plot_signals", "plot_relay", "plot_model",
+__all__ = ["Plot", "PlotsUnavailable", "need_matplotlib", "unit_text", "plot_signals", "plot_relay", "plot_model",
            "plot_margins", "plot_sweeps"]
 
 _STYLE = {
@@ -59,6 +59,11 @@ def _mpl():
 
     style = dict(_STYLE, **{"axes.prop_cycle": cycler(color=_COLOURS)})
     return plt, style
+
+
+def unit_text(unit: str, *, lead: str = " ") -> str:
+    """A unit after a number: nothing for the dimensionless ``1``."""
+    return "" if unit in ("", "1") else f"{lead}{unit}"
 
 
 def need_matplotlib() -> None:
@@ -184,7 +189,7 @@ def plot_model(path: Path, *, title: str, source: str | None, omega, response, p
             a2.semilogx(w, p_deg, m, color=_COLOURS[1 + k], markersize=6,
                         fillstyle="none" if k else "full", label=label)
             series[label] = (w, g)
-        a1.set_ylabel(f"|G| [dB re 1 {units}]")
+        a1.set_ylabel("|G| [dB]" if units in ("", "1") else f"|G| [dB re 1 {units}]")
         a2.set_ylabel("phase [deg]")
         a2.set_xlabel("angular frequency ω [rad/s]")
         a1.legend(loc="best")
@@ -247,7 +252,8 @@ def plot_sweeps(path: Path, *, title: str, groups: list, unit: str, amplitude_un
     whiskers from min to max, each push as a dot. Panels: peak |error|, IAE, settling
     time. ``groups``: (label, pushes) with pushes as in the summary."""
     plt, style = _mpl()
-    panels = (("peak", f"peak |error| [{unit}]"), ("iae", f"IAE [{unit}·s]"),
+    panels = (("peak", f"peak |error| [{unit}]"),
+              ("iae", f"IAE [{'s' if unit in ('', '1') else unit + '·s'}]"),
               ("settling_s", "settling time [s]"))
     amps = sorted({p["amplitude"] for _, pushes in groups for p in pushes},
                   key=lambda a: (abs(a), a))
@@ -267,7 +273,8 @@ def plot_sweeps(path: Path, *, title: str, groups: list, unit: str, amplitude_un
                     if len(vals):
                         m = float(vals.mean())
                         ax.bar(xi, m, width * 0.9, color=c, alpha=0.55,
-                               label=f"push {a:g} {amplitude_unit}" if xi == xs[0] else None)
+                               label=f"push {a:g}{unit_text(amplitude_unit)}" if xi == xs[0]
+                               else None)
                         ax.errorbar(xi, m, yerr=[[m - vals.min()], [vals.max() - m]],
                                     fmt="none", ecolor="black", capsize=3, linewidth=0.9)
                         ax.plot(np.full(len(vals), xi), vals, ".", color=c, markersize=5)
@@ -277,6 +284,7 @@ def plot_sweeps(path: Path, *, title: str, groups: list, unit: str, amplitude_un
                                     textcoords="offset points", ha="center", va="bottom",
                                     fontsize=7, color="#b22222")
             ax.set_xticks(x, [g[0] for g in groups])
+            ax.set_xlim(-0.5, len(groups) - 0.5)
             ax.set_ylabel(label)
             ax.set_ylim(bottom=0)
         axes[0].legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), ncol=2, frameon=False)

@@ -160,35 +160,43 @@ class StepRunner:
                           results_dir=self.folder if results else None)
 
     def _do_wait(self, step, out, stop) -> None:
-        i = self.current
-        exp = self._experiment(i, step, stop, name=f"wait {step.index}")
+        exp = self._experiment(self.current, step, stop, name=f"wait {step.index}")
         settled = None
         with exp:
             if step.seconds is not None:
-                exp.wait(step.seconds)
+                exp.wait(step.seconds, on_block=_ticker(exp, "waiting", step.seconds))
             else:
                 tracker = settled_tracker(exp.signals, step.settled)
-                settled = exp.wait(step.timeout_s, until=tracker.done, on_block=tracker.feed)
+                tick = _ticker(exp, "waiting to settle", step.timeout_s)
+
+                def feed(t, v):
+                    tracker.feed(t, v)
+                    tick(t, v)
+                settled = exp.wait(step.timeout_s, until=tracker.done, on_block=feed)
         self._ended(exp.result, stop, step)
         if step.settled is not None and not settled:
             raise StepAbort("timeout", f"|{step.settled.signal}| did not stay below "
-                                    f"{step.settled.below:g} for {step.settled.for_s:g} s within "
-                                    f"{step.timeout_s:g} s")
+                                       f"{step.settled.below:g} for {step.settled.for_s:g} s "
+                                       f"within {step.timeout_s:g} s")
         out.detail = f"{exp.result.ended_s - exp.result.started_s:.3g} s"
 
     def _do_record(self, step, out, stop) -> None:
-        i = self.current
         path = self.folder / f"{step.name}.csv"
         if path.resolve().parent != self.folder.resolve():
             raise StepAbort("error", f"recording {step.name!r} would leave the results folder")
-        exp = self._experiment(i, step, stop, name=f"record {step.name}")
+        exp = self._experiment(self.current, step, stop, name=f"record {step.name}")
         rec = None
         with exp:
             rec = Recorder(path, self.link, background=False,
                            notes=[f"sequence {self.seq.name!r}, {step.label()}"]).start()
             out.recordings.append(path.name)
+            tick = _ticker(exp, f"recording {path.name}", step.seconds)
+
+            def feed(t, v):
+                rec.poll()
+                tick(t, v)
             try:
-                exp.wait(step.seconds, on_block=lambda t, v: rec.poll())
+                exp.wait(step.seconds, on_block=feed)
             finally:
                 rec.close()
         out.detail = f"{rec.rows} rows to {path.name}"
@@ -210,8 +218,9 @@ class StepRunner:
         metrics, data = relay_outcome(run)
         out.metrics, out.data = metrics, data
         if run.analysis is not None and run.analysis.period_s is not None:
+            unit = "" if ls.measure_unit == "1" else f" {ls.measure_unit}"
             out.detail = (f"period {run.analysis.period_s:.4g} s, oscillation "
-                          f"{run.analysis.amplitude:.4g} {ls.measure_unit}, "
+                          f"{run.analysis.amplitude:.4g}{unit}, "
                           f"{run.analysis.cycles} cycles")
         res = run.experiment
         if res is not None and res.recording is not None:
@@ -248,8 +257,9 @@ class StepRunner:
             res.detail.startswith(f"|{ls.measure}|") or "limit" in res.detail)
         out.metrics = sweep_metrics(pushes, extra_fell=1 if fell_now else 0)
         m = out.metrics
-        out.detail = (f"{len(pushes)} pushes, peak |error| up to {_g(m['sweep.peak_max'])} "
-                      f"{ls.measure_unit}, mean IAE {_g(m['sweep.iae_mean'])}, fell "
+        unit = "" if ls.measure_unit == "1" else f" {ls.measure_unit}"
+        out.detail = (f"{len(pushes)} pushes, peak |error| up to {_g(m['sweep.peak_max'])}"
+                      f"{unit}, mean IAE {_g(m['sweep.iae_mean'])}, fell "
                       f"{m['sweep.fell']}")
         out.data = {"loop": ls.name, "measure": ls.measure, "measure_unit": ls.measure_unit,
                     "amplitude_unit": {"body": "N.m", "setpoint": ls.measure_unit,
@@ -277,6 +287,13 @@ class StepRunner:
         shown = "-" if measured is None else f"{measured:.5g}"
         out.detail = why or f"{step.metric} = {shown} ({step.op} {step.value:g} " \
                             f"{'holds' if passed else 'does NOT hold'})"
+
+
+def _ticker(exp, phase: str, budget_s: float):
+    """An ``on_block`` that reports the experiment's progress (throttled by the runner)."""
+    def tick(t, v) -> None:
+        exp.report(phase, budget_s=budget_s, fraction=min(1.0, exp.elapsed_s() / budget_s))
+    return tick
 
 
 def _g(value) -> str:

@@ -184,7 +184,7 @@ class _Run(StepRunner):
                 out.outcome = "ok"
         except StepAbort as exc:
             out.outcome = "failed"
-            out.detail = out.detail or exc.detail
+            out.detail = f"{exc.detail} ({out.detail})" if out.detail else exc.detail
             self.result.stopping_step = step.index
             raise
         finally:
