@@ -20,6 +20,8 @@ def add_port_option(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--port", default=DEFAULT_PORT, metavar="URL",
                         help="device path (/dev/ttyACM0, COM3), pyserial URL or sim://... "
                              f"(default {DEFAULT_PORT}, the simulated balance rig)")
+    parser.add_argument("--baud", type=int, default=115200, metavar="N",
+                        help="baud rate of a UART port (default 115200; USB CDC ignores it)")
 
 
 def add_json_option(parser: argparse.ArgumentParser) -> None:
@@ -29,7 +31,7 @@ def add_json_option(parser: argparse.ArgumentParser) -> None:
 
 def open_link(args, **kwargs) -> Link:
     """Open ``args.port`` and handshake (LinkError on failure: exit code 3)."""
-    return Link.open(args.port, **kwargs)
+    return Link.open(args.port, baudrate=getattr(args, "baud", 115200), **kwargs)
 
 
 def plain(obj):

@@ -30,7 +30,9 @@ from bench.wire.messages import (
 )
 
 from .channel import Channel
-from .errors import BoardRefused, IncompatibleBoard, LinkError, LinkLost, SaveMismatch, open_error
+from .errors import (
+    BoardRefused, IncompatibleBoard, LinkError, LinkLost, LinkTimeout, SaveMismatch, open_error,
+)
 from .records import BoardStatus, LinkEvent, LinkHealth, RawLine, SaveResult, raw_lines
 from .ring import TelemetryBlock
 
@@ -127,6 +129,12 @@ class Link:
         tries = max(1, int(round(hello_timeout_s / ch.reply_timeout_s)))
         try:
             reply = ch.request(Hello, retries=tries - 1)
+        except LinkTimeout:
+            baud = getattr(self.port, "baudrate", None)
+            at = f" at {baud} baud" if baud and not self.url.startswith("sim://") else ""
+            raise LinkTimeout(f"no answer from {self.url} to hello within {hello_timeout_s:g} s:"
+                              f" is a board speaking this protocol on the port{at}, powered,"
+                              " and out of its bootloader?") from None
         except BoardRefused as exc:
             if exc.code == "version":
                 raise IncompatibleBoard(

@@ -246,3 +246,13 @@ def test_raw_tap_shows_both_directions_and_the_kill_byte(link):
     assert any(d == "<" and t.startswith("@ok ") and "tilt_kp=20" in t for d, t in texts)
     assert (">", "\\x18\\x18\\x18") in texts
     assert str(lines[0]).split()[1] in "<>"
+
+
+def test_a_silent_port_gives_a_hello_timeout_with_a_hint(thread_errors):
+    board = FakeBoard()
+    board.mute["hello"] = 100  # nothing answers
+    with pytest.raises(LinkTimeout, match="no answer from fake://quiet to hello") as info:
+        Link.attach(FakePort(board), url="fake://quiet", handshake_timeout_s=1.0)
+    assert "\n" not in str(info.value)
+    hellos = [m for _, m in board.received if type(m).__name__ == "Hello"]
+    assert len(hellos) == 2 and len({m.seq for m in hellos}) == 1  # resent, same seq
