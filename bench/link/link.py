@@ -9,7 +9,10 @@ handshakes again from its own resync thread (never from the reader, which must k
 reading for the replies to arrive), re-applies the last stream rate, and counts it.
 
 Every time is link-clock seconds (the port's own clock for a simulated board, else
-monotonic time). Values are the board's declared units; convert with bench.units.
+monotonic time). Wait with ``link.sleep``/``link.wait_until`` (or the port clock's own
+``sleep``), never ``time.sleep``: with a virtual clock, simulated time moves only while
+someone waits on the link (waits.py), so a run driven from one thread is repeatable.
+Values are the board's declared units; convert with bench.units.
 
 Must not import bench.rig, bench.ui or domain modules.
 """
@@ -54,13 +57,14 @@ class Link:
     def __init__(self, port, *, url: str | None = None, reply_timeout_s: float = 0.5,
                  heartbeat_s: float = 0.1, ring_rows: int = 65536, retries: int = 2,
                  handshake_timeout_s: float = 3.0, stale_s: float = 1.0,
-                 read_chunk: int | None = None) -> None:
+                 read_chunk: int | None = None, virtual_pace: str = "demand") -> None:
         self.url = url or str(getattr(port, "port", None) or "port")
         if read_chunk is None and self.url.startswith(_FIXED_CHUNK_SCHEMES):
             read_chunk = 4096
         self.channel = Channel(port, url=self.url, reply_timeout_s=reply_timeout_s,
                                heartbeat_s=heartbeat_s, retries=retries, ring_rows=ring_rows,
-                               stale_s=stale_s, read_chunk=read_chunk)
+                               stale_s=stale_s, read_chunk=read_chunk,
+                               virtual_pace=virtual_pace)
         self.port = port
         self.clock = self.channel.clock
         self.handshake_timeout_s = handshake_timeout_s
