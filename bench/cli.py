@@ -2,7 +2,8 @@
 
 Each subcommand lives in its own module ``bench/commands/<name>.py`` with two functions,
 ``add_parser(subparsers) -> argparse.ArgumentParser`` and ``run(args) -> int``; the names in
-``COMMANDS`` below are the ones registered, in the order ``--help`` lists them. A command
+``COMMANDS`` below are the ones registered, in the order ``--help`` lists them, and plain
+``rigbench`` runs ``DEFAULT_COMMAND`` (the terminal UI). A command
 returns an exit code or raises: ``CommandError(code, message)`` for an expected failure,
 ``LinkError``/``BoardRefused`` from the link; ``main`` turns these into one line on stderr
 and the exit code. A traceback is printed only with ``--debug``.
@@ -49,8 +50,9 @@ EXIT_CODES: dict[int, str] = {
 }
 
 # Subcommand modules under bench/commands/, in the order --help shows them.
-COMMANDS = ["ports", "info", "watch", "kill", "sim", "tune", "sweep", "push", "pull", "diff",
-            "run", "report"]
+COMMANDS = ["ui", "ports", "info", "watch", "kill", "sim", "tune", "sweep", "push", "pull",
+            "diff", "run", "report"]
+DEFAULT_COMMAND = "ui"  # what plain ``rigbench`` runs
 
 DEFAULT_PORT = "sim://balance"
 
@@ -126,6 +128,11 @@ def main(argv: list[str] | None = None) -> int:
         return _fail(EXIT_USAGE, str(exc), False)
     except SystemExit as exc:  # --help, --version
         return exc.code if isinstance(exc.code, int) else EXIT_OK
+    if getattr(args, "_run", None) is None and DEFAULT_COMMAND in COMMANDS:
+        try:
+            args = parser.parse_args(argv + [DEFAULT_COMMAND])
+        except UsageError as exc:
+            return _fail(EXIT_USAGE, str(exc), False)
     if getattr(args, "_run", None) is None:
         return _fail(EXIT_USAGE, f"name a command: {', '.join(COMMANDS)} (see rigbench --help)",
                      False)

@@ -60,10 +60,21 @@ def test_missing_port_in_a_real_process_has_no_traceback():
 
 
 def test_usage_errors_exit_2_with_one_line(capsys):
-    for argv in (["info", "--bogus"], [], ["watch", "--seconds", "-1", "--port", VSIM]):
+    for argv in (["info", "--bogus"], ["nosuchcommand"],
+                 ["watch", "--seconds", "-1", "--port", VSIM]):
         code, _, err = run(argv, capsys)
         assert code == cli.EXIT_USAGE, argv
         assert err.count("\n") == 1, (argv, err)
+
+
+def test_plain_rigbench_runs_the_default_command(capsys, monkeypatch):
+    import importlib
+
+    module = importlib.import_module(f"bench.commands.{cli.DEFAULT_COMMAND}")
+    seen = []
+    monkeypatch.setattr(module, "run", lambda args: seen.append(args.port) or 0)
+    code, _, err = run([], capsys)
+    assert code == 0 and seen == [cli.DEFAULT_PORT], err
 
 
 def test_board_refusal_exits_4(capsys, monkeypatch):
