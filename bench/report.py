@@ -78,7 +78,8 @@ def make_report(path: str | Path, *, out: str | Path | None = None) -> Report:
 
 def _read_summary(folder: Path) -> dict:
     try:
-        doc = yaml.safe_load((folder / "summary.yaml").read_text(encoding="utf-8"))
+        doc = yaml.load((folder / "summary.yaml").read_text(encoding="utf-8"),
+                        Loader=getattr(yaml, "CSafeLoader", yaml.SafeLoader))
     except (OSError, yaml.YAMLError) as exc:
         raise ReportError(f"{folder / 'summary.yaml'}: cannot read: {exc}") from None
     if not isinstance(doc, dict) or doc.get("format") != SUMMARY_FORMAT:
@@ -125,13 +126,12 @@ def _marks(rec, t0: float) -> list:
 
 
 def _signal_columns(rec) -> list:
-    cols = []
-    for i, (name, unit) in enumerate(zip(rec.signals, rec.units)):
-        y = rec.values[:, i]
-        if name == "relay" or (len(y) and np.all(y == y[0]) and cols):
-            continue  # the relay state has its own figure; flat lines say nothing
-        cols.append((name, unit, y))
-    return cols[:MAX_PANELS]
+    """The signals worth a panel: not the relay state (it has its own figure), not a flat
+    line (unless every signal is flat), at most MAX_PANELS."""
+    cols = [(n, u, rec.values[:, i]) for i, (n, u) in enumerate(zip(rec.signals, rec.units))
+            if n != "relay"]
+    moving = [c for c in cols if len(c[2]) and np.ptp(c[2]) > 0]
+    return (moving or cols[:1])[:MAX_PANELS]
 
 
 def _signals_plot(rec, out: Path, caption: str) -> Plot:

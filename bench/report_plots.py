@@ -72,7 +72,7 @@ def need_matplotlib() -> None:
 
 
 def _save(fig, plt, path: Path) -> None:
-    fig.savefig(path, bbox_inches="tight")
+    fig.savefig(path)  # constrained layout already keeps every label inside
     plt.close(fig)
 
 
@@ -143,8 +143,8 @@ def plot_relay(path: Path, *, title: str, source: str, t_s, measure, output, rel
         a2.legend(loc="lower left", bbox_to_anchor=(0.0, 1.0), frameon=False)
         a2.set_xlabel("time since the recording started [s]")
         fig.suptitle(title)
-        fig.text(0.5, -0.01, text, ha="center", va="top", fontsize=9,
-                 bbox={"boxstyle": "round", "fc": "white", "ec": "#999999"})
+        fig.supxlabel(text, fontsize=9,
+                      bbox={"boxstyle": "round", "fc": "white", "ec": "#999999"})
         fig.align_ylabels((a1, a2))
         _save(fig, plt, path)
     return Plot(path, title, "relay", source, series)
@@ -169,7 +169,8 @@ def plot_model(path: Path, *, title: str, source: str | None, omega, response, p
         want = math.degrees(np.angle(g0))
         ph += 360.0 * round((want - ph0) / 360.0)
     with plt.rc_context(style):
-        fig, (a1, a2) = plt.subplots(2, 1, figsize=(8.5, 6.0), sharex=True)
+        fig, (a1, a2) = plt.subplots(2, 1, figsize=(8.5, 6.0), sharex=True,
+                                     layout="constrained")
         a1.semilogx(omega, 20 * np.log10(np.abs(response)), color=_COLOURS[0],
                     label="identified model")
         a2.semilogx(omega, ph, color=_COLOURS[0], label="identified model")
@@ -205,7 +206,8 @@ def plot_margins(path: Path, *, title: str, omega, loops: list) -> Plot:
     plt, style = _mpl()
     omega = np.asarray(omega)
     with plt.rc_context(style):
-        fig, (a1, a2) = plt.subplots(2, 1, figsize=(9.0, 6.6), sharex=True)
+        fig, (a1, a2) = plt.subplots(2, 1, figsize=(9.0, 6.6), sharex=True,
+                                     layout="constrained")
         a1.axhline(0.0, color="black", linewidth=0.8)
         series = {}
         for k, (label, h, m) in enumerate(loops):
