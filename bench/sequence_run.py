@@ -39,6 +39,7 @@ from bench.experiments.runner import ArmRefused
 from bench.link import BoardRefused, LinkError, LinkLost
 from bench.profile_push import PushRefused
 from bench.recording import RecordingError
+from bench.sequence_check import check_sequence_against_board
 from bench.sequence_exec import (
     StepAbort, StepRunner, StepStop, experiment_guards, motor_state,
 )
@@ -142,13 +143,18 @@ class _Run(StepRunner):
         return self.result
 
     def _preflight(self) -> None:
-        seq, info = self.seq, self.link.info
-        if seq.rig and info.rig != seq.rig:
-            raise StepAbort("refused", f"the sequence is written for a {seq.rig!r} rig; the "
-                                    f"board at {self.link.url} is a {info.rig!r} rig")
+        """Nothing is sent when the sequence does not fit the board (bench.sequence_check)."""
+        seq, link = self.seq, self.link
+        problems = check_sequence_against_board(seq, link.params, link.loops, link.signals,
+                                                info=link.info)
+        errors = [p for p in problems if p.severity == "error"]
+        if errors:
+            more = f" (and {len(errors) - 1} more)" if len(errors) > 1 else ""
+            raise StepAbort("refused", f"does not fit the board at {link.url}: "
+                                       f"{errors[0].format(str(seq.path))}{more}")
         for s in self.steps:
             try:
-                experiment_guards(self.link, s.guards)
+                experiment_guards(link, s.guards)
             except ValueError as exc:
                 raise StepAbort("refused", f"{s.label()} (line {s.line}): {exc}") from None
 

@@ -234,3 +234,15 @@ def test_cancel_from_the_progress_callback_stops_in_the_callers_thread(tmp_path)
     assert result.results_dir.name.startswith("test-")
     assert not (result.results_dir / "late.csv").exists()
     assert ("1", "start") in seen and seen[-1][1] == "end"
+
+
+def test_a_sequence_that_does_not_fit_the_board_sends_nothing(capsys, tmp_path):
+    steps = "  - arm\n  - hold\n  - relay: {loop: pitch, amplitude: 1, hysteresis: 0.1, " \
+            "bound: 8, max_s: 5}\n  - disarm\n"
+    path = _write(tmp_path, _seq(steps))
+    code, out, _ = _run_cli(capsys, path, "--out", tmp_path / "res", "--no-plots")
+    s = _summary(tmp_path / "res")
+    assert code == 4 and s["stopped_by"] == "refused" and s["stopping_step"] is None
+    assert f"{path}:9: steps[3].relay.loop" in s["detail"]
+    assert [st["outcome"] for st in s["steps"]] == ["not run"] * 4
+    assert s["motor_after"] == "off"
