@@ -30,7 +30,9 @@ Must not import textual, bench.ui, bench.commands or control.
 
 from __future__ import annotations
 
+import math
 import re
+import time
 from dataclasses import dataclass
 from datetime import datetime
 from pathlib import Path
@@ -123,6 +125,7 @@ class _Run(StepRunner):
             [StepOutcome(s.index, s.kind, s.line, s.label(), step_settings(s, seq.project),
                          dict(s.bindings)) for s in steps], seq.on_abort)
         self.t0 = link.now()
+        self._written = -math.inf
 
     # ------------------------------------------------------------------ the run
 
@@ -197,7 +200,7 @@ class _Run(StepRunner):
             if out.ended_s is None:
                 out.ended_s = _now_or_none(link)
             self.done = i + 1
-            self._write()
+            self._write(force=out.outcome == "failed")
             self._report(i, step, out.outcome, f"{step.label()}: {out.outcome}"
                          + (f": {out.detail}" if out.detail else ""))
 
@@ -242,7 +245,9 @@ class _Run(StepRunner):
             except LinkError:
                 pass  # the link is gone: the board's watchdog turns the motor off
             motor = motor_state(link)
-        r.motor_after = motor or "unknown (no reply; the board's watchdog stops the motor)"
+        if link.state == "lost" or motor is None:
+            motor = "unknown (link lost; the board's watchdog turns the motor off)"
+        r.motor_after = motor
         r.finished = _wall()
         try:
             h = link.health()
@@ -251,7 +256,7 @@ class _Run(StepRunner):
                              "timeouts": h.timeouts}
         except LinkError:
             pass
-        self._write()
+        self._write(force=True)
         self._report(max(self.done - 1, 0), None, "end", _end_text(r))
 
     def _count_trips_after_stop(self) -> None:
@@ -265,8 +270,12 @@ class _Run(StepRunner):
                 if ev.get("cause") == "tilt_limit":
                     self.result.fell += 1
 
-    def _write(self) -> None:
-        write_summary(self.folder, summary_dict(self.result))
+    def _write(self, *, force: bool = False, every_s: float = 1.0) -> None:
+        """Rewrite the summary files (at most every ``every_s`` of wall time unless forced:
+        a long sequence would otherwise spend its time rewriting them)."""
+        if force or time.monotonic() - self._written >= every_s:
+            write_summary(self.folder, summary_dict(self.result))
+            self._written = time.monotonic()
 
     def _report(self, i: int, step, state: str, text: str, experiment=None) -> None:
         if self.progress_cb is None:

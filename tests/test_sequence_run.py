@@ -246,3 +246,15 @@ def test_a_sequence_that_does_not_fit_the_board_sends_nothing(capsys, tmp_path):
     assert f"{path}:9: steps[3].relay.loop" in s["detail"]
     assert [st["outcome"] for st in s["steps"]] == ["not run"] * 4
     assert s["motor_after"] == "off"
+
+
+def test_a_lost_link_stops_the_run_with_exit_3(capsys, tmp_path):
+    # the simulated board's USB goes away 2 s in: the host cannot switch the motor off any
+    # more, the board's watchdog does (PROTOCOL.md §7.2); the summary says so
+    text = _seq("  - arm\n  - hold\n  - wait: 5\n  - disarm\n").replace(
+        SIM, "sim://balance?clock=virtual&unplug=2")
+    path = _write(tmp_path, text)
+    code, _, err = _run_cli(capsys, path, "--out", tmp_path / "res", "--no-plots")
+    s = _summary(tmp_path / "res")
+    assert code == 3 and s["stopped_by"] == "lost" and s["stopping_step"] == "3"
+    assert s["motor_after"].startswith("unknown (link lost")
