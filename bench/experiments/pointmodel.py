@@ -162,8 +162,8 @@ def fit_process_model(points, *, kind: str = "lag", static_gain: float | None = 
     """Fit a :class:`ProcessModel` of ``kind`` to measured points (see module docstring).
 
     The gain's sign is taken from the fundamental: a loop under a relay oscillates where
-    the loop phase is −180°, so a point nearer 0° than −180° means the plant's gain is
-    negative. With ``static_gain`` (stable loops) K is fixed to it. Of the ``orders``
+    the plant's phase is between −180° (no hysteresis) and −90° (a hysteresis as wide as
+    the oscillation); a point 180° away from there means the plant's gain is negative. With ``static_gain`` (stable loops) K is fixed to it. Of the ``orders``
     tried, the lowest whose cost is within ``order_tie`` times the best one is kept.
     """
     if kind not in MODEL_KINDS:
@@ -173,7 +173,9 @@ def fit_process_model(points, *, kind: str = "lag", static_gain: float | None = 
         raise ValueError("need at least one point")
     w = np.array([p.omega_rad_s for p in pts])
     logs = np.array([math.log(p.gain) + 1j * math.radians(p.phase_deg) for p in pts])
-    sign = 1.0 if math.cos(math.radians(pts[0].phase_deg)) <= 0 else -1.0
+    # a relay cycle of a positive-gain plant sits between −180° (no hysteresis) and −90°
+    # (a wide band); a negative-gain plant's 180° away: split halfway, at −45° and 135°
+    sign = 1.0 if abs((pts[0].phase_deg + 135.0 + 180.0) % 360.0 - 180.0) < 90.0 else -1.0
     if sign < 0:
         logs = logs + 1j * math.pi
     fixed_k = None

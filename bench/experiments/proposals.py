@@ -189,7 +189,7 @@ class _Judge:
 
 def propose(run: RelayRun, *, margin_deg: float = 45.0, ms_max: float = 2.0,
             band_noise: float = 3.0, fit_cutoff_hz: float = 8.0,
-            fit_ok: float = 0.05) -> ProposalSet:
+            fit_ok: float = 0.05, df_tol_deg: float = 20.0) -> ProposalSet:
     """Proposals for the loop of a converged relay run (see the module docstring)."""
     if not run.converged or run.point is None:
         raise ValueError(f"no proposals: the relay test did not converge ({run.reason})")
@@ -206,17 +206,32 @@ def propose(run: RelayRun, *, margin_deg: float = 45.0, ms_max: float = 2.0,
     point = run.point
     off = abs(((point.phase_deg + (180.0 if direct else 0.0)) + 180.0 + 180.0) % 360.0 - 180.0)
     mu = _model_ultimate(plant, point.omega_rad_s, direct) if model.fit_rms <= fit_ok else None
+    ult = None
     if mu is not None:
         ult = {"ku": mu[0], "tu_s": mu[1],
                "source": f"fitted model's −180° crossing (measured point {off:.1f}° away)"}
     elif off <= 3.0:
         ult = {"ku": 1.0 / point.gain, "tu_s": point.period_s,
                "source": f"measured point ({off:.1f}° from −180°)"}
-    else:
+    elif off <= df_tol_deg and run.ku is not None:
         ult = {"ku": run.ku, "tu_s": run.tu_s,
-               "source": "describing function (METHODS.md §3: −2…−11% on Ku)"}
-    raw = propose_from_ultimate(ult["ku"], ult["tu_s"], static_gain=static, plant=ls.plant,
-                                margin_deg=margin_deg, point=point, direct_acting=direct)
+               "source": f"describing function, cycle {off:.1f}° from −180° (METHODS.md §3: "
+                         "−4…−18% on Ku with hysteresis)"}
+    if ult is not None:
+        raw = propose_from_ultimate(ult["ku"], ult["tu_s"], static_gain=static,
+                                    plant=ls.plant, margin_deg=margin_deg, point=point,
+                                    direct_acting=direct)
+    else:  # the rules say why they do not apply; the one-point designs still do
+        ult = {"ku": None, "tu_s": None,
+               "source": f"none: the cycle sat {off:.1f}° from −180° (a wide hysteresis) and "
+                         "the model has no −180° crossing within 20× of it"}
+        raw = propose_from_point(point, static_gain=static, plant=ls.plant,
+                                 margin_deg=margin_deg, direct_acting=direct)
+        notes.append("the ultimate-point rules need a cycle near −180°: run with a smaller "
+                     "--hysteresis (or a longer dead time in the loop) to use them")
+    if model.fit_rms > fit_ok:
+        notes.append(f"the model fits the measured points poorly ({100 * model.fit_rms:.0f}% "
+                     "rms): predicted margins are rough")
     d_amp = run.settings.amplitude if run.settings else 1.0
     dist = {"kind": "step", "amplitude": d_amp, "width_s": 0.0, "start_s": 0.0,
             "t_end_s": 30.0 * (an.period_s or 1.0), "at": "input"}

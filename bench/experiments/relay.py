@@ -18,7 +18,12 @@ the analysis of bench.tuning.relay.
    relay chatter while its first steps are in the dead time), and grow until the
    oscillation's half peak-to-peak reaches
    ``target_snr`` × noise RMS (METHODS: at least 10×), never beyond the output's limit or
-   an oscillation of ``max_oscillation_fraction`` of the measure's guard.
+   an oscillation of ``max_oscillation_fraction`` of the measure's guard. When the cycles
+   are shorter than ``min_period_samples`` telemetry samples, or the oscillation is no
+   bigger than 3× the hysteresis (a plant with little phase lag, where the band sets the
+   cycle), an automatic hysteresis grows ×3 instead, up to the target oscillation:
+   the cycle then sits at −180° + arcsin(ε/a) (METHODS.md §3), which the exact point
+   accounts for.
 3. **Convergence** (RelayTracker): ``cycles`` consecutive cycles whose cycle-to-cycle
    change of period and amplitude is under ``tol``, after discarding the first; else give
    up at ``max_s`` with the tracker's reason.
@@ -159,7 +164,7 @@ def run_relay(link, loop: str, *, amplitude: float | None = None,
               bound_fraction: float = 0.5, tol: float = 0.02, discard_cycles: int = 1,
               excite: bool = True, excite_fraction: float = 0.05,
               regular_cycles: int = 3, regular_tol: float = 0.25,
-              drift_correction: bool = True) -> RelayRun:
+              min_period_samples: int = 25, drift_correction: bool = True) -> RelayRun:
     """Relay test on ``loop`` (see the module docstring). Raises ArmRefused if the board's
     interlock refuses to arm, ValueError for a loop or settings the board cannot take."""
     ls = loop_signals(link, loop)
@@ -185,7 +190,8 @@ def run_relay(link, loop: str, *, amplitude: float | None = None,
              start_fraction=start_fraction, max_osc=max_oscillation_fraction,
              bound_fraction=bound_fraction, tol=tol, discard=discard_cycles,
              excite=excite, excite_fraction=excite_fraction,
-             regular_cycles=regular_cycles, regular_tol=regular_tol)
+             regular_cycles=regular_cycles, regular_tol=regular_tol,
+             min_period_samples=min_period_samples)
     res = exp.result
     stop, reason = state["stop"], state["reason"]
     if res.stopped_by != "done":
@@ -215,7 +221,7 @@ def run_relay(link, loop: str, *, amplitude: float | None = None,
 def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, bias, max_s,
          cycles, settle_s, quiet_s, target_snr, hysteresis_noise, start_fraction, max_osc,
          bound_fraction, tol, discard, excite, excite_fraction, regular_cycles,
-         regular_tol) -> None:
+         regular_tol, min_period_samples) -> None:
     budget = max_s + settle_s + quiet_s
     exp.hold()
     exp.report("settling", budget_s=budget, fraction=0.0, force=True,
@@ -256,13 +262,18 @@ def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, b
     attempt_s = max_s / 4.0
     prog = {"tracker": None}
 
+    cur = {"hyst": hyst}
+    auto_hyst = hysteresis is None
+    hyst_max = target
+    min_period_s = min_period_samples / exp.stream_actual_hz
+
     def start(d_now: float) -> RelayTracker:
-        fields = dict(loop=ls.name, amp=d_now, hyst=hyst, bias=mode_bias)
+        fields = dict(loop=ls.name, amp=d_now, hyst=cur["hyst"], bias=mode_bias)
         if bound is not None:
             fields["bound"] = bound
         exp.mode("relay", **fields)
-        settings.amplitude = d_now
-        tr = RelayTracker(amplitude=d_now, hysteresis=hyst, bias=an_bias,
+        settings.amplitude, settings.hysteresis = d_now, cur["hyst"]
+        tr = RelayTracker(amplitude=d_now, hysteresis=cur["hyst"], bias=an_bias,
                           discard_cycles=discard, tol=tol, min_cycles=cycles)
         prog["tracker"] = tr
         return tr
@@ -279,9 +290,12 @@ def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, b
                    estimate=est, message=f"relay amplitude {settings.amplitude:.4g}")
 
     tracker = start(d)
-    # -- automatic amplitude: grow until the oscillation stands well above the noise.
-    # Only regular cycles count: while the relay's first steps are still in the plant's
-    # dead time, noise makes it chatter with short, random cycles of noise amplitude.
+    # -- automatic sizing: grow the amplitude until the oscillation stands well above the
+    # noise. Only regular cycles count: while the relay's first steps are still in the
+    # plant's dead time, noise makes it chatter with short, random cycles. Cycles a few
+    # samples long, or an oscillation no bigger than the hysteresis band, mean a plant
+    # with little phase lag (first order, say): there the band, not the amplitude, sets
+    # the cycle, so the hysteresis grows instead (up to the target oscillation).
     while amplitude is None:
         t_att = exp.elapsed_s()
         regular = exp.wait(min(attempt_s, max_s - (exp.elapsed_s() - t_start)),
@@ -291,7 +305,20 @@ def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, b
         settings.attempts.append((d, a))
         if a is not None and (a >= target or a >= osc_cap):
             break
-        if d >= d_max or exp.elapsed_s() - t_start >= max_s:
+        periods = tracker.periods[-regular_cycles:]
+        chatter = bool(periods) and float(np.mean(periods)) < min_period_s
+        narrow = a is not None and a < 3.0 * cur["hyst"]
+        if exp.elapsed_s() - t_start >= max_s:
+            if a is None:
+                st["stop"], st["reason"] = "gave_up", (
+                    f"no regular relay cycle within {exp.elapsed_s() - t_att:.1f} s")
+                return
+            break
+        if auto_hyst and (chatter or narrow) and cur["hyst"] < hyst_max:
+            cur["hyst"] = min(3.0 * cur["hyst"], hyst_max)
+            tracker = start(d)
+            continue
+        if d >= d_max:
             if a is None:
                 st["stop"], st["reason"] = "gave_up", (
                     f"no regular relay cycle within {exp.elapsed_s() - t_att:.1f} s at the "
@@ -309,7 +336,18 @@ def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, b
             break
         d = d_new
         tracker = start(d)
-    # -- run until the cycles agree
+    # -- run until the cycles agree. Where the band sets the cycle (the hysteresis had to
+    # grow), noise shifts each switching instant by about σ/slope, which makes periods
+    # scatter by about σ/(4ε): the tolerance is widened to 1.5·σ/a so that noise alone
+    # does not hold convergence off (the point still averages over whole cycles).
+    if cur["hyst"] > hyst and tracker.amplitudes:
+        a_now = float(np.mean(tracker.amplitudes[-2:]))
+        tol_eff = max(tol, 1.5 * sigma / a_now) if a_now > 0 else tol
+        if tol_eff > tol:
+            st["tol"] = tol_eff
+            tracker = RelayTracker(amplitude=d, hysteresis=cur["hyst"], bias=an_bias,
+                                   discard_cycles=discard, tol=tol_eff, min_cycles=cycles)
+            prog["tracker"] = tracker
     left = max_s - (exp.elapsed_s() - t_start)
     settled = exp.wait(max(left, 0.0), until=lambda: tracker.progress().settled,
                        on_block=feed)

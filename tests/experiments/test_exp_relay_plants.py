@@ -105,3 +105,33 @@ def test_proposals_on_a_stable_plant(open_sim_shared):
     ranked = sorted((p for p in ps.proposals if p.rank), key=lambda p: p.rank)
     assert ranked and all(p.predicted_stable for p in ranked)
     assert ps.best() is ranked[0]
+
+
+def test_wheel_speed_loop_widens_the_hysteresis_and_measures_the_motor(open_sim):
+    # a DC motor and flywheel has little phase lag: under a relay with a narrow band it
+    # chatters at the sampling limit, so the band (not the amplitude) must grow
+    link = open_sim("sim://wheel?seed=1")
+    link.set(speed_sp=20.0)  # away from zero speed, where Coulomb friction dominates
+    run = run_relay(link, "speed", max_s=60.0)
+    assert run.converged, run.reason
+    assert run.settings.hysteresis > 5 * run.noise_rms
+    p = link.port.board.plant.params
+    w, h = run.point.omega_rad_s, link.port.board.dt_s
+    s = 1j * w
+    kt, r, ind, j, b = (p.torque_constant_Nm_A, p.resistance_ohm, p.inductance_H,
+                        p.inertia_kgm2, p.viscous_friction_Nms_rad)
+    # the permanent-magnet DC motor (Hughes & Drury, Electric Motors and Drives) in rev/s
+    # per V, measured as an encoder count difference over one period (its mean speed)
+    g = kt / ((ind * s + r) * (j * s + b) + kt * kt) / (2 * math.pi)
+    g *= (1 - np.exp(-s * h)) / (s * h)
+    assert run.point.gain == pytest.approx(abs(g), rel=0.02)
+    dphi = (run.point.phase_deg - math.degrees(np.angle(g)) + 180.0) % 360.0 - 180.0
+    assert abs(dphi) < 1.5
+    ps = propose(run)
+    # the cycle sits far from −180°: the ultimate-point rules say so, the one-point
+    # design (Åström & Hägglund 1984) still applies and is predicted stable
+    assert not ps.by_rule("ziegler-nichols-pid").applies
+    ah = ps.by_rule("astrom-hagglund-pm-pi")
+    assert ah.applies and ah.predicted_stable
+    # the fitted model's static gain is the motor's (WheelParams.static_gain_rad_s_per_V)
+    assert ps.model.gain == pytest.approx(p.static_gain_rad_s_per_V / (2 * math.pi), rel=0.02)
