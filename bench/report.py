@@ -110,9 +110,11 @@ def _marks(rec, t0: float) -> list:
         if t is None or not text.startswith("mode "):
             continue
         words = text.split()
-        amp = next((w.split("=", 1)[1] for w in words if w.startswith("amp=")), None)
-        out.append((t - t0, words[1] + (f" {amp}" if amp and words[1] == "inject" else ""),
-                    "#2e6f40"))
+        field = dict(w.split("=", 1) for w in words[2:] if "=" in w)
+        label = words[1]
+        if label == "inject" and "amp" in field:  # a push on the body is a torque (§8)
+            label += f" {field['amp']}" + (" N.m" if field.get("at") == "body" else "")
+        out.append((t - t0, label, "#2e6f40"))
     if not out:  # no notes from an experiment: the board's own mode events
         out += [(e["host_time_s"] - t0, (e.get("fields") or {}).get("mode", "mode"), "#2e6f40")
                 for e in rec.events if e.get("source") == "board" and e.get("kind") == "mode"]
