@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 import traceback
 
@@ -147,6 +148,13 @@ def main(argv: list[str] | None = None) -> int:
         return _fail(EXIT_LINK, str(exc), debug)
     except KeyboardInterrupt:
         return _fail(EXIT_INTERRUPTED, "interrupted", debug)
+    except BrokenPipeError:
+        # the reader of our output went away (`rigbench watch | head`): not an error
+        try:
+            sys.stdout = open(os.devnull, "w")
+        except OSError:
+            pass
+        return EXIT_OK
     except Exception as exc:  # noqa: BLE001 - the user gets one line; --debug shows more
         first = str(exc).splitlines()[0] if str(exc) else ""
         return _fail(EXIT_INTERNAL, f"internal error: {type(exc).__name__}: {first}"

@@ -26,7 +26,6 @@ from collections import deque
 from collections.abc import Sequence
 
 import numpy as np
-from scipy.signal import cont2discrete, tf2ss
 
 from bench.rig.sensing import GaussianStream
 
@@ -106,6 +105,10 @@ class TransferFunctionPlant:
             self._c = np.zeros(0)
             self._d = float(num_a[-1] / den_a[0]) if num_a.size == 1 else 0.0
         else:
+            # imported here: scipy.signal costs about a second to import, and only this
+            # rig needs it
+            from scipy.signal import cont2discrete, tf2ss
+
             a, b, c, dd = tf2ss(num_a, den_a)
             dd = float(np.asarray(dd).ravel()[0])
             c = np.asarray(c, dtype=float).ravel()
