@@ -26,7 +26,7 @@ from bench.sequence_results import summary_dict
 from bench.sequence_run import (
     check_runnable, default_results_dir, prepare_results_dir, run_sequence,
 )
-from bench.sequence_steps import format_value
+from bench.sequence_steps import describe_step, format_value
 from bench.yamlload import SchemaError
 
 from bench.link import Link
@@ -62,32 +62,9 @@ def exit_code(result) -> int:
 
 
 def step_line(step, project, sequence_guards=None) -> str:
-    """One expanded step as a line: index, kind, line, settings, and the guards in force
-    when they differ from the sequence's."""
-    skip = {"kind", "index", "line", "where", "guards", "bindings", "profile"}
-    parts = []
-    if step.kind == "check":
-        parts.append(f"{step.metric} {step.op} {format_value(step.value)}")
-        skip |= {"metric", "op", "value"}
-    for name, value in vars(step).items():
-        if name in skip or value in (None, (), {}):
-            continue
-        if name == "path":
-            name, value = "profile", value.relative_to(project).as_posix()
-        elif isinstance(value, float):
-            value = format_value(value)
-        elif isinstance(value, dict):
-            parts.append(" ".join(f"{k}={format_value(v)}" for k, v in value.items()))
-            continue
-        elif isinstance(value, tuple):
-            value = "[" + ", ".join(format_value(v) for v in value) + "]"
-        elif hasattr(value, "for_s"):
-            value = f"|{value.signal}| < {format_value(value.below)} for {format_value(value.for_s)} s"
-        parts.append(f"{name}={value}")
-    with_ = ", ".join(f"{k}={format_value(v)}" for k, v in step.bindings)
-    text = f"{step.index:>6}  {step.kind:<7} line {step.line:<4} " + " ".join(parts)
-    if with_:
-        text += f"  [{with_}]"
+    """One expanded step (bench.sequence_steps.describe_step), its line in the file, and
+    the guards in force when they differ from the sequence's."""
+    text = f"{describe_step(step, project=project)}   (line {step.line})"
     if step.guards != sequence_guards:
         text += "  guards: " + ", ".join(f"{k} {format_value(v)}"
                                         for k, v in vars(step.guards).items() if v is not None)
