@@ -76,7 +76,7 @@ def sweep(link, *, cancel, progress, gain_sets, **settings):
 
 
 def sequence(link, *, cancel, progress, sequence):
-    return find("sequence")(link, sequence, cancel=cancel, progress=progress)
+    return find("sequence")(link, sequence=sequence, cancel=cancel, progress=progress)
 
 
 CALLS = {"relay": relay_and_proposals, "sweep": sweep, "sequence": sequence}

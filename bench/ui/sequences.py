@@ -1,8 +1,9 @@
-"""Sequences screen: pick a sequence file, validate it (every step listed in run order),
-run it with step progress, abort (motor off).
+"""Sequences screen: pick a sequence file, validate it (every step listed in run order,
+checked against the board), run it with step progress, abort (motor off).
 
-Reading and checking a file is bench.sequence_file; running it is the domain runner found
-through :mod:`bench.ui.runners`. Abort cancels the runner's worker and sends ``disarm``.
+Reading and checking are bench.sequence_file and bench.sequence_check; running is
+bench.sequence_run through :mod:`bench.ui.runners` (the runner ends with the motor off,
+and writes the results folder). Abort sets the runner's cancel flag and sends ``disarm``.
 
 Must not import: bench.rig, serial, bench.ui.app.
 """
@@ -18,7 +19,7 @@ from textual.message import Message
 from textual.widgets import DataTable, Input, Label, OptionList, ProgressBar, Static
 from textual.widgets.option_list import Option
 
-from bench import sequence_file
+from bench import sequence_check, sequence_file, sequence_steps
 
 from . import runners
 from .safety import BenchScreen
@@ -34,16 +35,6 @@ class SequenceDone(Message):
     def __init__(self, result, text: str) -> None:
         super().__init__()
         self.result, self.text = result, text
-
-
-def step_text(step) -> str:
-    """One step's settings in a line (its dataclass fields, less bookkeeping)."""
-    skip = {"kind", "index", "line", "where", "guards", "bindings", "timeout_s"}
-    parts = []
-    for name, value in vars(step).items():
-        if name not in skip and value not in (None, (), "", {}):
-            parts.append(f"{name}={value}")
-    return " ".join(parts)[:90]
 
 
 class SequencesScreen(BenchScreen):
@@ -77,8 +68,9 @@ class SequencesScreen(BenchScreen):
         yield DataTable(id="seq-steps", cursor_type="row")
 
     def on_mount(self) -> None:
-        self.query_one("#seq-steps", DataTable).add_columns("step", "kind", "line",
-                                                            "settings", "state")
+        table = self.query_one("#seq-steps", DataTable)
+        for label in ("line", "step", "state"):
+            table.add_column(label, key=label)
         self.action_rescan()
 
     def action_rescan(self) -> None:
@@ -113,26 +105,30 @@ class SequencesScreen(BenchScreen):
         if not path:
             self._state("Choose a sequence file first.")
             return False
+        link = self.app.link
         try:
             seq = sequence_file.load_sequence(path)
             steps = sequence_file.expand(seq)
+            problems = sequence_check.check_sequence_against_board(
+                seq, link.params, link.loops, link.signals, info=link.info) if link else []
         except Exception as exc:  # noqa: BLE001 - SchemaError names file, line and step
             self.query_one("#seq-summary", Static).update(f"NOT VALID\n{exc}")
             self._state("")
             return False
+        errors = [p.format(str(path)) for p in problems if p.severity == "error"]
+        warnings = [p.format(str(path)) for p in problems if p.severity != "error"]
         self.sequence, self.steps = seq, steps
-        for i, st in enumerate(steps):
-            table.add_row(st.index, st.kind, str(st.line), step_text(st), "", key=str(i))
-        link = self.app.link
-        rig_note = ""
-        if seq.rig and link is not None and link.info.rig != seq.rig:
-            rig_note = f"\nWARNING: written for a {seq.rig!r} rig; the board is {link.info.rig!r}"
+        for i, st in enumerate(steps):  # expanded repeats reuse indices: key by position
+            text = sequence_steps.describe_step(st, project=seq.project)
+            table.add_row(str(st.line), text[:96], "", key=str(i))
+        verdict = "NOT RUNNABLE on this board" if errors else "valid"
+        notes = "".join(f"\n{e}" for e in errors + warnings)
         self.query_one("#seq-summary", Static).update(
-            f"{seq.name}: valid, {len(steps)} steps in run order; on abort: {seq.on_abort}"
-            f"{rig_note}" + (f"\n{seq.notes.strip()}" if seq.notes else ""))
+            f"{seq.name}: {verdict}, {len(steps)} steps in run order; on abort: "
+            f"{seq.on_abort}{notes}" + (f"\n{seq.notes.strip()}" if seq.notes else ""))
         self.query_one("#seq-bar", ProgressBar).update(total=len(steps), progress=0)
-        self._state("ready to run (r)")
-        return True
+        self._state("ready to run (r)" if not errors else "fix the file first")
+        return not errors
 
     def action_run(self) -> None:
         if self.running:
@@ -143,33 +139,46 @@ class SequencesScreen(BenchScreen):
         link = self.app.need_link("run sequence")
         if link is None:
             return
-        runner = runners.find("sequence")
-        if runner is None:
+        if runners.find("sequence") is None:
             self._state(runners.missing_text("sequence"))
-            self.app.note(f"sequence: {runners.missing_text('sequence')}")
             return
         self.running = True
         self._state(f"running {self.sequence.name}…")
-        runners.run_in_worker(self, "sequence", runner, link, {"sequence": self.sequence},
-                              on_progress=lambda p: self.post_message(SequenceProgress(p)),
-                              on_done=lambda r, t: self.post_message(SequenceDone(r, t)))
+        runners.start(self.app, "sequence", link, {"sequence": self.sequence},
+                      on_progress=lambda p: self.post_message(SequenceProgress(p)),
+                      on_done=lambda r, t: self.post_message(SequenceDone(r, t)))
 
     def action_abort(self) -> None:
-        self.app.workers.cancel_group(self.app, "experiment")
-        self.app.board_command("abort: disarm", lambda link: link.disarm())
+        """Stop now, motor off: a running sequence ends by its own ``on_abort`` (kill or
+        disarm) and the runner checks the motor is off; with nothing running, disarm."""
         if self.running:
-            self._state("aborting: runner cancelled, motor disarmed")
+            self.app.cancel_experiments()
+            self._state("aborting: the runner stops and turns the motor off…")
+        else:
+            self.app.board_command("abort: disarm", lambda link: link.disarm())
 
     def on_sequence_progress(self, message: SequenceProgress) -> None:
         p = message.progress
-        done = getattr(p, "done", None)
-        if done is not None:
-            self.query_one("#seq-bar", ProgressBar).update(progress=done)
-        text = getattr(p, "text", None)
-        if text:
-            self._state(text)
+        self.query_one("#seq-bar", ProgressBar).update(total=p.total, progress=p.done)
+        table = self.query_one("#seq-steps", DataTable)
+        position = p.done - 1 if p.state in ("ok", "passed", "failed") else p.done
+        if 0 <= position < table.row_count and p.state != "end":
+            table.update_cell(str(position), "state", p.state)
+            table.move_cursor(row=position)
+        self._state(f"step {p.index} {p.kind}: {p.state}  {p.text}"[:160])
 
     def on_sequence_done(self, message: SequenceDone) -> None:
         self.running = False
-        self._state(message.text)
-        self.app.note(message.text)
+        r = message.result
+        if r is None:
+            self._state(message.text)
+            self.app.note(message.text)
+            return
+        verdict = "PASSED" if r.ok else f"NOT PASSED ({r.stopped_by}"
+        verdict += "" if r.ok else (f": {r.detail})" if r.detail else ")")
+        text = (f"{r.name}: {verdict}; {len(r.checks)} checks, {r.checks_failed} failed; "
+                f"motor after: {r.motor_after}; results in {r.results_dir}")
+        self._state(text)
+        self.app.note(text)
+        if r.motor_after not in ("off", "tripped"):  # the runner could not make sure
+            self.app.board_command("disarm after the sequence", lambda link: link.disarm())

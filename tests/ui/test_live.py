@@ -28,7 +28,7 @@ def test_2khz_telemetry_keeps_up_without_backlog(make_app):
             assert isinstance(live, LiveScreen)
             backlog, queue = [], []
             seen = live.redraws
-            while len(backlog) < 60:  # sample the state after each redraw
+            while len(backlog) < 45:  # sample the state after each redraw
                 assert await wait_for(pilot, lambda: live.redraws > seen, step_s=0.005)
                 seen = live.redraws
                 backlog.append(live.backlog_rows)
