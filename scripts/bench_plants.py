@@ -33,12 +33,8 @@ def run(plant, sim_s: float, command) -> tuple[float, float]:
     return sim_s / wall, 1e6 * wall / n
 
 
-def main() -> None:
-    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--rate-hz", type=float, default=500.0)
-    ap.add_argument("--sim-s", type=float, default=20.0)
-    args = ap.parse_args()
-    rate, sim_s = args.rate_hz, args.sim_s
+def plant_cases(rate: float) -> list:
+    """(name, make) for each plant; ``make()`` returns (plant, command(k)) ready to run."""
     dt = 1.0 / rate
 
     def balance_speed():
@@ -72,12 +68,22 @@ def main() -> None:
         p = make_plant([1.0], [1.0, 3.0, 3.0, 1.0], 0.37, np.random.default_rng(1), 1.0, rate)
         return p, lambda k: 1.0 if (k * dt) % 10 < 5 else -1.0
 
+    return [("balance, speed drive", balance_speed),
+            ("balance, torque drive", balance_torque),
+            ("wheel (motor + flywheel)", wheel),
+            ("e^{-0.37s}/(s+1)^3", tf3)]
+
+
+def main() -> None:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--rate-hz", type=float, default=500.0)
+    ap.add_argument("--sim-s", type=float, default=20.0)
+    args = ap.parse_args()
+    rate, sim_s = args.rate_hz, args.sim_s
+
     print(f"loop rate {rate:g} Hz, {sim_s:g} simulated s each")
     print(f"{'plant':34s} {'sim s / wall s':>15s} {'µs / step':>10s}")
-    for name, make in (("balance, speed drive", balance_speed),
-                       ("balance, torque drive", balance_torque),
-                       ("wheel (motor + flywheel)", wheel),
-                       ("e^{-0.37s}/(s+1)^3", tf3)):
+    for name, make in plant_cases(rate):
         plant, cmd = make()
         ratio, us = run(plant, sim_s, cmd)
         extra = ""

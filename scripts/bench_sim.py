@@ -67,8 +67,9 @@ def relay_run(rate_hz: float, seconds: float = 60.0) -> dict:
             "drops": board.drops, **counts}
 
 
-def bare_board(seconds: float = 60.0) -> float:
-    board = make_board("balance", seed=1)
+def bare_board(seconds: float = 60.0, rig: str = "balance", **rig_kw) -> float:
+    """Simulated s per wall s of a board closing its loops in hold (no port, no telemetry)."""
+    board = make_board(rig, seed=1, **rig_kw)
     codec = HostCodec()
     hb = codec.encode(m.Heartbeat())
     board.receive(hb)
