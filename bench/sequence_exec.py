@@ -8,6 +8,10 @@ guards and stop flag they share. bench.sequence_run drives them in order and end
 - ``wait``, ``record``, ``relay`` and ``sweep`` run inside a guarded experiment
   (bench.experiments.runner.Experiment, or run_relay); an experiment stopped by a guard
   has already sent the kill. ``StepAbort`` carries the run's stop reason.
+- ``relay`` runs bench.experiments.relay.run_relay with the step's amplitude, hysteresis,
+  cycles and max_s; its ``bias`` is taken, as run_relay takes it, relative to the operating
+  output measured in the quiet hold, and its ``bound`` goes to the board as a fraction of
+  the loop's ``trip_<measure>`` (the board must declare one).
 - The ``sweep`` step injects each amplitude as given (sign included) ``repeats`` times,
   ``spacing_s`` apart, from hold; metrics per push come from bench.sequence_stepdata.
 
