@@ -7,8 +7,8 @@ counters, an experiment's stop reason), what the board truly sent against what t
 accepted, the motor state on the board itself at the end, and whether the recording made
 up to the fault loads and is in order.
 
-The truth comes from a tap on the board's transmit side (``BoardTap``), *before* the
-simulated line corrupts or drops anything: every telemetry row, status frame and board
+The truth comes from a tap on the board's transmit side (truth.py: ``BoardTap``), *before*
+the simulated line corrupts or drops anything: every telemetry row, status frame and board
 event the host accepted is looked up there, and must be there with the same values.
 
 Helpers for tests only; imports bench (link, rig, recording, experiments) but is imported by
@@ -24,148 +24,23 @@ import sys
 import tempfile
 import threading
 import time
-from dataclasses import dataclass, field
 from pathlib import Path
 
-import numpy as np
 import serial
+from shaped import MODEM_PROBE, ShapedPort
+from truth import BoardTap, Outcome, StateLog, compare, note_recording
 
 import bench  # noqa: F401  (registers sim://)
 from bench.experiments.runner import Experiment, Guards
-from bench.link import BoardRefused, BoardStatus, Link, LinkError, LinkLost, LinkTimeout
-from bench.link.timebase import U32
+from bench.link import BoardRefused, Link, LinkError, LinkLost, LinkTimeout
 from bench.recording import Recorder, load_recording
 from bench.rig.pty import serve_pty
 from bench.rig.simlink import SimLink
 from bench.rig.url import parse_sim_url
-from bench.wire import HostCodec
-from bench.wire import messages as m
 
 ROOT = Path(__file__).resolve().parents[2]
 SIM = "sim://balance?clock=virtual&seed={seed}"
 STREAM_HZ = 500.0
-MODEM_PROBE = (b"AT\r\nAT+CGMI\r\nATE0V1\r\n+++\r\n\x00\xff\xfe~\x7f@@@|\r\n@tm 1 2|0000\r\n"
-               b"@ok 9|ZZZZ\n" + bytes(range(0x80, 0xA0)) + b"@hello 1 1.0")  # ends mid-frame
-
-
-# --------------------------------------------------------------------------- the truth
-
-
-class BoardTap:
-    """What the board put on the wire, read from its transmit side before the line."""
-
-    def __init__(self, board) -> None:
-        self.codec = HostCodec()
-        self.telemetry: dict[tuple[int, int], tuple[float, ...]] = {}
-        self.statuses: set = set()
-        self.events: set = set()
-        self.sent = 0
-        self.ambiguous = 0
-        inner = board.output
-
-        def output(max_bytes=None):
-            data = inner(max_bytes)
-            self._feed(data)
-            return data
-
-        board.output = output  # instance attribute: SimLink.drain calls it
-
-    def _feed(self, data: bytes) -> None:
-        for msg in self.codec.receive(data):
-            if isinstance(msg, m.Telemetry):
-                key = (msg.frame, msg.time_us)
-                self.sent += 1
-                if key in self.telemetry and self.telemetry[key] != msg.values:
-                    self.ambiguous += 1
-                self.telemetry[key] = msg.values
-            elif isinstance(msg, m.Status):
-                self.statuses.add(status_key(BoardStatus.from_fields(
-                    msg.fields, board_time_s=msg.time_us * 1e-6, host_time_s=0.0)))
-            elif isinstance(msg, m.Event):
-                self.events.add((msg.time_us, msg.kind, tuple(sorted(msg.fields))))
-
-
-def status_key(st: BoardStatus) -> tuple:
-    return (round(st.board_time_s * 1e6) % U32, st.mode, st.loop, st.motor, st.fault, st.why,
-            st.drops, st.rx_err, round(st.heartbeat_age_s * 1e3))
-
-
-@dataclass(frozen=True)
-class Accepted:
-    """What the host accepted, compared with what the board sent."""
-
-    rows: int          # telemetry rows in the host's ring
-    wrong: int         # rows, status frames and board events not exactly as sent
-    statuses: int
-    events: int
-
-
-def compare(link: Link, tap: BoardTap) -> Accepted:
-    _, block = link.read_since(0)
-    wrong = 0
-    for frame, board_s, values in zip(block.frame, block.board_time_s, block.values):
-        key = (int(frame) % U32, round(float(board_s) * 1e6) % U32)
-        if tap.telemetry.get(key) != tuple(float(v) for v in values):
-            wrong += 1
-    _, statuses = link.statuses_since(0)
-    wrong += sum(status_key(st) not in tap.statuses for st in statuses)
-    _, events = link.events_since(0)
-    board_events = [e for e in events if e.source == "board"]
-    for e in board_events:
-        key = (round(e.board_time_s * 1e6) % U32, e.kind,
-               tuple(sorted((k, str(v)) for k, v in e.fields.items())))
-        wrong += key not in tap.events
-    return Accepted(len(block), wrong, len(statuses), len(board_events))
-
-
-# --------------------------------------------------------------------------- outcomes
-
-
-@dataclass
-class Outcome:
-    """One scenario's figures (see the module docstring)."""
-
-    scenario: str
-    fault: str
-    sim_s: float = 0.0                 # link-clock seconds the scenario ran
-    states_seen: list = field(default_factory=list)   # link states, in order of change
-    link_state: str = ""               # what the host showed at the end
-    stopped_by: str | None = None      # an experiment's stop reason
-    host_motor: str | None = None      # the motor state the host believed at the end
-    line_bytes_hit: int = 0            # bytes the simulated line corrupted or dropped
-    frames_sent: int = 0               # telemetry frames the board sent
-    frames_accepted: int = 0           # telemetry rows the host accepted
-    lines_rejected: int = 0            # received lines the host refused (all codes)
-    accepted_wrong: int = 0            # accepted rows/status/events not as sent (must be 0)
-    telemetry_lost: int = 0            # sent but not accepted
-    host_counted_lost: int = 0         # telemetry the host counted missing (frame gaps)
-    host_events: list = field(default_factory=list)   # link happenings and board trips seen
-    resends: int = 0
-    motor_end: str = ""                # the board's own motor state at the end
-    fault_end: str | None = None       # the board's latched fault at the end
-    recording_rows: int | None = None
-    recording_ok: bool | None = None   # loads, frames rise, host time never goes back
-    recording_gap_s: float | None = None   # board time from the last recorded row to the fault
-    notes: str = ""
-
-    @property
-    def motor_off(self) -> bool:
-        return self.motor_end in ("off", "tripped")
-
-
-class StateLog:
-    """Link states seen at each poll, kept when they change."""
-
-    def __init__(self, link: Link) -> None:
-        self.link = link
-        self.seen: list[str] = []
-
-    def __call__(self) -> bool:
-        state = self.link.state
-        if not self.seen or self.seen[-1] != state:
-            self.seen.append(state)
-        return False  # as an ``until`` callback: never ends a wait early
-
 
 def _open(url: str, *, wrap=None, **link_kw):
     port = serial.serial_for_url(url, timeout=0.01)
@@ -194,29 +69,13 @@ def _finish(out: Outcome, link: Link, sim: SimLink, tap: BoardTap, t0: float) ->
     out.host_counted_lost = h.lost_frames
     out.resends = h.resends
     for e in link.events_since(0)[1]:
-        kind = e.kind if e.source == "link" else f"trip:{e.get('cause')}" if e.kind == "trip" else None
+        kind = e.kind if e.source == "link" else (
+            f"trip:{e.get('cause')}" if e.kind == "trip" else None)
         if kind and kind != "handshake" and (not out.host_events or out.host_events[-1] != kind):
             out.host_events.append(kind)
     out.motor_end = sim.board.motor
     out.fault_end = sim.board.fault
     return out
-
-
-def check_recording(path: Path, *, fault_board_s: float | None = None) -> tuple[int, bool, float | None]:
-    """Rows, in order (frames rise within each board boot, host time never goes back), and
-    the board time from the last row before the fault (the last row of the first boot) to
-    ``fault_board_s``."""
-    rec = load_recording(path)
-    frames, host_t = rec.frame, rec.host_time_s
-    boots = np.flatnonzero(np.diff(rec.board_time_s) < 0) + 1   # a restart starts a segment
-    ok = bool(np.all(np.diff(host_t) >= 0))
-    for seg in np.split(frames, boots):
-        ok = ok and bool(np.all(np.diff(seg) > 0))
-    gap = None
-    if fault_board_s is not None and len(rec):
-        first_boot = np.split(rec.board_time_s, boots)[0]
-        gap = fault_board_s - float(first_boot[-1])
-    return len(rec), ok, gap
 
 
 def _ensure(link: Link, action, want: tuple[str, ...], tries: int = 10) -> None:
@@ -266,49 +125,11 @@ def noisy_line(kind: str, rate: float, *, seconds: float = 3.0, seed: int = 11,
         log()
         _finish(out, link, sim, tap, t0)
         out.states_seen = log.seen
-        out.recording_rows, out.recording_ok, _ = check_recording(path)
+        note_recording(out, path)
         out.recording_ok = out.recording_ok and out.recording_rows == out.frames_accepted
         return out
     finally:
         link.close()
-
-
-class ShapedPort:
-    """A port wrapper: ``prefix`` bytes arrive before anything the board sends, and reads
-    are cut into pieces of 1..``max_piece`` bytes with a cut-off frame start (``@tm 7``)
-    slipped in every ``glitch_every`` reads. Composition: everything else is the port's."""
-
-    def __init__(self, port, *, prefix: bytes = b"", max_piece: int | None = None,
-                 glitch_every: int = 0, seed: int = 0) -> None:
-        self._port = port
-        self._prefix = prefix
-        self._max_piece = max_piece
-        self._glitch_every = glitch_every
-        self._rng = np.random.default_rng(seed)
-        self.reads = 0
-        self.glitches = 0
-
-    def __getattr__(self, name):
-        return getattr(self._port, name)
-
-    @property
-    def in_waiting(self) -> int:
-        if self._prefix:
-            return len(self._prefix)
-        return self._port.in_waiting
-
-    def read(self, size: int = 1) -> bytes:
-        if self._prefix:
-            data, self._prefix = self._prefix[:size], self._prefix[size:]
-            return data
-        self.reads += 1
-        if self._max_piece:
-            size = min(size, int(self._rng.integers(1, self._max_piece + 1)))
-        data = self._port.read(size)
-        if data and self._glitch_every and self.reads % self._glitch_every == 0:
-            self.glitches += 1
-            data = b"@tm 7 " + data
-        return data
 
 
 def garbage_before_handshake(*, seconds: float = 2.0, seed: int = 12, workdir: Path) -> Outcome:
@@ -327,7 +148,7 @@ def garbage_before_handshake(*, seconds: float = 2.0, seed: int = 12, workdir: P
             _run_recorded(link, rec, seconds, log)
         _finish(out, link, sim, tap, t0)
         out.states_seen = log.seen
-        out.recording_rows, out.recording_ok, _ = check_recording(path)
+        note_recording(out, path)
         return out
     finally:
         link.close()
@@ -355,7 +176,7 @@ def partial_lines(*, seconds: float = 2.0, seed: int = 13, workdir: Path) -> Out
         _finish(out, link, sim, tap, t0)
         out.states_seen = log.seen
         out.notes = f"{shaped[0].glitches} cut-off frames slipped in"
-        out.recording_rows, out.recording_ok, _ = check_recording(path)
+        note_recording(out, path)
         return out
     finally:
         link.close()
@@ -379,8 +200,7 @@ def _experiment(out: Outcome, url: str, workdir: Path, seconds: float,
         out.states_seen = log.seen
         out.stopped_by = exp.result.stopped_by
         if exp.result.recording is not None:
-            out.recording_rows, out.recording_ok, out.recording_gap_s = check_recording(
-                exp.result.recording, fault_board_s=fault_s)
+            note_recording(out, exp.result.recording, fault_s)
         return out
     finally:
         link.close()
@@ -447,8 +267,7 @@ def unplug_mid_recording(*, seed: int = 17, workdir: Path) -> Outcome:
         _board_alone(sim)
         _finish(out, link, sim, tap, t0)
         out.states_seen = log.seen
-        out.recording_rows, out.recording_ok, out.recording_gap_s = check_recording(
-            path, fault_board_s=2.5)
+        note_recording(out, path, 2.5)
         return out
     finally:
         link.close()
@@ -477,8 +296,7 @@ def host_stops(*, seed: int = 18, workdir: Path) -> Outcome:
     out.motor_end, out.fault_end = sim.board.motor, sim.board.fault
     out.states_seen = log.seen
     out.link_state = "host gone"
-    out.recording_rows, out.recording_ok, out.recording_gap_s = check_recording(
-        path, fault_board_s=died_s)
+    note_recording(out, path, died_s)
     out.notes = f"recording complete flag: {load_recording(path).complete}"
     link.close()
     return out

@@ -8,10 +8,11 @@ import os
 
 import pytest
 from scenarios import (
-    NOISE_RATES, BoardTap, compare, garbage_before_handshake, heartbeat_every, host_killed_on_pty,
+    NOISE_RATES, garbage_before_handshake, heartbeat_every, host_killed_on_pty,
     host_stops, noisy_line, partial_lines, reset_mid_experiment, stall, unplug_mid_experiment,
     unplug_mid_recording,
 )
+from truth import BoardTap, compare
 
 from bench.link import Link
 from bench.rig.simlink import SimLink
