@@ -109,15 +109,28 @@ def _serve_child(url: str, wake_s: float, q, stop) -> None:
             offs.append(time.monotonic())  # the board acted: motor output off
 
     sim.write = tapped_write
+    late, t0 = [], [0.0]
+    drain = sim.drain
+
+    def tapped_drain(max_bytes=None) -> bytes:
+        data = drain(max_bytes)
+        if b"@tm " in data:   # how late the board's output leaves, against its own clock
+            late.append(time.monotonic() - (t0[0] + sim.board.time_s))
+        return data
+
+    sim.drain = tapped_drain
 
     def ready(path: str) -> None:
         now = time.monotonic()
         q.put(("ready", path, now, int(now * 1e6) % U32))
         sim.board.clock_start_us = int(now * 1e6) % U32   # serve_pty takes t0 just after
+        t0[0] = now
 
     stats = pty_mod.serve_pty(options, on_ready=ready, stop=stop, link=sim)
     q.put(("done", {"steps": stats.steps, "late_steps": stats.late_steps,
-                    "drops": stats.drops, "motor_off_times": offs}))
+                    "drops": stats.drops, "motor_off_times": offs,
+                    "output_late_median_ms": 1e3 * _q(late, 50),
+                    "output_late_p99_ms": 1e3 * _q(late, 99)}))
 
 
 class PtyBoard:
@@ -212,6 +225,8 @@ def bench_link_and_kill(seconds: float = 10.0, kills: int = 100) -> tuple[dict, 
     else:
         kill_fig["motor_off_note"] = f"{len(offs)} trips seen for {kills} kills: not paired"
     link_fig["board_late_steps"] = board.stats.get("late_steps")
+    for key in ("output_late_median_ms", "output_late_p99_ms"):
+        link_fig["board_" + key] = board.stats.get(key)
     return link_fig, kill_fig
 
 
@@ -422,6 +437,10 @@ def figures(res: dict) -> list[tuple]:
         add("link", "rows received per s", lk["rows_per_s"], "rows/s")
         add("link", "latency median", lk["latency_median_ms"], "ms")
         add("link", "latency p99", lk["latency_p99_ms"], "ms")
+        if lk.get("board_output_late_median_ms") is not None:
+            add("link", "of which the board process was late, median / p99",
+                f"{lk['board_output_late_median_ms']:.2f} / "
+                f"{lk['board_output_late_p99_ms']:.2f}", "ms")
         add("link", "host CPU share", 100 * lk["host_cpu_share"], "% of one core")
     if "kill" in res:
         k = res["kill"]
