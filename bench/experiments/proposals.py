@@ -116,10 +116,10 @@ def _from_proposal(p: Proposal, ls, scale: float = 1.0) -> Rated:
                  ParallelPid(kp, ki, kd).to_ideal() if kp else None, details=dict(p.details))
 
 
-def _model_ultimate(plant: PlantModel, omega_hint: float, direct: bool):
+def _model_ultimate(plant: PlantModel, omega_hint: float, direct: bool, span: float = 5.0):
     """(ku, tu_s) where the model's phase (with the loop's sign) crosses −180°, or None."""
     sign = -1.0 if direct else 1.0
-    w = np.geomspace(omega_hint / 20, omega_hint * 20, 4000)
+    w = np.geomspace(omega_hint / span, omega_hint * span, 4000)
     ph = np.unwrap(np.angle(sign * plant.response(w)))
     ph -= 2 * math.pi * round(float(ph[0]) / (2 * math.pi))
     idx = np.flatnonzero(np.diff(np.sign(ph + math.pi)) != 0)
@@ -224,7 +224,7 @@ def propose(run: RelayRun, *, margin_deg: float = 45.0, ms_max: float = 2.0,
     else:  # the rules say why they do not apply; the one-point designs still do
         ult = {"ku": None, "tu_s": None,
                "source": f"none: the cycle sat {off:.1f}° from −180° (a wide hysteresis) and "
-                         "the model has no −180° crossing within 20× of it"}
+                         "the model has no −180° crossing within 5× of its frequency"}
         raw = propose_from_point(point, static_gain=static, plant=ls.plant,
                                  margin_deg=margin_deg, direct_acting=direct)
         notes.append("the ultimate-point rules need a cycle near −180°: run with a smaller "

@@ -19,8 +19,8 @@ the analysis of bench.tuning.relay.
    oscillation's half peak-to-peak reaches
    ``target_snr`` × noise RMS (METHODS: at least 10×), never beyond the output's limit or
    an oscillation of ``max_oscillation_fraction`` of the measure's guard. When the cycles
-   are shorter than ``min_period_samples`` telemetry samples, or the oscillation is no
-   bigger than 3× the hysteresis (a plant with little phase lag, where the band sets the
+   are shorter than ``min_period_samples`` telemetry samples, or the oscillation did not
+   grow with the amplitude (a plant with little phase lag, where the band sets the
    cycle), an automatic hysteresis grows ×3 instead, up to the target oscillation:
    the cycle then sits at −180° + arcsin(ε/a) (METHODS.md §3), which the exact point
    accounts for.
@@ -143,11 +143,12 @@ def _regular(tracker: RelayTracker, n: int, tol: float) -> bool:
     return True
 
 
-def _columns(ls: LoopSignals, signals, values, centre: float, bias: float):
-    """(relay state, output deviation, measure) from telemetry rows."""
+def _columns(ls: LoopSignals, signals, values, centre: float, bias: float, y0: float):
+    """(relay state, output deviation, measure deviation) from telemetry rows: deviations
+    from the operating point of the quiet hold, as the static gain ∫y/∫u needs."""
     col = {name: values[:, i] for i, name in enumerate(signals)}
     u = col[ls.output] - centre
-    y = col[ls.measure]
+    y = col[ls.measure] - y0
     if ls.relay_signal:
         r = col[ls.relay_signal]
     else:  # an output relay shows its state in the output itself: u = centre + bias ± d
@@ -200,7 +201,7 @@ def run_relay(link, loop: str, *, amplitude: float | None = None,
     an = state["analysis"]
     if an is not None and an.point is not None and an.t_start_s is not None:
         s = state["settings"]
-        r, u, y = _columns(ls, res.signals, res.values, s.centre, s.bias)
+        r, u, y = _columns(ls, res.signals, res.values, s.centre, s.bias, state["y0"])
         sl = res.window(an.t_start_s, an.t_end_s)
         bounds = res.t_s[sl][rising_switches(r[sl])]
         bounds = np.r_[an.t_start_s, bounds[bounds > an.t_start_s + 1e-9]]
@@ -279,7 +280,7 @@ def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, b
         return tr
 
     def feed(t_blk, vals):
-        r, u, y = _columns(ls, exp.signals, vals, centre, bias)
+        r, u, y = _columns(ls, exp.signals, vals, centre, bias, st["y0"])
         p = prog["tracker"].feed(t_blk, r, u, y)
         done = max(p.cycles - discard, 0)
         est = {"period_s": p.period_s, "amplitude": p.amplitude,
@@ -293,7 +294,7 @@ def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, b
     # -- automatic sizing: grow the amplitude until the oscillation stands well above the
     # noise. Only regular cycles count: while the relay's first steps are still in the
     # plant's dead time, noise makes it chatter with short, random cycles. Cycles a few
-    # samples long, or an oscillation no bigger than the hysteresis band, mean a plant
+    # samples long, or an oscillation that did not grow with the amplitude, mean a plant
     # with little phase lag (first order, say): there the band, not the amplitude, sets
     # the cycle, so the hysteresis grows instead (up to the target oscillation).
     while amplitude is None:
@@ -307,14 +308,18 @@ def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, b
             break
         periods = tracker.periods[-regular_cycles:]
         chatter = bool(periods) and float(np.mean(periods)) < min_period_s
-        narrow = a is not None and a < 3.0 * cur["hyst"]
+        before = cur.get("last")
+        cur["last"] = (d, cur["hyst"], a)
+        # the amplitude grew but the oscillation did not: the band sets the cycle
+        stuck = (before is not None and a is not None and before[2] is not None
+                 and before[1] == cur["hyst"] and d > 1.4 * before[0] and a < 1.2 * before[2])
         if exp.elapsed_s() - t_start >= max_s:
             if a is None:
                 st["stop"], st["reason"] = "gave_up", (
                     f"no regular relay cycle within {exp.elapsed_s() - t_att:.1f} s")
                 return
             break
-        if auto_hyst and (chatter or narrow) and cur["hyst"] < hyst_max:
+        if auto_hyst and (chatter or stuck) and cur["hyst"] < hyst_max:
             cur["hyst"] = min(3.0 * cur["hyst"], hyst_max)
             tracker = start(d)
             continue

@@ -133,5 +133,27 @@ def test_wheel_speed_loop_widens_the_hysteresis_and_measures_the_motor(open_sim)
     assert not ps.by_rule("ziegler-nichols-pid").applies
     ah = ps.by_rule("astrom-hagglund-pm-pi")
     assert ah.applies and ah.predicted_stable
-    # the fitted model's static gain is the motor's (WheelParams.static_gain_rad_s_per_V)
-    assert ps.model.gain == pytest.approx(p.static_gain_rad_s_per_V / (2 * math.pi), rel=0.02)
+    # the cycle is far above the motor's corner, where the points fix K/T of a first-order
+    # model: the motor's Kt/(J·R) (Hughes & Drury: static gain over the mechanical time
+    # constant), in rev/s per V per s, within 5%
+    assert ps.model.order == 1
+    k_over_t = p.static_gain_rad_s_per_V / p.mechanical_time_constant_s / (2 * math.pi)
+    assert ps.model.gain / ps.model.time_constant_s == pytest.approx(k_over_t, rel=0.05)
+
+
+def test_biased_relay_measures_the_static_gain_and_amigo_applies(open_sim):
+    link = open_sim("sim://plant?num=2&den=1,2,1&delay=0.5&seed=2")
+    run = run_relay(link, "main", bias=0.4, max_s=60.0)
+    assert run.converged, run.reason
+    # ∫y dt/∫u dt over whole periods of a biased relay is the static gain (Shen, Wu & Yu
+    # 1996, value from memory; METHODS.md §3 [calc]: within 0.3%); the plant's is 2
+    assert run.static_gain == pytest.approx(2.0, rel=0.01)
+    ps = propose(run)
+    assert ps.model.static_gain_used and ps.model.gain == pytest.approx(2.0, rel=0.01)
+    amigo = ps.by_rule("amigo-pid")
+    ku = ps.ultimate["ku"]
+    kappa = 1.0 / (run.static_gain * ku)
+    # Åström & Hägglund (2006), Advanced PID Control, ch. 7: K = (0.3 − 0.1κ⁴)Ku
+    assert amigo.applies and amigo.kp == pytest.approx((0.3 - 0.1 * kappa ** 4) * ku)
+    # 2e^{-0.5s}/(s+1)^2: Ku = 4.6879/2 (METHODS.md §3 [calc], gain scaled by 2)
+    assert ku == pytest.approx(4.6879 / 2, rel=0.02)
