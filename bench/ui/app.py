@@ -95,8 +95,9 @@ class RigApp(App):
         Binding("c", "clear", "Clear fault", show=False),
     ]
 
-    safety: reactive[SafetyState] = reactive(SafetyState, init=False)
-    link_serial: reactive[int] = reactive(0, init=False)  # bumps when a new link is open
+    # repaint=False: a change is drawn by the bars that watch it, not by a full-screen repaint
+    safety: reactive[SafetyState] = reactive(SafetyState, init=False, repaint=False)
+    link_serial: reactive[int] = reactive(0, init=False, repaint=False)  # bumps per new link
 
     def __init__(self, url: str = DEFAULT_URL, *, stream_hz: float = 250.0,
                  safety_hz: float = 10.0, virtual_speed: float | None = 1.0) -> None:

@@ -10,11 +10,14 @@ Must not import: bench.rig, bench.tuning, serial (data comes through the App's l
 
 from __future__ import annotations
 
+import time
+
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
-from textual.widgets import Label, Select, Static
+from textual.widgets import Select, Static
 
+from .fixedtext import FixedText
 from .plot import LinePlot, Scale
 from .safety import BenchScreen
 from .view import (WINDOWS_S, auto_scale, default_signals, fixed_scale, format_value,
@@ -42,7 +45,7 @@ class PlotPanel(Vertical):
 
     def compose(self) -> ComposeResult:
         with Horizontal():
-            yield Label("", classes="plot-title", markup=False)
+            yield FixedText(classes="plot-title")
             yield Select([], prompt="signal", allow_blank=True, compact=True,
                          id=f"pick-{self.index}")
         yield LinePlot(id=f"plot-{self.index}")
@@ -59,9 +62,10 @@ class LiveScreen(BenchScreen):
         Binding("s", "scale", "Auto/fixed scale"),
     ]
 
-    def __init__(self, *, refresh_hz: float = 25.0) -> None:
+    def __init__(self, *, refresh_hz: float = 25.0, text_every: int = 5) -> None:
         super().__init__()
         self.refresh_hz = refresh_hz
+        self.text_every = text_every
         self.window_s = 10.0
         self.paused = False
         self.fixed = False
@@ -69,19 +73,24 @@ class LiveScreen(BenchScreen):
         self.last_rows = 0  # rows in the last window drawn
         self.last_cursor = -1  # ring cursor of the last window drawn
         self.backlog_rows = 0  # rows received since the previous window drawn (at a redraw)
+        self.redraw_seconds = 0.0  # time spent in refresh_plots (for the benchmark script)
         self._layout_key = None
         self._scales: dict[str, tuple[float, float]] = {}
 
     def compose_body(self) -> ComposeResult:
         yield Static(CAUTION, id="caution", markup=False)
-        yield Static("", id="live-state", markup=False)
+        yield FixedText(id="live-state")
         with Horizontal(id="live-body"):
             with Vertical(id="plots"):
                 for i in range(N_PLOTS):
                     yield PlotPanel(i)
-            yield Static("", id="readouts", markup=False)
+            yield FixedText(id="readouts")
 
     def on_mount(self) -> None:
+        # widgets looked up once: a DOM query per redraw costs more than a plot
+        self._panels = [(p, p.query_one(".plot-title", FixedText), p.query_one(LinePlot))
+                        for p in self.query(PlotPanel)]
+        self._readouts = self.query_one("#readouts", FixedText)
         self.set_interval(1.0 / self.refresh_hz, self.refresh_plots)
         self._show_state()
 
@@ -105,7 +114,7 @@ class LiveScreen(BenchScreen):
     def _show_state(self) -> None:
         scale = "fixed (± trip limit where declared)" if self.fixed else "auto"
         run = "PAUSED (space resumes)" if self.paused else "live"
-        self.query_one("#live-state", Static).update(
+        self.query_one("#live-state", FixedText).set_text(
             f"{run}   window {self.window_s:g} s (w)   scale {scale} (s)")
 
     # ------------------------------------------------------------------ signals
@@ -138,6 +147,13 @@ class LiveScreen(BenchScreen):
         """Copy the newest window from the ring and redraw (the 25 Hz timer)."""
         if not self.is_current or (self.paused and not force):
             return
+        t0 = time.perf_counter()
+        try:
+            self._redraw()
+        finally:
+            self.redraw_seconds += time.perf_counter() - t0
+
+    def _redraw(self) -> None:
         link = self.app.link
         if link is None:
             return
@@ -153,12 +169,12 @@ class LiveScreen(BenchScreen):
         t1 = float(t[-1])
         t0 = t1 - self.window_s
         units = dict(zip(block.signals, block.units))
-        for panel in self.query(PlotPanel):
-            title = panel.query_one(".plot-title", Label)
-            plot = panel.query_one(LinePlot)
+        # figures change too fast to read at 25 Hz: every text_every-th redraw is enough
+        numbers = self.redraws % self.text_every == 0 or self.paused
+        for panel, title, plot in self._panels:
             name = panel.signal
             if not name or name not in units:
-                title.update("(no signal chosen)")
+                title.set_text("(no signal chosen)")
                 plot.show(t, [], t0_s=t0, t1_s=t1, scale=plot.scale)
                 continue
             y = block.column(name)
@@ -169,10 +185,12 @@ class LiveScreen(BenchScreen):
             else:
                 self._scales.pop(name, None)
                 low, high = auto_scale([y])
-            title.update(f"{name} {format_value(r.last, r.unit).strip()}   "
-                         f"{headroom_text(r)}")
+            if numbers:
+                title.set_text(f"{name} {format_value(r.last, r.unit).strip()}   "
+                               f"{headroom_text(r)}")
             plot.show(t, [y], t0_s=t0, t1_s=t1, scale=Scale(low, high))
-        self._show_readouts(block, link.params)
+        if numbers:
+            self._show_readouts(block, link.params)
         self.redraws += 1
 
     def _show_readouts(self, block, params) -> None:
@@ -185,4 +203,4 @@ class LiveScreen(BenchScreen):
                                         if r.trip is not None else ""))
         lines.append("")
         lines.append(f"{len(block)} samples in {self.window_s:g} s")
-        self.query_one("#readouts", Static).update("\n".join(lines))
+        self._readouts.set_text("\n".join(lines))

@@ -32,6 +32,17 @@ DOT_BITS = np.array([[0x01, 0x08], [0x02, 0x10], [0x04, 0x20], [0x40, 0x80]], dt
 BRAILLE_BASE = 0x2800
 N_TRACE_STYLES = 4
 GUTTER = 8  # cells left of the plot for the scale labels
+EMPTY, ZERO = -2, -1  # owners of a cell with no trace dots: blank, or the dashed zero line
+
+
+def fill_empty(owner: np.ndarray) -> np.ndarray:
+    """Blank cells take the style of the cell before them (a blank braille cell looks the
+    same in any colour), so a row is a few long segments instead of one per cell."""
+    idx = np.where(owner != EMPTY, np.arange(len(owner)), 0)
+    np.maximum.accumulate(idx, out=idx)
+    out = owner[idx]
+    out[out == EMPTY] = 0
+    return out
 
 
 @dataclass(frozen=True)
@@ -135,6 +146,7 @@ class LinePlot(Widget):
         self._scale = Scale(-1.0, 1.0)
         self._strips: list[Strip] = []
         self._built_for: tuple[int, int] = (-1, -1)
+        self._style_cache: dict | None = None
 
     @property
     def scale(self) -> Scale:
@@ -163,7 +175,7 @@ class LinePlot(Widget):
         low, high = self._scale.low, self._scale.high
         t0, t1 = self._window
         bits = np.zeros((height, plot_w), dtype=np.uint8)
-        owner = np.full((height, plot_w), -1, dtype=np.int8)
+        owner = np.full((height, plot_w), EMPTY, dtype=np.int8)
         for k, y in enumerate(self._traces):
             bottom, top = column_spans(self._t, y, t0, t1, 2 * plot_w, low, high, 4 * height)
             tb = braille_bits(bottom, top, plot_w, height)
@@ -174,14 +186,32 @@ class LinePlot(Widget):
             level = int(np.rint(-low / (high - low) * (4 * height - 1)))
             zero_row = (4 * height - 1 - level) // 4
             zero_bit = DOT_BITS[(4 * height - 1 - level) % 4, 0]
-            empty = bits[zero_row] == 0
-            bits[zero_row, empty & (np.arange(plot_w) % 2 == 0)] = zero_bit
-        self._strips = [self._row_strip(r, bits[r], owner[r], r == zero_row, height)
+            dash = (bits[zero_row] == 0) & (np.arange(plot_w) % 2 == 0)
+            bits[zero_row, dash] = zero_bit
+            owner[zero_row, dash] = ZERO
+        styles = self._styles()
+        self._strips = [self._row_strip(r, bits[r], fill_empty(owner[r]), r == zero_row,
+                                        height, styles, styles["label"])
                         for r in range(height)]
 
+    def _styles(self) -> dict:
+        """Rich styles of the parts, on the widget's background; cached until the CSS or
+        the theme changes (reading them costs more than drawing a row)."""
+        if self._style_cache is None:
+            base: Style = self.rich_style
+            styles = {ZERO: base + self.get_component_rich_style("lineplot--zero"),
+                      "label": base + self.get_component_rich_style("lineplot--label")}
+            for k in range(N_TRACE_STYLES):
+                styles[k] = base + self.get_component_rich_style(f"lineplot--trace-{k}")
+            self._style_cache = styles
+        return self._style_cache
+
+    def notify_style_update(self) -> None:
+        self._style_cache = None
+        super().notify_style_update()
+
     def _row_strip(self, r: int, bits: np.ndarray, owner: np.ndarray, is_zero: bool,
-                   height: int) -> Strip:
-        label_style = self.get_component_rich_style("lineplot--label")
+                   height: int, styles: dict, label_style: Style) -> Strip:
         if r == 0:
             label = format_tick(self._scale.high)
         elif r == height - 1:
@@ -193,15 +223,10 @@ class LinePlot(Widget):
         segments = [Segment(label.rjust(GUTTER - 1)[: GUTTER - 1] + " ", label_style)]
         text = braille_text(bits)
         bounds = np.flatnonzero(np.diff(owner)) + 1
-        starts = np.concatenate(([0], bounds))
-        ends = np.concatenate((bounds, [len(owner)]))
-        for s, e in zip(starts.tolist(), ends.tolist()):
-            k = int(owner[s])
-            if k >= 0:
-                style = self.get_component_rich_style(f"lineplot--trace-{k}")
-            else:
-                style = self.get_component_rich_style("lineplot--zero")
-            segments.append(Segment(text[s:e], style))
+        starts = [0, *bounds.tolist()]
+        ends = [*bounds.tolist(), len(owner)]
+        for a, b in zip(starts, ends):
+            segments.append(Segment(text[a:b], styles[int(owner[a])]))
         return Strip(segments, GUTTER + len(owner))
 
     def row_text(self, r: int) -> str:
@@ -213,7 +238,6 @@ class LinePlot(Widget):
     def render_line(self, y: int) -> Strip:
         if self._built_for != (self.size.width, self.size.height):
             self._build()
-        base: Style = self.rich_style
         if y >= len(self._strips):
-            return Strip.blank(self.size.width, base)
-        return self._strips[y].apply_style(base)
+            return Strip.blank(self.size.width, self.rich_style)
+        return self._strips[y]

@@ -20,6 +20,7 @@ from textual.app import ComposeResult
 from textual.containers import Vertical
 from textual.content import Content
 from textual.screen import ModalScreen, Screen
+from textual.widget import Widget
 from textual.widgets import Footer, Static
 
 from .state import KILL_KEYS_TEXT, SafetyState
@@ -74,8 +75,9 @@ def bar_lines(state: SafetyState) -> Content:
     return Content.assemble(line1, "\n", line2)
 
 
-class SafetyBar(Static):
-    """Two lines of safety state; turns into an alarm when the link is lost or stale."""
+class SafetyBar(Widget):
+    """Two lines of safety state; turns into an alarm when the link is lost or stale.
+    Repainted, never re-laid out, when the state changes (it changes ten times a second)."""
 
     DEFAULT_CSS = """
     SafetyBar {
@@ -90,8 +92,9 @@ class SafetyBar(Static):
     """
 
     def __init__(self) -> None:
-        super().__init__("", markup=False)
+        super().__init__()
         self.state: SafetyState | None = None
+        self._content = Content("")
 
     def on_mount(self) -> None:
         self.watch(self.app, "safety", self.show_state, init=True)
@@ -101,12 +104,16 @@ class SafetyBar(Static):
         self.set_class(bool(state.alarm), "-alarm")
         self.set_class(state.motor == "tripped" and not state.alarm, "-tripped")
         self.set_class(state.motor in ("armed", "running") and not state.alarm, "-live")
-        self.update(bar_lines(state))
+        self._content = bar_lines(state)
+        self.refresh()
+
+    def render(self) -> Content:
+        return self._content
 
     @property
     def text(self) -> str:
         """The bar's plain text (for tests and logs)."""
-        return self.content.plain if hasattr(self.content, "plain") else str(self.content)
+        return self._content.plain
 
 
 NAV = (("1", "Live", "live"), ("2", "Experiments", "experiments"), ("3", "Gains", "gains"),

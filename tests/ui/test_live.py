@@ -61,7 +61,7 @@ def test_live_keys_and_pickers(make_app):
             # defaults come from the board's declarations: trip-limited signals first
             panels = [p.signal for p in live.query("PlotPanel")]
             assert panels[:2] == ["tilt", "wheel"]
-            title = str(live.query_one("#panel-1 .plot-title").content)
+            title = live.query_one("#panel-1 .plot-title").text
             assert "wheel" in title and "to trip at ±45" in title  # trip_wheel = 45 rev/s
             await press(pilot, "space")
             assert live.paused
