@@ -2,6 +2,7 @@
 predicted margins, and disturbance sweeps. Modules:
 
 - runner:      Experiment (arm through the interlock, modes, guards, recording, safe end)
+- guards:      Guards, guard limits, Progress, ExperimentResult, stop reasons
 - relay:       run_relay -> RelayRun (automatic amplitude, convergence, exact point)
 - pointmodel:  low-order models fitted to measured frequency-response points
 - balancefit:  balance-model fit and LQR gains for an unstable balance loop

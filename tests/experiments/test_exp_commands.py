@@ -43,6 +43,7 @@ def test_tune_text_on_the_balance_rig_says_rules_do_not_apply(capsys):
     code = main(["tune", "--port", "sim://balance?clock=virtual&seed=3", "--loop", "tilt"])
     out = capsys.readouterr().out
     assert code == 0
+    # METHODS.md §4: the ultimate-point rules do not apply to the unstable tilt loop
     assert "does not apply" in out and "ziegler-nichols-pid: no ultimate point" in out
     assert "pole-placement-pid" in out and "[SIMULATED]" in out
 
@@ -63,6 +64,8 @@ def test_sweep_with_a_profile_and_inline_gains(capsys):
                                "--gains", "firm:tilt_kp=1.24,tilt_ki=17.3,tilt_kd=0.0089",
                                "--amplitudes", "0.02", "--repeats", "2", "--settle", "1.5",
                                "--json"])
+    # DESIGN.md Decision 4 (sweep: metrics for one or more gain sets); both sets balance
+    # the demo rig (METHODS.md §6 start gains; a pole-placement set), common practice
     assert code == 0 and doc["stopped_by"] == "done"
     names = [s["name"] for s in doc["sets"]]
     assert names == ["balance start (demo)", "firm"]
@@ -73,6 +76,7 @@ def test_sweep_with_a_profile_and_inline_gains(capsys):
 
 
 def test_sweep_fall_exits_5_and_bad_gains_exit_2(capsys):
+    # P alone never stabilises the speed-drive tilt loop (METHODS.md §4 [calc]): it falls
     code = main(["sweep", "--port", "sim://balance?clock=virtual",
                  "--gains", "tilt_kp=0.3,tilt_ki=0", "--amplitudes", "0.02", "--repeats", "1"])
     assert code == 5 and "FELL" in capsys.readouterr().out

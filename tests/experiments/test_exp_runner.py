@@ -36,6 +36,7 @@ def test_board_trip_event_stops_the_experiment(open_sim):
     link = open_sim("sim://balance?seed=4")
     link.set(trip_tilt=1.2)
     # guard at the trip itself: the board's own trip event comes first
+    # PROTOCOL.md §6.3, §7.3: a trip switches the motor off, latches, and is announced
     run = run_relay(link, "tilt", amplitude=3.0, hysteresis=0.05, max_s=20.0,
                     guards=Guards(trip_fraction=1.0))
     st = link.status()
@@ -52,6 +53,8 @@ def test_cancel_leaves_the_motor_off_when_found_off(open_sim):
             cancel.set()  # like a person pressing cancel mid-relay
 
     run = run_relay(link, "tilt", cancel=cancel, progress=progress, max_s=30.0)
+    # DESIGN.md Decision 6 (common practice, no source): cancel ends in an orderly way,
+    # the motor back off as found, no latched fault
     assert run.stopped_by == "cancelled" and not run.experiment.killed
     st = link.status()
     assert (st.motor, st.mode, st.fault) == ("off", "off", None)
@@ -68,6 +71,7 @@ def test_cancel_returns_to_the_closed_loop_it_found(open_sim):
     run = run_relay(link, "tilt", cancel=cancel, max_s=30.0,
                     progress=lambda p: p.phase == "relay" and cancel.set())
     assert run.stopped_by == "cancelled"
+    # back in the closed loop it was found in (brief; common practice, no source)
     st = link.status()
     assert (st.motor, st.mode) == ("running", "hold")
     link.sleep(2.0)  # and it still balances
@@ -78,6 +82,7 @@ def test_latched_fault_refuses_and_nothing_runs(open_sim):
     link = open_sim("sim://balance")
     link.kill()
     link.sleep(0.1)
+    # PROTOCOL.md §7.3: with a latched fault arming is refused; it is not cleared for you
     with pytest.raises(ArmRefused) as info:
         with Experiment(link, name="x") as exp:
             exp.hold()
@@ -93,6 +98,7 @@ def test_interlock_refusal_carries_the_board_reasons(open_sim):
     with pytest.raises(ArmRefused) as info:
         with exp:
             exp.hold()
+    # PROTOCOL.md §7.3: the refusal names the failing conditions
     assert "tilt" in info.value.reasons
     assert link.status().motor == "off"
 
@@ -102,6 +108,8 @@ def test_lost_link_stops_with_lost(open_sim):
     with Experiment(link, name="unplug") as exp:
         exp.hold()
         exp.wait(10.0)
+    # DESIGN.md Decision 6: a lost link ends the experiment (the board's watchdog then
+    # turns the motor off, PROTOCOL.md §7.2)
     assert exp.result.stopped_by == "lost"
 
 
@@ -110,6 +118,7 @@ def test_stale_telemetry_kills(open_sim):
     with Experiment(link, name="stall", guards=Guards(stale_s=0.3)) as exp:
         exp.hold()
         exp.wait(10.0)
+    # DESIGN.md Decision 6: stale telemetry trips the guard and kills
     assert exp.result.stopped_by == "stale" and exp.result.killed
     link.sleep(1.5)  # the board acts on the kill once it runs again
     assert link.status().motor == "tripped"
@@ -117,6 +126,8 @@ def test_stale_telemetry_kills(open_sim):
 
 def test_guard_limits_follow_the_trip_parameters(open_sim):
     link = open_sim("sim://balance")
+    # PROTOCOL.md §5.2: trip_<signal> parameters name the limits; the board's are 20° and
+    # 45 rev/s (bench.rig.boards), the guards half of that here
     lim = guard_limits(link, Guards(trip_fraction=0.5, limits={"rate": 300.0}))
     assert lim == {"tilt": 10.0, "wheel": 22.5, "rate": 300.0}
     with pytest.raises(ValueError):
@@ -131,6 +142,6 @@ def test_results_dir_records_csv_and_sidecar(open_sim, tmp_path):
     res = exp.result
     assert res.stopped_by == "done" and res.recording == tmp_path / "hold-a-while.csv"
     from bench.recording import load_recording
-    rec = load_recording(res.recording)
+    rec = load_recording(res.recording)  # DESIGN.md Decision 5: CSV + YAML sidecar
     assert len(rec) == pytest.approx(len(res.t_s), abs=5)
     assert link.status().motor == "off"
