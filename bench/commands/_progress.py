@@ -6,6 +6,7 @@ Must not import Textual or bench.ui.
 
 from __future__ import annotations
 
+import shutil
 import sys
 
 
@@ -37,7 +38,8 @@ class ProgressBar:
             parts.append(f"a {est['amplitude']:.3g}")
         parts.append(f"{p.elapsed_s:6.1f} s")
         line = "  ".join(parts)
-        self.stream.write("\r" + line[:118].ljust(118))
+        cols = max(20, shutil.get_terminal_size((100, 20)).columns - 1)
+        self.stream.write("\r" + line[:cols].ljust(cols))
         self.stream.flush()
         self._shown = True
 

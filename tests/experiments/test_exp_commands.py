@@ -84,3 +84,25 @@ def test_sweep_fall_exits_5_and_bad_gains_exit_2(capsys):
     assert main(["sweep", "--port", "sim://balance?clock=virtual",
                  "--gains", "tilt_kq=1"]) == 2
     assert "no parameter" in capsys.readouterr().err
+
+
+def test_progress_bar_draws_only_on_a_terminal():
+    import io
+
+    from bench.commands._progress import ProgressBar
+    from bench.experiments.runner import Progress
+
+    p = Progress("relay tilt", "relay", 3.5, 60.0, 0.5, cycles=2, cycles_needed=4,
+                 estimate={"period_s": 0.24, "amplitude": 0.35})
+    tty = io.StringIO()
+    tty.isatty = lambda: True
+    bar = ProgressBar(tty)
+    bar(p)
+    bar.close()
+    text = tty.getvalue()
+    # one line redrawn in place (common practice, no source), half full at fraction 0.5
+    assert text.startswith("\r") and text.endswith("\n") and "2/4" in text
+    assert "[" + "#" * 12 + "." * 12 + "]" in text and "period 0.24 s" in text
+    pipe = io.StringIO()
+    ProgressBar(pipe)(p)
+    assert pipe.getvalue() == ""
