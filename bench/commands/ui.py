@@ -27,7 +27,8 @@ def add_parser(subparsers):
 def run(args) -> int:
     from bench.ui.app import RigApp
 
-    app = RigApp(args.port, stream_hz=args.stream_hz)
+    app = RigApp(args.port, stream_hz=args.stream_hz,
+                 baudrate=getattr(args, "baud", None) or 115200)
     app.theme = args.theme
     app.run()
     return 0

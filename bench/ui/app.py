@@ -100,9 +100,11 @@ class RigApp(App):
     link_serial: reactive[int] = reactive(0, init=False, repaint=False)  # bumps per new link
 
     def __init__(self, url: str = DEFAULT_URL, *, stream_hz: float = 250.0,
-                 safety_hz: float = 10.0, virtual_speed: float | None = 1.0) -> None:
+                 safety_hz: float = 10.0, virtual_speed: float | None = 1.0,
+                 baudrate: int = 115200) -> None:
         super().__init__()
         self.url = url
+        self.baudrate = baudrate
         self.virtual_speed = virtual_speed
         self.stream_hz = stream_hz
         self.safety_hz = safety_hz
@@ -156,7 +158,7 @@ class RigApp(App):
 
         def open_it() -> None:
             try:
-                link = Link.open(url)
+                link = Link.open(url, baudrate=self.baudrate)
             except Exception as exc:  # noqa: BLE001 - shown in words in the bar
                 self.post_message(LinkFailed(url, error_words(exc)))
                 return

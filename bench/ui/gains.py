@@ -65,12 +65,17 @@ class GainsScreen(GainsBoardActions, BenchScreen):
     def on_mount(self) -> None:
         self.query_one("#gains-table", DataTable).add_columns(
             "parameter", "unit", "range", "board", "new", "change")
-        self.query_one("#proposals", DataTable).add_columns(
-            "rank", "rule", "form", "kp", "ki", "kd", "predicted margins", "IAE", "note")
         self.watch(self.app, "link_serial", lambda _: self.setup(), init=False)
         self.setup()
 
     def on_screen_resume(self) -> None:
+        outcome = self.app.last_relay
+        if outcome is not None and not self.pending and outcome.loop_name != self.loop \
+                and self.app.link is not None and outcome.loop_name in self.app.link.loops:
+            self.loop = outcome.loop_name  # show the loop just tested
+            pick = self.query_one("#gains-loop", Select)
+            with pick.prevent(Select.Changed):
+                pick.value = self.loop
         self.show_table()
         self.show_proposals()
 
@@ -139,13 +144,15 @@ class GainsScreen(GainsBoardActions, BenchScreen):
     def show_proposals(self) -> None:
         outcome = self.app.last_relay
         table = self.query_one("#proposals", DataTable)
-        table.clear()
+        table.clear(columns=True)
+        table.add_columns("rank", "rule", "form", "kp", "ki", "kd", "predicted margins",
+                          "IAE", "note")
         self._proposals = []
         if outcome is None or outcome.proposals is None or outcome.loop_name != self.loop:
             why = outcome.proposal_error if outcome is not None and outcome.loop_name == \
                 self.loop and outcome.proposal_error else \
                 "none yet: run a relay test on this loop (Experiments screen, 2)"
-            table.add_row("", why, "", "", "", "", "", "", "")
+            table.add_row("", "", "", "", "", "", "", "", why)
             return
         self._proposals = proposal_items(outcome.proposals)
         for row in proposal_rows(outcome.proposals):

@@ -36,7 +36,10 @@ def staged_profile(link, loop: str, pending: dict, proposal=None, loaded=None):
     limits of ``loop`` with the pending values in place (read from the board now)."""
     if loaded is not None:
         return loaded
-    board = profiles.profile_from_board(link, loop, name=f"{loop} gains")
+    # a proposal may set another loop's gains too (the balance trim): carry them as gains
+    gains = link.loops[loop].gains
+    extra = [n for n in pending if n not in gains and not n.startswith(("trip_", "arm_"))]
+    board = profiles.profile_from_board(link, loop, name=f"{loop} gains", extra=extra)
     values = {**board.values(), **pending}
     prof = profile_push.board_values_profile(board, values)
     if proposal is not None:

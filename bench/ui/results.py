@@ -22,11 +22,10 @@ def margins_text(m) -> str:
         return "not predicted"
     if not m.stable:
         return "UNSTABLE on the model"
-    gm = f"GM {m.gain_margin_upper_db:.1f} dB" if m.gain_margin_upper_db is not None else "GM ∞"
-    if m.gain_margin_lower_db is not None:
-        gm += f" (low {m.gain_margin_lower_db:.1f} dB)"
-    pm = f"PM {m.phase_margin_deg:.0f}°" if m.phase_margin_deg is not None else "PM –"
-    return f"{gm}  {pm}  Ms {m.ms:.2f}"
+    up = f"{m.gain_margin_upper_db:.1f}" if m.gain_margin_upper_db is not None else "∞"
+    low = f"/{m.gain_margin_lower_db:.1f}" if m.gain_margin_lower_db is not None else ""
+    pm = f"{m.phase_margin_deg:.0f}°" if m.phase_margin_deg is not None else "–"
+    return f"GM {up}{low} dB  PM {pm}  Ms {m.ms:.2f}"
 
 
 def cycle_row(progress) -> tuple[str, ...] | None:

@@ -108,4 +108,4 @@ def headroom_text(r: Readout, *, short: bool = False) -> str:
     pct = 100.0 * max(r.headroom_fraction, 0.0)
     if short:
         return f"{pct:.0f} % left to ±{r.trip:g}"
-    return f"headroom {r.headroom:.3g} {r.unit} to trip at ±{r.trip:g} ({pct:.0f} %)"
+    return f"headroom {r.headroom:.3g} {r.unit} ({pct:.0f} %) to trip at ±{r.trip:g}"
