@@ -493,6 +493,9 @@ def figures(res: dict) -> list[tuple]:
                 f"{r['rig_s']:.1f} / {r['relay_s']:.1f} / {r['cycles']} / {r['wall_s']:.2f}", "")
             add("autotune", f"{name}: point gain / phase error",
                 f"{100 * r['gain_err']:+.2f} % / {r['phase_err_deg']:+.2f}°", "")
+            if "ku_err" in r:
+                add("autotune", f"{name}: Ku / Tu (describing function) vs exact",
+                    f"{100 * r['ku_err']:+.1f} % / {100 * r['tu_err']:+.1f} %", "")
     return rows
 
 
