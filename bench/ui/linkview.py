@@ -14,7 +14,7 @@ from textual import work
 from textual.app import ComposeResult
 from textual.binding import Binding
 from textual.containers import Horizontal, Vertical
-from textual.widgets import Button, Input, Label, Log, OptionList, Static
+from textual.widgets import Button, Checkbox, Input, Label, Log, OptionList, Static
 from textual.widgets.option_list import Option
 
 from .safety import BenchScreen
@@ -26,6 +26,13 @@ SIM_PORTS = (
     ("sim://plant?num=1&den=1,1&delay=0.1", "simulated lag + dead time"),
 )
 CONSOLE_LINES = 2000
+
+
+def is_chatter(text: str) -> bool:
+    """Telemetry, a heartbeat, or a bare frame start cut off by a read boundary: a display
+    filter on the text the link's tap gives, not a parser."""
+    body = text.lstrip("@")
+    return body == "" or body.startswith(("tm ", "hb|"))
 
 
 def list_serial_ports() -> list[tuple[str, str]]:
@@ -91,6 +98,8 @@ class LinkScreen(BenchScreen):
             yield Label("Console", classes="section")
             yield Input(placeholder="filter: show lines containing…", id="console-filter",
                         compact=True)
+            yield Checkbox("hide telemetry and heartbeats", True, compact=True,
+                           id="console-quiet")
         yield Static("", id="console-kind", markup=False)
         yield Log(max_lines=CONSOLE_LINES, id="console")
 
@@ -177,7 +186,8 @@ class LinkScreen(BenchScreen):
             kind.update("raw frames: > to the board, < from the board")
             cur = self._cursors.get("raw", 0)
             self._cursors["raw"], items = raw(cur)
-            lines = [str(item) for item in items]
+            quiet = self.query_one("#console-quiet", Checkbox).value
+            lines = [str(item) for item in items if not (quiet and is_chatter(item.text))]
         else:
             kind.update("decoded events and status frames (this link offers no raw-frame "
                         "tap); telemetry is on the live view")

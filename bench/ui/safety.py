@@ -36,28 +36,32 @@ LINK_STYLE = {"ok": "bold $success", "connecting": "bold $warning"}
 
 
 def bar_lines(state: SafetyState) -> Content:
-    """The bar's two lines as styled text (plain text, no markup parsing)."""
+    """The bar's two lines as styled text (plain text, no markup parsing). The most urgent
+    first, so a narrow terminal cuts the link figures, never the kill key or the motor."""
     sep = ("  │  ", "$text-muted")
+    parts: list = []
     if state.alarm:
-        first = Content.assemble(("  ALARM  ", "bold reverse $error"), " ",
-                                 (state.alarm, "bold $error"))
-    else:
-        link_parts = [("LINK ", "$text-muted"),
-                      (state.link, LINK_STYLE.get(state.link, "bold $error")),
-                      f"  {state.port}"]
-        if state.link == "ok":
-            link_parts.append(f"  {state.frames_per_s:.0f} frames/s  {state.errors} errors")
-        first = Content.assemble(*link_parts)
-    parts = [first]
-    if state.simulated:
-        parts += [sep, ("SIMULATED", "bold reverse $secondary")]
-    parts += [sep, ("MOTOR ", "$text-muted"),
-              (state.motor_text, MOTOR_STYLE.get(state.motor, "bold $error"))]
+        parts += [(" ALARM ", "bold reverse $error"), " ", (state.alarm, "bold $error"), sep]
+    parts += [("KILL ", "bold $error"), (KILL_KEYS_TEXT, "bold"), sep]
+    last_known = " (last known)" if state.alarm and state.motor != "unknown" else ""
+    parts += [("MOTOR ", "$text-muted"),
+              (state.motor_text + last_known, MOTOR_STYLE.get(state.motor, "bold $error"))]
     if state.mode and state.mode != "off":
         parts += [f"  mode {state.mode}"]
-    parts += [sep, ("KILL ", "bold $error"), (KILL_KEYS_TEXT, "bold")]
+    if state.simulated:
+        parts += [sep, ("SIMULATED", "bold reverse $secondary")]
+    parts.append(sep)
+    if state.alarm:
+        parts += [("LINK ", "$text-muted"), state.port]
+    else:
+        parts += [("LINK ", "$text-muted"),
+                  (state.link, LINK_STYLE.get(state.link, "bold $error")), f"  {state.port}"]
+        if state.link == "ok":
+            parts.append(f"  {state.frames_per_s:.0f} frames/s  {state.errors} errors")
     line1 = Content.assemble(*parts)
-    if state.motor == "tripped":
+    if state.alarm:
+        line2 = Content.assemble((state.alarm_detail or state.alarm, "bold $error"))
+    elif state.motor == "tripped":
         line2 = Content.assemble(("Tripped", "bold $error"),
                                  f" ({state.fault or 'cause not given'}): clear the fault "
                                  "(c), then arm again deliberately.")
@@ -83,6 +87,8 @@ class SafetyBar(Widget):
     SafetyBar {
         height: 2;
         padding: 0 1;
+        text-wrap: nowrap;
+        text-overflow: ellipsis;
         background: $panel;
         color: $foreground;
     }

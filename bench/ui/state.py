@@ -64,7 +64,8 @@ class SafetyState:
     mode: str = ""
     fault: str = ""  # trip cause in words, "" when none
     why: tuple[str, ...] = ()  # failing arm conditions in words
-    alarm: str = ""  # non-empty: the bar turns into an alarm with this text
+    alarm: str = ""  # non-empty: the bar turns into an alarm with this headline
+    alarm_detail: str = ""  # what happened, in words
     note: str = ""  # the last thing the app did or was told (kill sent, arm refused...)
 
     @property
@@ -104,23 +105,25 @@ def read_safety(link, *, port: str, note: str = "", failure: str = "",
     if link is None:
         state = "failed" if failure else "connecting"
         return SafetyState(link=state, port=port, note=note,
-                           alarm=f"NO LINK: {failure}" if failure else "")
+                           alarm="NO LINK" if failure else "", alarm_detail=failure)
     health = link.health()
     status = link.last_status
     info = link.info
     bad = sum(health.bad_frames.values()) if health.bad_frames else 0
     errors = bad + health.lost_frames  # bad_frames counts CRC failures too
-    alarm = ""
+    alarm = detail = ""
     since = health.since_rx_s
     if health.state == "lost":
-        alarm = "LINK LOST" + (f": {health.lost_reason}" if health.lost_reason else "")
+        alarm, detail = "LINK LOST", health.lost_reason or ""
     elif health.state == "closed":
         alarm = "LINK CLOSED"
     elif health.state == "reset":
-        alarm = "BOARD RESTARTED: handshake again before trusting any state"
+        alarm, detail = "BOARD RESTARTED", "handshake again before trusting any state"
     elif health.state == "stale" or (since is not None and since > stale_after_s):
         age = f" for {since:.1f} s" if since is not None and math.isfinite(since) else ""
-        alarm = f"TELEMETRY STALE: nothing received{age}"
+        alarm, detail = "TELEMETRY STALE", f"nothing received{age}"
+    if alarm and detail:
+        detail += "; the board's watchdog turns the motor off when heartbeats stop"
     # motor_state follows replies and trip events at once; status frames come 2-10 Hz
     motor = link.motor_state or (status.motor if status else "unknown")
     mode = status.mode if status else ""
@@ -131,5 +134,5 @@ def read_safety(link, *, port: str, note: str = "", failure: str = "",
     return SafetyState(
         link=health.state, port=port, frames_per_s=health.frames_per_s, errors=errors,
         simulated=bool(getattr(info, "simulated", False)), motor=motor, mode=mode,
-        fault=fault, why=why, alarm=alarm, note=note,
+        fault=fault, why=why, alarm=alarm, alarm_detail=detail, note=note,
     )

@@ -131,5 +131,7 @@ def test_open_failure_is_told_in_words(make_app):
         app = make_app("/dev/no-such-port-here")
         async with app.run_test(size=SIZE) as pilot:
             assert await wait_for(pilot, lambda: app.safety.link == "failed")
-            assert "not found" in app.safety.alarm and "Traceback" not in app.safety.alarm
+            assert app.safety.alarm == "NO LINK"
+            assert "not found" in app.safety.alarm_detail
+            assert "Traceback" not in app.safety.alarm_detail
     run(go())
