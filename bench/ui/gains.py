@@ -217,5 +217,6 @@ class GainsScreen(GainsBoardActions, BenchScreen):
         self.show_table()
 
     def action_reload(self) -> None:
-        self.app.board_command("read gains back", lambda link: f"{len(link.refresh_params())} parameters read",
+        self.app.board_command("read gains back",
+                               lambda link: f"{len(link.refresh_params())} parameters read",
                                on_done=lambda _: self.show_table())

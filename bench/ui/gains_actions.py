@@ -97,7 +97,8 @@ class GainsBoardActions:
                 self.say(f"PUSH NOT CONFIRMED: {why}")
         else:
             self.say(f"not pushed: {msg.text}")
-        self.app.board_command("read gains back", lambda link: f"{len(link.refresh_params())} parameters read",
+        self.app.board_command("read gains back",
+                               lambda link: f"{len(link.refresh_params())} parameters read",
                                on_done=lambda _: self.show_table())
 
     def action_store(self) -> None:
