@@ -16,7 +16,8 @@ is printed). Sections (``--only`` picks some):
 - ``sim``: simulated seconds per wall second: plants alone (scripts/bench_plants.py), boards
   in hold (scripts/bench_sim.py), a relay test through ``sim://`` and the host codec; and
   the balance model against ``scipy.integrate.solve_ivp`` at matched accuracy. Target ≥ 100×.
-- ``ui``: the terminal UI headless on the 2 kHz pty board: redraws per second and CPU share.
+- ``ui``: the terminal UI headless on the 2 kHz pty board (scripts/bench_ui.py's
+  ``measure``): redraws per second, time per redraw and CPU share.
 - ``autotune``: relay autotune on the METHODS.md §3 plants and both balance drives
   (scripts/bench_autotune.py helpers): rig seconds, cycles, point error.
 - ``startup``: how long ``rigbench kill`` takes to start (a kill from a fresh terminal).
@@ -327,31 +328,13 @@ def bench_sim(quick: bool) -> dict:
 # --------------------------------------------------------------------------- UI
 
 
-def bench_ui(seconds: float = 10.0) -> dict:
+def ui_figures(seconds: float = 10.0) -> dict:
+    """scripts/bench_ui.py's measurement, on the 2 kHz board in its own process."""
     import asyncio
 
-    from bench.ui.app import RigApp
-    from bench.ui.live import LiveScreen
-
-    async def go(path) -> dict:
-        app = RigApp(path, stream_hz=2000.0)
-        async with app.run_test(size=(130, 42)) as pilot:
-            for _ in range(2000):
-                if app.link is not None and app.safety.link == "ok" \
-                        and isinstance(app.screen, LiveScreen) and app.screen.redraws > 5:
-                    break
-                await pilot.pause(0.01)
-            live = app.screen
-            r0, w0, c0 = live.redraws, time.monotonic(), time.process_time()
-            await pilot.pause(seconds)
-            r1, w1, c1 = live.redraws, time.monotonic(), time.process_time()
-            h = app.link.health()
-            return {"stream_hz": app.stream_rate_hz, "redraws_per_s": (r1 - r0) / (w1 - w0),
-                    "cpu_share": (c1 - c0) / (w1 - w0), "telemetry_per_s": h.telemetry_per_s,
-                    "lost_frames": h.lost_frames, "refresh_hz": live.refresh_hz}
-
+    import bench_ui
     with PtyBoard() as board:
-        return asyncio.run(go(board.path))
+        return asyncio.run(bench_ui.measure(board.path, 2000.0, seconds))
 
 
 # --------------------------------------------------------------------------- autotune
@@ -421,7 +404,7 @@ SECTIONS = {
     "link": None,    # link and kill share one board process
     "kill": None,
     "sim": bench_sim,
-    "ui": lambda q: bench_ui(4.0 if q else 10.0),
+    "ui": lambda q: ui_figures(4.0 if q else 10.0),
     "autotune": lambda q: bench_autotune(1),
     "startup": lambda q: bench_startup(2 if q else 5),
 }
@@ -475,9 +458,13 @@ def figures(res: dict) -> list[tuple]:
                 iv["ratio"], "× faster")
     if "ui" in res:
         u = res["ui"]
-        add("ui", f"redraws per s (timer {u['refresh_hz']:g} Hz)", u["redraws_per_s"], "/s")
-        add("ui", f"CPU share at {u['telemetry_per_s']:.0f} rows/s", 100 * u["cpu_share"],
+        add("ui", "redraws per s", u["redraws_per_s"], "/s")
+        add("ui", "time per redraw, mean", u["redraw_ms_mean"], "ms")
+        add("ui", f"CPU share at {u['telemetry_rows_per_s']:.0f} rows/s (process / UI thread)",
+            f"{100 * u['cpu_share_process']:.0f} / {100 * u['cpu_share_ui_thread']:.0f}",
             "% of one core")
+        add("ui", "rows between redraws, mean / max",
+            f"{u['backlog_rows_mean']:.0f} / {u['backlog_rows_max']}", "rows")
     if "startup" in res:
         st = res["startup"]
         add("startup", "`rigbench kill --help`: wall / CPU", f"{st['cli_wall_s']:.2f} / "
