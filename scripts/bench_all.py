@@ -463,6 +463,7 @@ def figures(res: dict) -> list[tuple]:
         add("ui", f"CPU share at {u['telemetry_rows_per_s']:.0f} rows/s (process / UI thread)",
             f"{100 * u['cpu_share_process']:.0f} / {100 * u['cpu_share_ui_thread']:.0f}",
             "% of one core")
+        add("ui", "frames lost (counter gaps, whole session)", u["lost_frames"], "frames")
         add("ui", "rows between redraws, mean / max",
             f"{u['backlog_rows_mean']:.0f} / {u['backlog_rows_max']}", "rows")
     if "startup" in res:
