@@ -1,6 +1,6 @@
 """Run the fault-injection scenarios and print their figures as a Markdown table.
 
-The scenarios are the ones tests/faults runs (tests/faults/scenarios.py): a noisy line at
+The scenarios are the ones tests/faults runs (tests/faults/fault_scenarios.py): a noisy line at
 several rates, garbage before the handshake, partial lines, a stall, a board reset, an
 unplug mid-experiment and mid-recording, a host that dies, heartbeat starvation and a host
 process SIGKILLed on a pty-served board. The table in docs/FAULTS.md is this script's
@@ -27,7 +27,7 @@ ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
 sys.path.insert(0, str(ROOT / "tests" / "faults"))
 
-import scenarios  # noqa: E402
+import fault_scenarios as scenarios  # noqa: E402
 
 
 def _shows(o) -> str:

@@ -1,18 +1,18 @@
 """Fault injection: a noisy line, garbage, partial lines, a stall, a board reset, an unplug,
 a host that dies or starves the watchdog. For each, what the host shows, that nothing it
 accepted differs from what the board sent, that the motor ends off, and that the recording
-up to the fault loads and is in order. Scenarios: tests/faults/scenarios.py (the same ones
+up to the fault loads and is in order. Scenarios: tests/faults/fault_scenarios.py (the same ones
 print docs/FAULTS.md through scripts/fault_table.py). Virtual clock except the pty case."""
 
 import os
 
 import pytest
-from scenarios import (
+from fault_scenarios import (
     NOISE_RATES, garbage_before_handshake, heartbeat_every, host_killed_on_pty,
     host_stops, noisy_line, partial_lines, reset_mid_experiment, stall, unplug_mid_experiment,
     unplug_mid_recording,
 )
-from truth import BoardTap, compare
+from fault_truth import BoardTap, compare
 
 from bench.link import Link
 from bench.rig.simlink import SimLink

@@ -7,9 +7,10 @@ counters, an experiment's stop reason), what the board truly sent against what t
 accepted, the motor state on the board itself at the end, and whether the recording made
 up to the fault loads and is in order.
 
-The truth comes from a tap on the board's transmit side (truth.py: ``BoardTap``), *before*
-the simulated line corrupts or drops anything: every telemetry row, status frame and board
-event the host accepted is looked up there, and must be there with the same values.
+The truth comes from a tap on the board's transmit side (fault_truth.py: ``BoardTap``),
+*before* the simulated line corrupts or drops anything: every telemetry row, status frame
+and board event the host accepted is looked up there, and must be there with the same
+values.
 
 Helpers for tests only; imports bench (link, rig, recording, experiments) but is imported by
 nothing in bench.
@@ -27,8 +28,8 @@ import time
 from pathlib import Path
 
 import serial
-from shaped import MODEM_PROBE, ShapedPort
-from truth import BoardTap, Outcome, StateLog, compare, note_recording
+from fault_ports import MODEM_PROBE, ShapedPort
+from fault_truth import BoardTap, Outcome, StateLog, compare, note_recording
 
 import bench  # noqa: F401  (registers sim://)
 from bench.experiments.runner import Experiment, Guards
@@ -108,8 +109,9 @@ def noisy_line(kind: str, rate: float, *, seconds: float = 3.0, seed: int = 11,
     """Corrupt (flip a bit) or drop bytes at ``rate`` per byte, both directions, while the
     rig balances in hold with telemetry recorded; then kill over the same line."""
     url = SIM.format(seed=seed) + f"&{kind}={rate:g}"
-    out = Outcome(f"{kind} {rate:g}/byte", f"each byte {'bit-flipped' if kind == 'corrupt' else 'lost'} "
-                  f"with probability {rate:g}, both directions")
+    what = "bit-flipped" if kind == "corrupt" else "lost"
+    out = Outcome(f"{kind} {rate:g}/byte",
+                  f"each byte {what} with probability {rate:g}, both directions")
     port, sim, tap, link = _open(url, retries=40, reply_timeout_s=0.2)
     try:
         t0 = link.now()
