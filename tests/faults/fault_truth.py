@@ -18,6 +18,7 @@ from bench.recording import load_recording
 from bench.wire import HostCodec
 from bench.wire import messages as m
 
+
 class BoardTap:
     """What the board put on the wire, read from its transmit side before the line."""
 
