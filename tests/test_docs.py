@@ -28,3 +28,27 @@ def test_protocol_spec_states_crc_parameters_and_check_value():
     spec = (ROOT / "protocol" / "PROTOCOL.md").read_text()
     for needle in ("CRC-16/IBM-3740", "0x1021", "0xFFFF", "0x29B1", "0x18", "not an emergency stop"):
         assert needle in spec
+
+
+def _documented_commands():
+    text = (ROOT / "README.md").read_text()
+    for block in re.findall(r"```sh\n(.*?)```", text, re.S):
+        for line in block.splitlines():
+            line = line.split("  #")[0].strip()
+            if line.startswith("rigbench "):
+                yield line
+
+
+def test_readme_examples_parse_with_the_real_command_line():
+    # Docs drift from code: every `rigbench ...` example in the README must be accepted by
+    # the argument parser (common practice, no source).
+    import shlex
+
+    from bench.cli import build_parser
+
+    parser = build_parser()
+    examples = list(_documented_commands())
+    assert len(examples) >= 8
+    for line in examples:
+        args = parser.parse_args(shlex.split(line)[1:])
+        assert getattr(args, "_run", None) is not None, line
