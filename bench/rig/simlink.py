@@ -9,7 +9,9 @@ Faults (from ``SimOptions``; times are the board's simulated seconds since it wa
 - ``stall``: from ``stall_after_s`` for ``stall_for_s`` the firmware does not run (the
   plant does, with the last command held); host bytes wait in a 4 kB receive FIFO (excess
   lost) and are read after the first loop period once the firmware runs again (so a stall
-  longer than the watchdog timeout trips it, as a timer-driven loop would).
+  longer than the watchdog timeout trips it, as a timer-driven loop would). Bytes written
+  while the FIFO still holds older ones join it behind them: a UART's receive buffer keeps
+  order.
 - ``reset``: at ``reset_after_s`` the board reboots (``ev boot reason=reset``).
 - ``unplug``: at ``unplug_after_s`` the cable is gone: ``unplugged`` becomes True and the
   board stops.
@@ -109,11 +111,13 @@ class SimLink:
                 and o.stall_after_s <= t < o.stall_after_s + o.stall_for_s)
 
     def write(self, data: bytes) -> None:
-        """Host → board bytes through the line (the kill byte acts at once)."""
+        """Host → board bytes through the line. The board reads them at once (the kill byte
+        acts at once), unless it is stalled or its receive FIFO still holds older bytes: then
+        they queue behind those."""
         if self.unplugged:
             return
         data = self._line.carry(data)
-        if self.stalled:
+        if self.stalled or self._fifo:
             room = RX_FIFO_BYTES - len(self._fifo)
             self._fifo += data[:room]
             self.counts.fifo_lost += max(0, len(data) - room)

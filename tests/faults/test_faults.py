@@ -136,9 +136,6 @@ def test_the_comparison_catches_a_row_that_differs_from_what_was_sent(thread_err
         assert compare(link, tap).wrong == 1
 
 
-@pytest.mark.xfail(strict=True, reason="bug: bytes a host sends right after a stall overtake "
-                   "the bytes the stalled board queued in its receive FIFO (SimLink.write "
-                   "delivers at once while the FIFO still holds older bytes)")
 def test_bytes_queued_during_a_stall_are_read_before_later_ones():
     link = SimLink(parse_sim_url("sim://wheel?stall=0.1:0.5"))
     codec = HostCodec()
