@@ -88,9 +88,6 @@ def test_opening_any_url_gives_a_port_or_a_serial_exception(rig, pairs):
         port.close()
 
 
-@pytest.mark.xfail(strict=True, reason="bug: seed=\u00b2 (a character str.isdigit() accepts "
-                   "but int() does not) raises int()'s own ValueError, which does not name "
-                   "the option as every other bad value does")
 def test_a_bad_seed_error_names_the_option():
     with pytest.raises(ValueError, match="seed"):
         parse_sim_url("sim://balance?seed=\u00b2")

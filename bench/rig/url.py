@@ -21,6 +21,7 @@ Must not import serial, bench.link, bench.ui, Textual or control.
 from __future__ import annotations
 
 import math
+import re
 from dataclasses import dataclass
 from urllib.parse import parse_qsl, quote, urlsplit
 
@@ -29,6 +30,7 @@ __all__ = ["SimOptions", "parse_sim_url", "format_sim_url"]
 _COMMON = ("seed", "noise", "rate", "clock", "state", "corrupt", "drop", "stall", "reset",
            "unplug")
 _BY_RIG = {"balance": ("drive",), "wheel": (), "plant": ("num", "den", "delay")}
+_SEED_RE = re.compile(r"[0-9]{1,19}")
 
 
 @dataclass(frozen=True)
@@ -118,8 +120,9 @@ def parse_sim_url(url: str) -> SimOptions:
         elif key == "delay":
             kw["delay_s"] = _number(key, text, 0.0, 100.0)
         elif key == "seed":
-            if not text.isdigit() or len(text) > 19:
-                raise ValueError(f"sim:// option seed={text!r} must be a whole number >= 0")
+            if not _SEED_RE.fullmatch(text):      # ASCII digits: str.isdigit() takes '²'
+                raise ValueError(f"sim:// option seed={text!r} must be a whole number >= 0 "
+                                 "(at most 19 digits 0-9)")
             kw["seed"] = int(text)
         elif key == "noise":
             kw["noise"] = _number(key, text, 0.0, 100.0)
