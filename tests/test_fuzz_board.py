@@ -51,14 +51,15 @@ def commands(draw, board):
         return cls(seq, draw(st.integers(0, 255)))
     if shape == "version":
         return cls(seq, f"{draw(st.integers(0, 3))}.{draw(st.integers(0, 20))}")
-    if shape == "names":   # unique: a repeated name is the known bug tested below
-        return cls(seq, tuple(draw(st.lists(pname, min_size=1, max_size=4, unique=True))))
+    if shape == "names":   # repeats too: refused with bad_args (PROTOCOL.md §5.5)
+        return cls(seq, tuple(draw(st.lists(pname, min_size=1, max_size=4))))
     if shape == "assign":
         pairs = draw(st.lists(st.tuples(pname, _number), min_size=1, max_size=4))
         return cls(seq, tuple(pairs))
-    if shape == "rate":   # no rate below 1e-300 Hz: the known bug tested below
-        return cls(seq, draw(st.one_of(st.floats(-1e6, 0.0), st.floats(1e-300, 1e6),
-                                       st.sampled_from([0.0, 1.0, 100.0, 500.0]))))
+    if shape == "rate":   # subnormal rates too: loop rate / rate overflows to inf
+        return cls(seq, draw(st.one_of(st.floats(-1e6, 0.0), st.floats(0.0, 1e6),
+                                       st.sampled_from([0.0, 1.0, 100.0, 500.0, 1e-310,
+                                                        5e-324, 1e-7]))))
     name = draw(st.sampled_from(m.MODES))
     required, optional = MODE_KEYS[name]
     keys = draw(st.lists(st.sampled_from(sorted(set(required) | set(optional) | {"amp", "x"})),
@@ -66,9 +67,8 @@ def commands(draw, board):
     if draw(st.booleans()):
         keys = list(dict.fromkeys(list(required) + keys))
     values = {"loop": st.one_of(st.sampled_from(loops), _name),
-              # only the allowed words: any other is the known bug tested below
-              "shape": st.sampled_from(["pulse", "step"]),
-              "at": st.sampled_from(["setpoint", "output", "body"])}
+              "shape": st.one_of(st.sampled_from(["pulse", "step"]), _word),
+              "at": st.one_of(st.sampled_from(["setpoint", "output", "body"]), _word)}
     return cls(seq, name, tuple((k, draw(values.get(k, _word))) for k in keys))
 
 
@@ -186,36 +186,34 @@ def test_commands_split_anywhere_and_repeated_still_get_one_reply_each(data):
     assert len(got) == 2 and got[0] == got[1] and got[0].seq == cmd.seq
 
 
-@pytest.mark.xfail(strict=True, reason="bug: `get` naming a parameter twice is answered with "
-                   "`ok <seq> k=v k=v`, a frame whose key appears twice (illegal, PROTOCOL.md "
-                   "§3), so the host refuses the reply and Link.get times out; the board "
-                   "should refuse it with bad_args as `set` does")
 def test_get_with_a_repeated_name_gets_a_reply_the_host_can_read():
     board = make_board("wheel")
     board.receive(HostCodec.encode(m.Get(1, ("speed_kp", "speed_kp"))))
     replies = _replies(board, HostCodec())
     assert len(replies) == 1 and replies[0].seq == 1
+    # PROTOCOL.md §5.5: refused like a `set` naming a parameter twice
+    assert isinstance(replies[0], m.Err) and replies[0].code == "bad_args"
 
 
-@pytest.mark.xfail(strict=True, reason="bug: a `mode` field word outside its list (shape=ramp, "
-                   "at=floor) makes the simulated board raise LocalProtocolError while "
-                   "answering: its refusal text 'shape must be pulse|step' holds '|', which "
-                   "no frame body may; through sim:// the link is then marked lost")
-def test_a_mode_with_an_unknown_shape_is_refused_not_a_crash():
+@pytest.mark.parametrize("shape,at,word", [("ramp", "setpoint", "shape"),
+                                           ("pulse", "floor", "at")])
+def test_a_mode_with_an_unknown_shape_is_refused_not_a_crash(shape, at, word):
     board = make_board("wheel")
     board.receive(HostCodec.encode(m.Mode(1, "inject", (
-        ("loop", "speed"), ("shape", "ramp"), ("at", "setpoint"), ("amp", "1"),
+        ("loop", "speed"), ("shape", shape), ("at", at), ("amp", "1"),
         ("time_s", "1")))))
     (reply,) = _replies(board, HostCodec())
     assert isinstance(reply, m.Err) and reply.code == "bad_args"
+    assert reply.text.startswith(f"{word} must be ")      # names the field it refuses
 
 
-@pytest.mark.xfail(strict=True, reason="bug: `stream rate_hz=1e-310` (a legal number) makes the "
-                   "simulated board raise OverflowError: loop rate / rate is infinite and "
-                   "math.floor(inf) fails; it should answer with the slowest rate it can make "
-                   "or refuse with range")
-def test_a_vanishing_stream_rate_is_answered_not_a_crash():
+@pytest.mark.parametrize("rate_hz", [1e-310, 5e-324, 1e-300])
+def test_a_vanishing_stream_rate_is_answered_not_a_crash(rate_hz):
     board = make_board("wheel")
-    board.receive(HostCodec.encode(m.Stream(1, 1e-310)))
+    board.receive(HostCodec.encode(m.Stream(1, rate_hz)))
     (reply,) = _replies(board, HostCodec())
     assert reply.seq == 1
+    # PROTOCOL.md §6.1: the slowest rate the board makes, loop rate / (2**32 - 1)
+    assert isinstance(reply, m.Ok)
+    assert m.parse_number(reply.get("rate_hz")) == pytest.approx(board.rate_hz / (2**32 - 1),
+                                                                 rel=1e-6)

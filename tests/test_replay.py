@@ -8,8 +8,11 @@ import pytest
 import bench  # noqa: F401  (registers sim:// and replay://)
 from bench.cli import main
 from bench.handlers.protocol_replay import ReplayOptions, parse_replay_url
+from bench.handlers.replay_board import ReplayBoard
 from bench.link import BoardRefused, Link, LinkError
 from bench.recording import Recorder, load_recording
+from bench.wire import HostCodec
+from bench.wire import messages as m
 
 
 @pytest.fixture(scope="module")
@@ -166,3 +169,15 @@ def test_real_clock_replay_serves_recorded_rows(recording):
     k = np.searchsorted(recording.frame, block.frame)
     assert len(block) >= 1
     np.testing.assert_array_equal(block.values, recording.values[k])
+
+
+def test_a_vanishing_rate_and_a_repeated_name_are_answered_as_a_board_does(recording):
+    board = ReplayBoard(recording)
+    board.receive(HostCodec.encode(m.Stream(1, 1e-310)) +
+                  HostCodec.encode(m.Get(2, ("tilt_kp", "tilt_kp"))))
+    replies = [x for x in HostCodec().receive(board.drain()) if isinstance(x, (m.Ok, m.Err))]
+    # PROTOCOL.md §6.1: the slowest rate (recorded rate / (2**32 - 1)); §5.5: bad_args
+    assert [r.seq for r in replies] == [1, 2]
+    assert m.parse_number(replies[0].get("rate_hz")) == pytest.approx(250 / (2**32 - 1),
+                                                                      rel=1e-6)
+    assert isinstance(replies[1], m.Err) and replies[1].code == "bad_args"

@@ -38,6 +38,7 @@ from bench.wire.frame import BadFrame
 __all__ = ["ReplayBoard", "READ_ONLY"]
 
 READ_ONLY = "replay is read-only"
+STREAM_DIV_MAX = (1 << 32) - 1   # the largest telemetry divider, as the simulated board's
 U32 = 1 << 32
 _REFUSE = {m.Set: "busy", m.Arm: "state", m.Disarm: "state", m.Mode: "state",
            m.Clear: "state", m.Save: "state", m.Restore: "state", m.Kill: "state"}
@@ -255,6 +256,8 @@ class ReplayBoard:
                 return m.Err(seq, "unknown_name", f"index {cmd.index}")
             return m.Ok(seq, tuple(table[cmd.index].to_fields()))
         if kind is m.Get:
+            if len(set(cmd.names)) != len(cmd.names):  # PROTOCOL.md §5.5, as a board does
+                return m.Err(seq, "bad_args", "a name given twice")
             byname = {p.name: p for p in self.params}
             missing = [n for n in cmd.names if n not in byname]
             if missing:
@@ -272,7 +275,7 @@ class ReplayBoard:
         if rate == 0:
             self.stream_div = 0
             return m.Ok(seq, (("rate_hz", 0),))
-        ratio = self.rate_hz / rate
+        ratio = min(self.rate_hz / rate, STREAM_DIV_MAX)   # §6.1: the slowest below that
         lo, hi = max(1, math.floor(ratio)), max(1, math.ceil(ratio))
         self.stream_div = lo if abs(self.rate_hz / lo - rate) <= abs(self.rate_hz / hi - rate) \
             else hi

@@ -196,10 +196,11 @@ class Link:
         return self.channel.request(cmd_cls, *args, timeout_s=timeout_s, **kwargs)
 
     def _get_raw(self, names) -> dict[str, str]:
-        """``get`` in as many frames as the body length needs; values as the board wrote them."""
+        """``get`` in as many frames as the body length needs; values as the board wrote them.
+        Each name is asked once (a board refuses a ``get`` naming one twice, PROTOCOL.md §5.5)."""
         batches: list[list[str]] = []
         size = 0
-        for name in names:
+        for name in dict.fromkeys(names):
             cost = len(name) + 17  # " name=" and a value of up to 15 characters
             if not batches or size + cost > _REPLY_BUDGET:
                 batches.append([])

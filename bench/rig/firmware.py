@@ -12,7 +12,8 @@ What it implements (PROTOCOL.md section beside the code):
 - §4 every command gets exactly one reply; a command repeated with the sequence number of
   the last answered one gets that reply again and is not acted on (§4.2). A repeated
   number with a different command is taken as a new command (a new host session may
-  restart its numbering).
+  restart its numbering). Every ``err`` text passes through ``refusal_text`` (the one
+  place that makes it legal in a frame body, §2).
 - §5 discovery from the rig's declaration (bench.rig.boards); atomic ``set``; ``save`` /
   ``restore`` through ``NvStore``; the board boots with its stored values.
 - §6 telemetry at loop rate / n with a 32-bit frame counter and µs clock, status at 5 Hz,
@@ -42,12 +43,23 @@ from bench.wire.codec import BoardCodec
 from bench.wire.frame import BadFrame, KillByte
 from bench.wire.states import INTERLOCK_CONDITIONS, REFUSALS, next_state
 
-__all__ = ["SimBoard", "make_board", "FW_VERSION"]
+__all__ = ["SimBoard", "make_board", "refusal_text", "FW_VERSION"]
 
 STATUS_HZ = 5.0
 U32 = 1 << 32
 _MESSAGE_ERRORS = {"bad_number": "bad_args", "bad_field": "bad_args",
                    "unknown_verb": "unknown_verb"}
+ERR_TEXT_MAX = 80      # characters of an ``err`` text; the whole reply stays under 193 (§2)
+_ERR_TEXT_SWAP = str.maketrans({"|": "/", "@": "?", "'": None})
+
+
+def refusal_text(text: str, *, max_chars: int = ERR_TEXT_MAX) -> str:
+    """The text of an ``err`` reply as it may go in a frame body (PROTOCOL.md §2): ``|``
+    becomes ``/``, ``@`` and anything outside printable ASCII ``?``, quotes go, runs of
+    blanks become one space, at most ``max_chars`` characters."""
+    text = text.translate(_ERR_TEXT_SWAP)
+    text = "".join(c if " " <= c <= "~" else "?" for c in " ".join(text.split()))
+    return text[:max_chars].rstrip()
 
 
 class SimBoard(BoardCommands):
@@ -306,8 +318,8 @@ class SimBoard(BoardCommands):
             return
         if reply_code == "bad_args" and tokens[0] not in m.COMMANDS:
             return
-        text = ev.detail.replace("'", "")[:60]
-        self.tx.put(self._encode(m.Err(int(tokens[1]), reply_code, text)), "reply")
+        self.tx.put(self._encode(m.Err(int(tokens[1]), reply_code, refusal_text(ev.detail))),
+                    "reply")
 
     def _command(self, cmd: m.Command) -> None:
         if cmd == self._last_cmd:                     # §4.2: resend, do not act again
@@ -316,7 +328,7 @@ class SimBoard(BoardCommands):
         handler = getattr(self, "_on_" + cmd.VERB)
         result = handler(cmd)
         if isinstance(result, tuple):
-            reply = m.Err(cmd.seq, result[0], result[1])
+            reply = m.Err(cmd.seq, result[0], refusal_text(result[1]))
         else:
             reply = m.Ok(cmd.seq, tuple(result))
         data = self._encode(reply)

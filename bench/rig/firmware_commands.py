@@ -18,9 +18,10 @@ from bench.wire.describe import BoardInfo, LoopInfo, SignalInfo, parse_version
 from bench.wire.errors import RemoteProtocolError
 from bench.wire.states import REFUSALS, next_state
 
-__all__ = ["BoardCommands", "FW_VERSION"]
+__all__ = ["BoardCommands", "FW_VERSION", "STREAM_DIV_MAX"]
 
 FW_VERSION = "0.1.0"
+STREAM_DIV_MAX = (1 << 32) - 1   # the telemetry divider is a 32-bit counter (§6.1)
 
 
 class BoardCommands:
@@ -57,6 +58,8 @@ class BoardCommands:
                         lp.relay).to_fields()
 
     def _on_get(self, cmd):
+        if len(set(cmd.names)) != len(cmd.names):      # the reply could not hold a key twice
+            return "bad_args", "a name given twice"
         for name in cmd.names:
             if name not in self.params:
                 return "unknown_name", f"no parameter {name}"
@@ -120,7 +123,9 @@ class BoardCommands:
         if rate == 0.0:
             self.stream_div = 0
             return [("rate_hz", 0)]
-        ratio = self.rate_hz / rate                     # nearest loop rate / n (§6.1)
+        # nearest loop rate / n (§6.1); below loop rate / STREAM_DIV_MAX the slowest (a rate
+        # as small as 1e-310 makes the ratio overflow to inf, hence the min before floor)
+        ratio = min(self.rate_hz / rate, STREAM_DIV_MAX)
         lo, hi = max(1, math.floor(ratio)), max(1, math.ceil(ratio))
         div = lo if abs(self.rate_hz / lo - rate) <= abs(self.rate_hz / hi - rate) else hi
         self.stream_div = div

@@ -72,7 +72,8 @@ def parse_mode(name: str, args, rig: RigDef, params: dict[str, float], *,
             return ModeRefusal("bad_args", f"{key} is not a number")
     for key, allowed in _WORDS.items():
         if key in fields and fields[key] not in allowed:
-            return ModeRefusal("bad_args", f"{key} must be {'|'.join(allowed)}")
+            words = ", ".join(allowed[:-1]) + " or " + allowed[-1]
+            return ModeRefusal("bad_args", f"{key} must be {words}")
     if name == "relay":
         if nums["amp"] <= 0.0:
             return ModeRefusal("range", "amp > 0")

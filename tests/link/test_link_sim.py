@@ -90,3 +90,15 @@ def test_sleeping_on_the_simulated_clock_moves_time_too(sim_link):
     sim_link.clock.sleep(2.0)
     assert sim_link.now() - t0 == pytest.approx(2.0, abs=0.05)
     assert 190 <= len(sim_link.read_since(cur)[1]) <= 205
+
+
+def test_get_asks_for_a_repeated_name_once(sim_link):
+    # PROTOCOL.md §5.5: a board refuses a `get` naming a parameter twice, so the host
+    # sends each name once and still answers for every name it was given
+    cursor = sim_link.raw_cursor()
+    got = sim_link.get("tilt_kp", "tilt_ki", "tilt_kp")
+    assert got == {"tilt_kp": sim_link.port.board.params.values["tilt_kp"],
+                   "tilt_ki": sim_link.port.board.params.values["tilt_ki"]}
+    sent = [r.text for r in sim_link.raw_since(cursor)[1] if r.direction == ">"
+            and r.text.startswith("@get ")]
+    assert len(sent) == 1 and sent[0].split("|")[0].split(" ")[2:] == ["tilt_kp", "tilt_ki"]
