@@ -12,6 +12,11 @@ parent when that folder is named ``sequences`` (the layout ``profiles/``, ``sequ
 ``results/``). No absolute paths, no ``..``, nothing that resolves (through symlinks) outside
 the project folder. Recording names are plain file names inside the results folder.
 
+``port:`` names only a serial device (``/dev/...``, ``COMn``) or a ``sim://`` URL without
+``state=`` (a simulated board's storage file could be anywhere); any other URL (a network
+socket, a replayed file) is refused. ``rigbench run --port`` is not limited: that is the
+user's own choice, not the file's.
+
 Must not import textual, bench.ui, bench.commands, bench.link or control.
 """
 
@@ -23,6 +28,7 @@ from dataclasses import replace
 from pathlib import Path, PurePosixPath
 
 from bench.profiles import load_profile
+from bench.rig.url import parse_sim_url
 from bench.sequence_steps import *  # noqa: F401,F403  (the step types are this module's API)
 from bench.sequence_steps import (
     GUARD_KEYS, MAX_STEPS, METRICS, OPS, ArmStep, CheckStep, DisarmStep, Guards, HoldStep,
@@ -43,6 +49,8 @@ _OPTIONS = ("timeout_s", "guards")
 _RECORD_NAME = r"[A-Za-z0-9][A-Za-z0-9_.{}-]{0,63}"
 _CHECK_TEXT = re.compile(r"\s*([a-z_.]+)\s*(<=|>=|<|>)\s*(\S+)\s*\Z")
 _NUMBER = re.compile(r"-?[0-9]+(\.[0-9]*)?([eE][-+]?[0-9]+)?\Z")
+_DEVICE_PATH = r"/dev/[A-Za-z0-9_.:+,=-]+(/[A-Za-z0-9_.:+,=-]+)*"
+_COM_PORT = r"COM[1-9][0-9]{0,2}"
 
 
 # --------------------------------------------------------------------------- reading
@@ -87,12 +95,38 @@ class _Reader:
             name=m["name"].text(pattern=r"[^\n\r]{1,80}", what="one line of at most 80 characters"),
             path=self.path, project=self.project, guards=guards,
             on_abort=m["on_abort"].choice(("kill", "disarm")) if "on_abort" in m else "kill",
-            steps=steps, port=m["port"].text(max_len=300) if "port" in m else None,
+            steps=steps, port=self.port(m["port"]) if "port" in m else None,
             rig=m["rig"].text(max_len=48) if "rig" in m else None,
             notes=m["notes"].text(max_len=20000) if "notes" in m else None,
             demo=m["demo"].boolean() if "demo" in m else False)
         self.check_expanded(seq, m["steps"])
         return seq
+
+    def port(self, cur: Cursor) -> str:
+        """A serial device or a ``sim://`` URL that writes no file (see the module docstring)."""
+        text = cur.text(max_len=300)
+        if text.startswith("/dev/"):
+            if not re.fullmatch(_DEVICE_PATH, text) or ".." in text.split("/") \
+                    or "://" in text:
+                raise cur.error(f"{text!r} is not a device path (/dev/ then names of letters, "
+                                f"digits and - _ . : + , =)")
+            return text
+        if re.fullmatch(_COM_PORT, text):
+            return text
+        if text.startswith("sim://"):
+            try:
+                options = parse_sim_url(text)
+            except ValueError as exc:
+                raise cur.error(str(exc)) from None
+            if options.state_path is not None:
+                raise cur.error("sim:// state= makes the simulated board write its storage "
+                                "file wherever state= points, and a sequence writes only inside "
+                                "its results folder: leave state= out, or give the port with "
+                                "rigbench run --port")
+            return text
+        raise cur.error(f"{text!r} is not a port a sequence may name: give a serial device "
+                        f"(/dev/..., COMn) or a sim:// URL; other URLs (network sockets, "
+                        f"replays) only with rigbench run --port")
 
     def guards(self, cur: Cursor) -> Guards:
         m = cur.mapping(optional=GUARD_KEYS)

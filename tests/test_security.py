@@ -20,6 +20,7 @@ import pytest
 import yaml
 
 import bench  # noqa: F401  (sim:// handler)
+from bench.cli import main
 from bench.link import Link
 from bench.profiles import load_profile, load_profile_text
 from bench.recording import RecordingError, load_recording
@@ -211,10 +212,6 @@ def test_a_run_writes_only_inside_its_results_folder(tmp_path, monkeypatch):
     assert result is not None
 
 
-@pytest.mark.xfail(strict=True, reason="bug: a sequence's `port:` is any URL, so "
-                   "`sim://...&state=PATH` makes `rigbench run` write the simulated board's "
-                   "storage file at PATH, outside the results folder (and socket:// would "
-                   "open a network connection); `port:` in a sequence file should be limited")
 def test_a_sequence_port_cannot_write_files_outside_the_results_folder(tmp_path, monkeypatch):
     proj = _project(tmp_path / "proj")
     outside = tmp_path / "outside.json"
@@ -222,10 +219,46 @@ def test_a_sequence_port_cannot_write_files_outside_the_results_folder(tmp_path,
         "  - push: {profile: profiles/w.yaml, persist: true}\n",
         port=f"sim://wheel?clock=virtual&state={outside}"))
     monkeypatch.chdir(proj)
-    seq = load_sequence(proj / "sequences" / "s.yaml")   # as `rigbench run` does without --port
-    with Link.open(seq.port) as link:
-        run_sequence(link, sequence=seq, results_dir=proj / "results" / "r")
+    # refused as `rigbench run` loads it, before any port is opened: file, line and field
+    with pytest.raises(SchemaError) as err:
+        load_sequence(proj / "sequences" / "s.yaml")
+    assert (err.value.path, err.value.line, err.value.field) == \
+        (str(proj / "sequences" / "s.yaml"), 3, "port") and "state=" in err.value.message
     assert not outside.exists()
+
+
+@pytest.mark.parametrize("port", [
+    "socket://localhost:7777", "rfc2217://localhost:2217", "loop://", "spy:///dev/ttyUSB0",
+    "replay:///etc/passwd", "SIM://wheel?state=/tmp/x", "sim://wheel?clock=virtual&state=nv.json",
+    "/dev/../etc/passwd", "/etc/passwd", "ttyUSB0", "/dev/tty USB0", "/dev/x://y", "COM0"])
+def test_a_sequence_port_is_a_device_or_a_sim_url_that_writes_no_file(port, tmp_path):
+    proj = _project(tmp_path / "proj")
+    with pytest.raises(SchemaError) as err:
+        load_sequence_text(_seq("  - arm\n", port=port), proj / "sequences" / "s.yaml")
+    assert err.value.line == 3 and err.value.field == "port"
+
+
+@pytest.mark.parametrize("port", [
+    "/dev/ttyUSB0", "/dev/ttyACM1", "/dev/pts/7", "COM3", "COM12",
+    "/dev/serial/by-path/pci-0000:00:14.0-usb-0:1:1.0-port0",
+    "sim://balance?clock=virtual&seed=4&stall=1:0.2", "sim://plant?num=1&den=1,1"])
+def test_a_sequence_port_may_be_a_device_or_a_sim_url(port, tmp_path):
+    proj = _project(tmp_path / "proj")
+    seq = load_sequence_text(_seq("  - arm\n", port=port), proj / "sequences" / "s.yaml")
+    assert seq.port == port
+
+
+def test_the_command_line_port_still_chooses_any_url(tmp_path, monkeypatch, capsys):
+    # --port is the user's own choice: a sim:// board keeping its storage in a file works
+    proj = _project(tmp_path / "proj")
+    (proj / "sequences" / "s.yaml").write_text(_seq(
+        "  - push: {profile: profiles/w.yaml, persist: true}\n"))
+    nv = tmp_path / "nv.json"
+    code = main(["run", str(proj / "sequences" / "s.yaml"), "--no-plots",
+                 "--out", str(proj / "results" / "r"),
+                 "--port", f"sim://wheel?clock=virtual&state={nv}"])
+    capsys.readouterr()
+    assert code == 0 and nv.exists()
 
 
 # --------------------------------------------------------------------------- pty, sockets
