@@ -5,7 +5,8 @@ several rates, garbage before the handshake, partial lines, a stall, a board res
 unplug mid-experiment and mid-recording, a host that dies, heartbeat starvation and a host
 process SIGKILLed on a pty-served board. The table in docs/FAULTS.md is this script's
 output. The figures vary a little from run to run (thread timing moves where the line's
-random faults land); "accepted but wrong" must always be 0 and the motor always off.
+random faults land); the motor must always end off, and "accepted but wrong" stay within
+what a CRC-16 lets through (0 for flipped bits; about one line in 65 536 that lost bytes).
 
     python scripts/fault_table.py [--seconds 3] [--noise-only] [--no-pty] [--json]
 
@@ -58,15 +59,15 @@ def _motor(o) -> str:
 
 def table(outcomes) -> str:
     head = ("| scenario | fault injected | line bytes hit | telemetry sent | accepted | lost "
-            "(host counted) | lines refused | accepted but wrong | host shows | motor at end "
-            "(board) | recording | notes |")
+            "(host counted) | lines refused | accepted but wrong (CRC-16 allows) | host shows | "
+            "motor at end (board) | recording | notes |")
     rows = [head, "|" + "---|" * 12]
     for o in outcomes:
         sent = str(o.frames_sent) if o.frames_sent else "–"
         rows.append(
             f"| {o.scenario} | {o.fault} | {o.line_bytes_hit} | {sent} | {o.frames_accepted} | "
             f"{o.telemetry_lost} ({o.host_counted_lost}) | {o.lines_rejected} | "
-            f"**{o.accepted_wrong}** | {_shows(o)} | {_motor(o)} | {_recording(o)} | {o.notes} |")
+            f"**{o.accepted_wrong}** (≤ {o.wrong_allowed}) | {_shows(o)} | {_motor(o)} | {_recording(o)} | {o.notes} |")
     return "\n".join(rows)
 
 
@@ -93,8 +94,8 @@ def main(argv=None) -> int:
         else:
             outcomes.append(run())
     wall = time.perf_counter() - t0
-    bad = [o.scenario for o in outcomes if o.accepted_wrong or not o.motor_off
-           or o.recording_ok is False]
+    bad = [o.scenario for o in outcomes if o.accepted_wrong > o.wrong_allowed
+           or not o.motor_off or o.recording_ok is False]
     if args.json:
         print(json.dumps({"wall_s": wall, "failed": bad,
                           "scenarios": [asdict(o) | {"motor_off": o.motor_off} for o in outcomes]},
@@ -103,7 +104,8 @@ def main(argv=None) -> int:
         print(table(outcomes))
         print(f"\n{len(outcomes)} scenarios in {wall:.1f} s wall; "
               f"{sum(o.accepted_wrong for o in outcomes)} accepted frames differed from what "
-              f"the board sent; motor off at the end in "
+              f"the board sent (a CRC-16 lets {sum(o.wrong_allowed for o in outcomes)} through "
+              f"at most, except with probability 1e-6 each); motor off at the end in "
               f"{sum(o.motor_off for o in outcomes)}/{len(outcomes)}.")
         if bad:
             print("FAILED: " + ", ".join(bad))

@@ -15,7 +15,8 @@ MODEM_PROBE = (b"AT\r\nAT+CGMI\r\nATE0V1\r\n+++\r\n\x00\xff\xfe~\x7f@@@|\r\n@tm 
 class ShapedPort:
     """A port wrapper: ``prefix`` bytes arrive before anything the board sends, and reads
     are cut into pieces of 1..``max_piece`` bytes with a cut-off frame start (``@tm 7``)
-    slipped in every ``glitch_every`` reads. Composition: everything else is the port's."""
+    slipped in on one read in ``glitch_every`` on average, at random (a fixed period could
+    fall on the same byte of every resend). Composition: everything else is the port's."""
 
     def __init__(self, port, *, prefix: bytes = b"", max_piece: int | None = None,
                  glitch_every: int = 0, seed: int = 0) -> None:
@@ -44,7 +45,7 @@ class ShapedPort:
         if self._max_piece:
             size = min(size, int(self._rng.integers(1, self._max_piece + 1)))
         data = self._port.read(size)
-        if data and self._glitch_every and self.reads % self._glitch_every == 0:
+        if data and self._glitch_every and self._rng.random() * self._glitch_every < 1.0:
             self.glitches += 1
             data = b"@tm 7 " + data
         return data

@@ -111,7 +111,8 @@ def noisy_line(kind: str, rate: float, *, seconds: float = 3.0, seed: int = 11,
     url = SIM.format(seed=seed) + f"&{kind}={rate:g}"
     what = "bit-flipped" if kind == "corrupt" else "lost"
     out = Outcome(f"{kind} {rate:g}/byte",
-                  f"each byte {what} with probability {rate:g}, both directions")
+                  f"each byte {what} with probability {rate:g}, both directions",
+                  damage="bit flips" if kind == "corrupt" else "bytes lost or inserted")
     port, sim, tap, link = _open(url, retries=40, reply_timeout_s=0.2)
     try:
         t0 = link.now()
@@ -157,8 +158,8 @@ def garbage_before_handshake(*, seconds: float = 2.0, seed: int = 12, workdir: P
 
 
 def partial_lines(*, seconds: float = 2.0, seed: int = 13, workdir: Path) -> Outcome:
-    """Reads cut into pieces of 1..7 bytes, and every 40th read a cut-off frame start
-    slipped in mid-stream: each breaks the frame it lands in."""
+    """Reads cut into pieces of 1..7 bytes, and on one read in 40 (at random) a cut-off
+    frame start slipped in mid-stream: each breaks the frame it lands in."""
     url = SIM.format(seed=seed)
     shaped = []
 
@@ -167,7 +168,8 @@ def partial_lines(*, seconds: float = 2.0, seed: int = 13, workdir: Path) -> Out
         return shaped[0]
 
     port, sim, tap, link = _open(url, wrap=wrap, retries=10)
-    out = Outcome("partial lines", "reads of 1..7 bytes; a cut-off frame start every 40th read")
+    out = Outcome("partial lines", "reads of 1..7 bytes; a cut-off frame start on 1 read in 40",
+                  damage="bytes lost or inserted")
     try:
         t0 = link.now()
         log = StateLog(link)

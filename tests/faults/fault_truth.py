@@ -7,6 +7,7 @@ Helpers for tests/faults and scripts/fault_table.py only.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass, field
 from pathlib import Path
 
@@ -88,6 +89,32 @@ def compare(link: Link, tap: BoardTap) -> Accepted:
 
 # --------------------------------------------------------------------------- outcomes
 
+# What a CRC-16 lets through. CRC-16/IBM-3740 (polynomial 0x1021) has Hamming distance 4 at
+# these frame lengths: every frame with up to three flipped bits is caught (Koopman &
+# Chakravarty 2004, "Cyclic redundancy code (CRC) polynomial selection for embedded
+# networks", DSN; value from memory). A line that lost or gained bytes is, to the CRC, a
+# random body, and passes with probability 2^-16 (common practice, no source).
+CRC_PASS = 2.0 ** -16
+DAMAGE = ("none", "bit flips", "bytes lost or inserted")
+
+
+def wrong_allowed(lines_damaged: int, damage: str, *, p_exceed: float = 1e-6) -> int:
+    """The most wrong frames a CRC-16 lets through among ``lines_damaged`` damaged lines,
+    except with probability ``p_exceed`` (Poisson tail). 0 for no damage or bit flips (a
+    frame with four or more flipped bits is too rare at the rates tried to count)."""
+    if damage not in DAMAGE:
+        raise ValueError(f"damage must be one of {DAMAGE}")
+    if damage != "bytes lost or inserted":
+        return 0
+    lam = lines_damaged * CRC_PASS
+    k, term, tail = 0, math.exp(-lam), 1.0 - math.exp(-lam)   # tail = P(X > k)
+    while tail > p_exceed:
+        k += 1
+        term *= lam / k
+        tail -= term
+    return k
+
+
 
 @dataclass
 class Outcome:
@@ -104,7 +131,8 @@ class Outcome:
     frames_sent: int = 0               # telemetry frames the board sent
     frames_accepted: int = 0           # telemetry rows the host accepted
     lines_rejected: int = 0            # received lines the host refused (all codes)
-    accepted_wrong: int = 0            # accepted rows/status/events not as sent (must be 0)
+    accepted_wrong: int = 0            # accepted rows/status/events not as sent
+    damage: str = "none"               # what the fault does to lines (DAMAGE)
     telemetry_lost: int = 0            # sent but not accepted
     host_counted_lost: int = 0         # telemetry the host counted missing (frame gaps)
     host_events: list = field(default_factory=list)   # link happenings and board trips seen
@@ -119,6 +147,11 @@ class Outcome:
     @property
     def motor_off(self) -> bool:
         return self.motor_end in ("off", "tripped")
+
+    @property
+    def wrong_allowed(self) -> int:
+        """Wrong frames a CRC-16 may let through here (see ``wrong_allowed``)."""
+        return wrong_allowed(self.lines_rejected, self.damage)
 
 
 class StateLog:

@@ -12,7 +12,7 @@ from fault_scenarios import (
     host_stops, noisy_line, partial_lines, reset_mid_experiment, stall, unplug_mid_experiment,
     unplug_mid_recording,
 )
-from fault_truth import BoardTap, compare
+from fault_truth import CRC_PASS, BoardTap, compare, wrong_allowed
 
 from bench.link import Link
 from bench.rig.simlink import SimLink
@@ -22,8 +22,19 @@ from bench.wire import messages as m
 
 
 def _never_wrong_and_off(out):
-    assert out.accepted_wrong == 0, out
+    # nothing wrong accepted beyond what a CRC-16 lets through (0 unless lines lost bytes)
+    assert out.accepted_wrong <= out.wrong_allowed, out
     assert out.motor_off, out
+
+
+@pytest.mark.parametrize("lines", [1, 10, 900, 16000, 10**6])
+def test_the_crc_allowance_is_the_poisson_tail(lines):
+    # scipy.stats.poisson as the outside reference for the tail sum
+    from scipy.stats import poisson
+    k = wrong_allowed(lines, "bytes lost or inserted")
+    lam = lines * CRC_PASS
+    assert poisson.sf(k, lam) <= 1e-6 and (k == 0 or poisson.sf(k - 1, lam) > 1e-6)
+    assert wrong_allowed(lines, "bit flips") == 0 == wrong_allowed(lines, "none")
 
 
 @pytest.mark.parametrize("kind", ["corrupt", "drop"])
@@ -32,6 +43,8 @@ def test_noisy_line_loses_frames_but_never_accepts_a_wrong_one(kind, rate, tmp_p
                                                                 thread_errors):
     out = noisy_line(kind, rate, workdir=tmp_path)
     _never_wrong_and_off(out)
+    if kind == "corrupt":
+        assert out.accepted_wrong == 0          # flipped bits: every damaged frame is caught
     assert out.line_bytes_hit > 0 and out.lines_rejected > 0
     assert out.link_state == "ok"
     assert out.fault_end == "kill"              # the kill got through the same line
@@ -65,6 +78,7 @@ def test_stall_mid_experiment_stops_it_as_stale_and_the_motor_ends_off(tmp_path,
     _never_wrong_and_off(out)
     assert out.stopped_by == "stale" and "kill" in out.host_events
     assert out.motor_end == "tripped" and out.host_motor == "tripped"
+    assert out.fault_end == "watchdog"          # its own watchdog, before the queued kill
     assert out.link_state == "ok"               # the board answers again after the stall
     assert out.recording_ok and 0 <= out.recording_gap_s <= 0.01
 
