@@ -5,7 +5,7 @@ is printed). Sections (``--only`` picks some):
 
 - ``codec``: telemetry frames decoded per second on one core (``HostCodec.receive`` on the
   balance board's real output in read-sized chunks), against 20 000 lines/s (USB full-speed
-  CDC, METHODS.md §7); target ≥ 10×. Also with the reader's filing into the ring.
+  CDC, docs/METHODS.md §7); target ≥ 10×. Also with the reader's filing into the ring.
 - ``link``: a simulated balance board at 2 kHz on a pseudo-terminal in another process,
   paced in real time, its µs clock set to the monotonic clock; ``Link.open`` on the device
   path here. Frames lost (target 0), latency from the board's time stamp to the row being in
@@ -18,7 +18,7 @@ is printed). Sections (``--only`` picks some):
   the balance model against ``scipy.integrate.solve_ivp`` at matched accuracy. Target ≥ 100×.
 - ``ui``: the terminal UI headless on the 2 kHz pty board (scripts/bench_ui.py's
   ``measure``): redraws per second, time per redraw and CPU share.
-- ``autotune``: relay autotune on the METHODS.md §3 plants and both balance drives
+- ``autotune``: relay autotune on the docs/METHODS.md §3 plants and both balance drives
   (scripts/bench_autotune.py helpers): rig seconds, cycles, point error.
 - ``startup``: how long ``rigbench kill`` takes to start (a kill from a fresh terminal).
 
@@ -47,7 +47,7 @@ import bench  # noqa: E402,F401  (registers sim://)
 from bench.wire import HostCodec  # noqa: E402
 from bench.wire import messages as m  # noqa: E402
 
-USB_CDC_LINES_S = 20_000.0   # METHODS.md §7: 0.4–1.0 MB/s ≈ 20 000 lines of 48 bytes
+USB_CDC_LINES_S = 20_000.0   # docs/METHODS.md §7: 0.4–1.0 MB/s ≈ 20 000 lines of 48 bytes
 U32 = 1 << 32
 
 
@@ -183,7 +183,8 @@ def _tap_ring(link) -> list:
     return seen
 
 
-def bench_link_and_kill(seconds: float = 10.0, kills: int = 100) -> tuple[dict, dict]:
+def bench_link_and_kill(seconds: float = 10.0, kills: int = 100) -> dict:
+    """{'link': figures, 'kill': figures} from one 2 kHz board process."""
     from bench.link import Link
     with PtyBoard() as board:
         with Link.open(board.path) as link:
@@ -234,7 +235,7 @@ def bench_link_and_kill(seconds: float = 10.0, kills: int = 100) -> tuple[dict, 
     link_fig["board_late_steps"] = board.stats.get("late_steps")
     for key in ("output_late_median_ms", "output_late_p99_ms"):
         link_fig["board_" + key] = board.stats.get(key)
-    return link_fig, kill_fig
+    return {"link": link_fig, "kill": kill_fig}
 
 
 # --------------------------------------------------------------------------- simulators
@@ -523,7 +524,7 @@ def main(argv=None) -> int:
             if "link" in res or "kill" in res:
                 continue
             q = args.quick
-            res["link"], res["kill"] = bench_link_and_kill(4.0 if q else 10.0, 30 if q else 100)
+            res.update(bench_link_and_kill(4.0 if q else 10.0, 30 if q else 100))
         else:
             res[name] = SECTIONS[name](args.quick)
         if not args.json:
