@@ -4,7 +4,9 @@ numbers, loop periods, heartbeats and kill bytes in between. The board must neve
 must give exactly one reply per command with the command's sequence number and a documented
 error code, keep every parameter inside its declared range, apply a ``set`` wholly or not
 at all, and follow the interlock: nothing but a successful ``arm`` leaves ``off`` or
-``tripped`` for an enabled state, a kill always trips, ``clear`` never starts the motor.
+``tripped`` for an enabled state, a kill always trips, ``clear`` never starts the motor. A
+command identical to the last one answered (same sequence number and body) is a resend: it
+gets the same reply and changes nothing (§4.2), even after a kill byte in between.
 """
 
 import math
@@ -101,6 +103,7 @@ def test_every_command_gets_exactly_one_documented_reply_and_the_rules_hold(sess
     board.receive(host.encode(m.Heartbeat()))
     _replies(board, host)
     assert _in_range(board)
+    last = None                                       # the last command answered, as read
     for action, cmd, n in steps:
         if action == "hb":
             board.receive(host.encode(m.Heartbeat()))
@@ -124,6 +127,12 @@ def test_every_command_gets_exactly_one_documented_reply_and_the_rules_hold(sess
         assert len(replies) == 1, (cmd, replies)      # PROTOCOL.md §4: exactly one reply
         reply = replies[0]
         assert reply.seq == cmd.seq
+        (read,) = BoardCodec().receive(frame)
+        if last is not None and read == last[0]:      # §4.2: the same command again is a
+            assert reply == last[1]                   # resend: the same reply, not acted on
+            assert board.motor == before_motor and board.params.values == before_vals
+            continue
+        last = (read, reply)
         if isinstance(reply, m.Err):
             assert reply.code in ERROR_CODES, reply
         assert _in_range(board), cmd                  # §4.3 range: the old value stays
@@ -217,3 +226,18 @@ def test_a_vanishing_stream_rate_is_answered_not_a_crash(rate_hz):
     assert isinstance(reply, m.Ok)
     assert m.parse_number(reply.get("rate_hz")) == pytest.approx(board.rate_hz / (2**32 - 1),
                                                                  rel=1e-6)
+
+
+def test_a_clear_resent_after_a_kill_gets_its_old_reply_and_leaves_the_fault():
+    # PROTOCOL.md §4.2: a resend (same seq, same body) is not acted on again, so a retry of
+    # a clear sent before a kill cannot undo the kill; a new clear can
+    board = make_board("wheel")
+    board.receive(HostCodec.encode(m.Heartbeat()) + HostCodec.encode(m.Clear(5)))
+    board.output()
+    board.receive(KILL)
+    board.receive(HostCodec.encode(m.Clear(5)))
+    (again,) = _replies(board, HostCodec())
+    assert again == m.Ok(5, (("motor", "off"),)) and board.motor == "tripped"
+    board.receive(HostCodec.encode(m.Clear(6)))
+    (new,) = _replies(board, HostCodec())
+    assert new == m.Ok(6, (("motor", "off"),)) and board.motor == "off" and board.fault is None
