@@ -5,7 +5,7 @@ sequences checked against a board."""
 from __future__ import annotations
 
 from bench.rig.boards import rig_def
-from bench.wire.describe import BoardInfo, LoopInfo, ParamInfo
+from bench.wire.describe import BoardInfo, ParamInfo
 
 
 def declared(rig: str):
@@ -13,8 +13,7 @@ def declared(rig: str):
     rd = rig_def(rig)
     params = {p.name: ParamInfo(i, p.name, p.unit, p.minimum, p.maximum, p.default, p.writable)
               for i, p in enumerate(rd.params)}
-    loops = {lp.name: LoopInfo(i, lp.name, lp.measure, lp.output, lp.gains, lp.plant, lp.relay)
-             for i, lp in enumerate(rd.loops)}
+    loops = {lp.name: lp.declared(i) for i, lp in enumerate(rd.loops)}
     info = BoardInfo((1, 0), rd.board, "0.1.0", rd.rig, rd.rate_hz, rd.watchdog_ms,
                      len(params), len(rd.signals), len(loops), True)
     return params, loops, [s.name for s in rd.signals], info

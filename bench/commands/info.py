@@ -3,12 +3,16 @@ parameters, signals, loops), its status and the link's health.
 
 ``--json`` keys: ``board``, ``params`` (by name, in declaration order), ``signals`` (in
 telemetry order), ``loops`` (by name), ``status`` (latest status frame or null),
-``health`` (link counters). Values are in the board's declared units.
+``health`` (link counters). Values are in the board's declared units. A loop's optional
+fields (PROTOCOL.md §5.4: ``setpoint``, ``limit``, ``dfilt``, ``rate``, ``action``) are null
+when the board does not declare them.
 
 Must not import Textual or bench.ui.
 """
 
 from __future__ import annotations
+
+from bench.wire.describe import LOOP_OPTIONAL
 
 from ._common import add_json_option, add_port_option, open_link, plain, print_json, table
 
@@ -38,7 +42,8 @@ def collect(link) -> dict:
                    for n, p in link.params.items()},
         "signals": [{"index": s.index, "name": s.name, "unit": s.unit} for s in link.signals],
         "loops": {n: {"index": lp.index, "measure": lp.measure, "output": lp.output,
-                      "gains": list(lp.gains), "plant": lp.plant, "relay": lp.relay}
+                      "gains": list(lp.gains), "plant": lp.plant, "relay": lp.relay,
+                      **{k: getattr(lp, k) for k in LOOP_OPTIONAL}}
                   for n, lp in link.loops.items()},
         "status": plain(link.last_status),
         "health": plain(link.health()),
@@ -63,7 +68,8 @@ def describe(data: dict) -> str:
             table([[s["name"], s["unit"]] for s in data["signals"]]), "",
             f"loops ({len(data['loops'])})"]
     out.append(table([[n, f"{lp['measure']} -> {lp['output']}", "gains " + ",".join(lp["gains"]),
-                       f"plant {lp['plant']}", f"relay {lp['relay']}"]
+                       f"plant {lp['plant']}", f"relay {lp['relay']}",
+                       " ".join(f"{k}={lp[k]}" for k in LOOP_OPTIONAL if lp.get(k))]
                       for n, lp in data["loops"].items()]))
     st = data["status"]
     if st:

@@ -12,11 +12,14 @@ model as a plant in the board's units, and the LQR design turned into the board'
 - Board units: the model is θ[rad]/u[SI]; the loop's plant in board units is that times
   f_out/f_in (bench.units factors of the output and measure units).
 - LQR (bench.tuning.balance_design) gives the tilt loop kp, kd (ki = 0) and an outer
-  wheel-speed trim θ_sp = trim_kp·w + trim_ki·∫w. A board whose outer loop is direct
-  (e = wheel_sp − wheel: its plant, tilt set-point → wheel speed, has positive gain since
-  the wheel accelerates to hold a lean) applies θ_sp = −(its kp·w + ki·∫w), so the
-  board's trim gains are the negatives, converted to its units. If they come out outside
-  the declared ranges the proposal says so.
+  wheel-speed trim θ_sp = trim_kp·w + trim_ki·∫w. A board whose outer loop is reverse
+  acting (e = wheel_sp − wheel: its plant, tilt set-point → wheel speed, has positive gain
+  since the wheel accelerates to hold a lean) applies θ_sp = −(its kp·w + ki·∫w), so the
+  board's trim gains are the negatives, converted to its units; on a direct-acting outer
+  loop (e = wheel − wheel_sp) they keep their sign. The action is the one the outer loop
+  declares (PROTOCOL.md §5.4), reverse when it declares none. If the gains come out
+  outside the declared ranges the proposal says so.
+- The rate signal (a gyro) is converted from its own declared unit.
 
 Must not import: textual, bench.ui, bench.commands, control.
 """
@@ -31,6 +34,8 @@ import numpy as np
 from bench.tuning.balance import BalanceModel, design_lqr, fit_balance_model
 from bench.tuning.loop import PlantModel
 from bench.units import gain_from_si, si_factor
+
+from .conventions import loop_action
 
 __all__ = ["fit_from_run", "board_plant", "lqr_board_gains", "LqrBoardGains",
            "simulate_state_feedback"]
@@ -55,8 +60,8 @@ def fit_from_run(run, *, cutoff_hz: float = 8.0, wheel_lag_samples: float = 0.5,
         f_in = si_factor(ls.measure_unit)
         f_out = si_factor(ls.output_unit)
         tilt = res.column(ls.measure)[sl] * f_in
-        rate = (res.column(ls.rate)[sl] * f_in if ls.rate
-                else np.gradient(tilt, dt))
+        rate = (res.column(ls.rate)[sl] * si_factor(res.units[res.signals.index(ls.rate)])
+                if ls.rate else np.gradient(tilt, dt))
         if ls.wheel:
             w = res.column(ls.wheel)[sl] * si_factor(res.units[res.signals.index(ls.wheel)])
             if wheel_lag_samples:
@@ -110,11 +115,13 @@ def lqr_board_gains(model: BalanceModel, ls, board, **lqr_kw) -> LqrBoardGains:
             lp = outer[0]
             trim_loop = lp.name
             w_unit = board.units[lp.measure]
-            # θ_sp = −(trim_kp·w + trim_ki·∫w) on a direct outer loop (module docstring)
-            trim = {lp.gains[0]: -gain_from_si(d.pid.details["trim_kp"], ls.measure_unit,
-                                               w_unit, "1"),
-                    lp.gains[1]: -gain_from_si(d.pid.details["trim_ki"], ls.measure_unit,
-                                               w_unit, "1/s"),
+            # θ_sp = −(trim_kp·w + trim_ki·∫w) on a reverse-acting outer loop, + on a
+            # direct-acting one (module docstring)
+            sign = 1.0 if loop_action(lp) == "direct" else -1.0
+            trim = {lp.gains[0]: sign * gain_from_si(d.pid.details["trim_kp"],
+                                                     ls.measure_unit, w_unit, "1"),
+                    lp.gains[1]: sign * gain_from_si(d.pid.details["trim_ki"],
+                                                     ls.measure_unit, w_unit, "1/s"),
                     lp.gains[2]: 0.0}
     gains = {ls.gains[0]: kp, ls.gains[1]: 0.0, ls.gains[2]: kd, **trim}
     for name, value in gains.items():

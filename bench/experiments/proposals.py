@@ -203,6 +203,11 @@ def propose(run: RelayRun, *, margin_deg: float = 45.0, ms_max: float = 2.0,
     model = fit_process_model(run.points, kind=kind, static_gain=static)
     plant = model.plant_model()
     direct = model.gain < 0
+    if "action" in ls.declared and ls.direct_acting != direct:
+        notes.append(f"the board declares action={ls.action} for this loop but the relay "
+                     f"test measured a plant gain of sign {'−' if direct else '+'}, which "
+                     f"needs {'direct' if direct else 'reverse'} action: the predictions "
+                     "follow the measurement")
     point = run.point
     off = abs(((point.phase_deg + (180.0 if direct else 0.0)) + 180.0 + 180.0) % 360.0 - 180.0)
     mu = _model_ultimate(plant, point.omega_rad_s, direct) if model.fit_rms <= fit_ok else None
@@ -273,7 +278,7 @@ def _propose_unstable(run, margin_deg, ms_max, band, cutoff_hz, notes) -> Propos
     ls, an, board = run.loop, run.analysis, run.board
     model, why = fit_from_run(run, cutoff_hz=cutoff_hz)
     plant = board_plant(model, ls) if model is not None else None
-    direct = True if plant is None else plant.num[0] / plant.den[0] < 0
+    direct = ls.direct_acting if plant is None else plant.num[0] / plant.den[0] < 0
     if model is None:
         notes.append(f"no model: {why}; margins cannot be predicted")
     # the output's swing in the relay test sizes the simulated disturbance

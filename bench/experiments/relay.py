@@ -178,8 +178,9 @@ def run_relay(link, loop: str, *, amplitude: float | None = None,
         raise ValueError(f"loop {loop!r} runs an integral relay but the board streams no "
                          "'relay' signal to show its state")
     if ls.relay == "output" and amplitude is None and ls.output_limit is None:
-        raise ValueError(f"give the relay amplitude: the board declares no "
-                         f"{ls.output}_limit to size it from")
+        raise ValueError(f"give the relay amplitude: the board declares no output limit "
+                         f"(limit= in the loop reply, or a parameter {ls.output}_limit) to "
+                         "size it from")
     state = {"settings": None, "sigma": None, "u0": None, "y0": None, "analysis": None,
              "t_relay": None, "t_conv": None, "fit": None, "stop": None, "reason": ""}
     exp = Experiment(link, name=f"relay {loop}", guards=guards, cancel=cancel,

@@ -31,6 +31,7 @@ from collections.abc import Callable
 from dataclasses import dataclass, replace
 
 from bench.rig.plants import ComplementaryFilter, make_balance, make_plant, make_wheel
+from bench.wire.describe import LoopInfo
 
 __all__ = ["ParamDef", "SignalDef", "LoopDef", "RigDef", "RIGS", "rig_def"]
 
@@ -61,12 +62,13 @@ class LoopDef:
     """One PID loop (PROTOCOL.md §5.4).
 
     ``direct``: e = setpoint − measure (True) or e = measure − setpoint (False, for a plant
-    whose gain is negative). ``setpoint``: a parameter name, or the output signal of the
-    loop outside this one. ``setpoint_signal``: the telemetry signal showing the set-point
-    in use, if any. ``limit``: parameter holding the symmetric output limit. ``dfilt``:
-    parameter holding the derivative filter time constant (s). ``rate``: a signal that
-    measures d(measure)/dt directly (a gyro), used for the derivative term instead of a
-    difference of samples.
+    whose gain is negative); on the wire that is ``action=reverse`` and ``action=direct``
+    respectively (the trade's words: a direct-acting controller's output rises with the
+    measure). ``setpoint``: a parameter name, or the output signal of the loop outside this
+    one. ``setpoint_signal``: the telemetry signal showing the set-point in use, if any.
+    ``limit``: parameter holding the symmetric output limit. ``dfilt``: parameter holding
+    the derivative filter time constant (s). ``rate``: a signal that measures d(measure)/dt
+    directly (a gyro), used for the derivative term instead of a difference of samples.
     """
 
     name: str
@@ -81,6 +83,17 @@ class LoopDef:
     dfilt: str
     setpoint_signal: str | None = None
     rate: str | None = None
+
+    @property
+    def action(self) -> str:
+        return "reverse" if self.direct else "direct"
+
+    def declared(self, index: int) -> LoopInfo:
+        """What the board's ``loop`` reply says about this loop, optional fields included:
+        the set-point as seen in telemetry (else the parameter holding it)."""
+        return LoopInfo(index, self.name, self.measure, self.output, self.gains, self.plant,
+                        self.relay, setpoint=self.setpoint_signal or self.setpoint,
+                        limit=self.limit, dfilt=self.dfilt, action=self.action, rate=self.rate)
 
 
 class Instruments:

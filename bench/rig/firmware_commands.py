@@ -14,7 +14,7 @@ import math
 
 from bench.rig.firmware_modes import ModeRefusal, applied_fields, parse_mode
 from bench.wire import messages as m
-from bench.wire.describe import BoardInfo, LoopInfo, SignalInfo, parse_version
+from bench.wire.describe import BoardInfo, SignalInfo, parse_version
 from bench.wire.errors import RemoteProtocolError
 from bench.wire.states import REFUSALS, next_state
 
@@ -53,9 +53,7 @@ class BoardCommands:
     def _on_loop(self, cmd):
         if cmd.index >= len(self.rig.loops):
             return "unknown_name", f"no loop {cmd.index}"
-        lp = self.rig.loops[cmd.index]
-        return LoopInfo(cmd.index, lp.name, lp.measure, lp.output, lp.gains, lp.plant,
-                        lp.relay).to_fields()
+        return self.rig.loops[cmd.index].declared(cmd.index).to_fields()
 
     def _on_get(self, cmd):
         if len(set(cmd.names)) != len(cmd.names):      # the reply could not hold a key twice

@@ -137,6 +137,10 @@ class SignalInfo:
 
 PLANT_KINDS = ("stable", "integrating", "unstable")
 RELAY_STYLES = ("output", "integral")
+ACTIONS = ("direct", "reverse")
+# Optional fields of a loop reply that name a signal or parameter (PROTOCOL.md §5.4).
+LOOP_NAME_FIELDS = ("setpoint", "limit", "dfilt", "rate")
+LOOP_OPTIONAL = (*LOOP_NAME_FIELDS, "action")
 
 
 @dataclass(frozen=True)
@@ -147,6 +151,13 @@ class LoopInfo:
     whether a relay test replaces the loop output (``output``) or switches a set-point
     offset on the integral channel while the loop stays closed (``integral``, for
     open-loop-unstable loops); ``plant`` what the board author knows of the open loop.
+
+    Optional (None when the board does not declare them; the host then falls back on the
+    conventions of PROTOCOL.md §5.4): ``setpoint`` the signal (or else parameter) showing
+    the set-point, ``limit`` the parameter holding the output limit, ``dfilt`` the parameter
+    holding the derivative filter's time constant, ``action`` ``direct`` (e = measure −
+    setpoint) or ``reverse`` (e = setpoint − measure), ``rate`` a signal measuring
+    d(measure)/dt.
     """
 
     index: int
@@ -156,6 +167,11 @@ class LoopInfo:
     gains: tuple[str, str, str]
     plant: str
     relay: str
+    setpoint: str | None = None
+    limit: str | None = None
+    dfilt: str | None = None
+    action: str | None = None
+    rate: str | None = None
 
     @classmethod
     def from_fields(cls, items: Fields) -> "LoopInfo":
@@ -167,15 +183,25 @@ class LoopInfo:
             raise RemoteProtocolError("bad_field", f"plant={plant} is not one of {PLANT_KINDS}")
         if relay not in RELAY_STYLES:
             raise RemoteProtocolError("bad_field", f"relay={relay} is not one of {RELAY_STYLES}")
+        given = dict(items)
+        for key in LOOP_NAME_FIELDS:
+            value = given.get(key)
+            if value is not None and not NAME_RE.match(value):
+                raise RemoteProtocolError("bad_field", f"{key}={value} is not a name")
+        action = given.get("action")
+        if action is not None and action not in ACTIONS:
+            raise RemoteProtocolError("bad_field", f"action={action} is not one of {ACTIONS}")
         return cls(_int(items, "index"), _need(items, "name"), _need(items, "measure"),
-                   _need(items, "output"), gains, plant, relay)
+                   _need(items, "output"), gains, plant, relay,
+                   **{k: given.get(k) for k in LOOP_OPTIONAL})
 
     def to_fields(self) -> list[tuple[str, object]]:
-        return [
+        out: list[tuple[str, object]] = [
             ("index", self.index), ("name", self.name), ("measure", self.measure),
             ("output", self.output), ("gains", ",".join(self.gains)),
             ("plant", self.plant), ("relay", self.relay),
         ]
+        return out + [(k, getattr(self, k)) for k in LOOP_OPTIONAL if getattr(self, k) is not None]
 
 
 def format_value(value: float) -> str:

@@ -23,6 +23,13 @@ def frame(body: str) -> str:
     return "@%s|%04X\n" % (body, crc16(body.encode()))
 
 
+# A loop reply with every optional field of PROTOCOL.md §5.4.
+_LOOP_FULL = ("ok 4 index=1 name=tilt measure=tilt output=cmd gains=tilt_kp,tilt_ki,tilt_kd "
+              "plant=unstable relay=integral setpoint=sp limit=cmd_limit dfilt=tilt_dfilt_s "
+              "rate=rate action=direct")
+_LOOP_BARE = ("ok 4 index=0 name=trim measure=wheel output=sp gains=trim_kp,trim_ki,trim_kd "
+              "plant=integrating relay=output")
+
 # (direction, body, meaning). direction: who sends it: "host" or "board".
 GOOD = [
     ("host", "hello 1 1.0", {"type": "Hello", "seq": 1, "version": "1.0"}),
@@ -87,6 +94,11 @@ GOOD = [
     ("board", "ev 0 boot reason=power", {"type": "Event", "time_us": 0, "kind": "boot", "fields": {"reason": "power"}}),
     ("board", "ev 777 mode mode=relay loop=tilt",
      {"type": "Event", "time_us": 777, "kind": "mode", "fields": {"mode": "relay", "loop": "tilt"}}),
+    ("board", _LOOP_FULL, {"type": "Ok", "seq": 4, "fields": {
+        "index": "1", "name": "tilt", "measure": "tilt", "output": "cmd",
+        "gains": "tilt_kp,tilt_ki,tilt_kd", "plant": "unstable", "relay": "integral",
+        "setpoint": "sp", "limit": "cmd_limit", "dfilt": "tilt_dfilt_s", "rate": "rate",
+        "action": "direct"}}),
 ]
 
 # (direction, raw line as written (escapes allowed), error code it must raise)
@@ -117,17 +129,46 @@ BAD = [
     ("board", frame("wat 1"), "unknown_verb"),
 ]
 
+_LOOP_DECL = {"index": 1, "name": "tilt", "measure": "tilt", "output": "cmd",
+              "gains": ["tilt_kp", "tilt_ki", "tilt_kd"], "plant": "unstable",
+              "relay": "integral"}
+_NO_OPTIONAL = {"setpoint": None, "limit": None, "dfilt": None, "rate": None, "action": None}
+
+# Replies to `loop` (PROTOCOL.md §5.4): frames the codec reads (an ok reply), then what the
+# host reads from their fields: the declared loop (absent optional fields: null), or the
+# error code. (body, declaration or error code)
+LOOP_REPLIES = [
+    (_LOOP_FULL, {**_LOOP_DECL, "setpoint": "sp", "limit": "cmd_limit",
+                  "dfilt": "tilt_dfilt_s", "rate": "rate", "action": "direct"}),
+    (_LOOP_BARE, {**_LOOP_DECL, **_NO_OPTIONAL, "index": 0, "name": "trim", "measure": "wheel",
+                  "output": "sp", "gains": ["trim_kp", "trim_ki", "trim_kd"],
+                  "plant": "integrating", "relay": "output"}),
+    (_LOOP_BARE + " setpoint=wheel_sp action=reverse",
+     {**_LOOP_DECL, **_NO_OPTIONAL, "index": 0, "name": "trim", "measure": "wheel",
+      "output": "sp", "gains": ["trim_kp", "trim_ki", "trim_kd"], "plant": "integrating",
+      "relay": "output", "setpoint": "wheel_sp", "action": "reverse"}),
+    (_LOOP_FULL.replace("action=direct", "action=sideways"), "bad_field"),
+    (_LOOP_FULL.replace("limit=cmd_limit", "limit=Cmd_Limit"), "bad_field"),
+    (_LOOP_FULL.replace("rate=rate", "rate=deg/s"), "bad_field"),
+    (_LOOP_FULL.replace("plant=unstable", "plant=wobbly"), "bad_field"),
+]
+
 
 def main() -> None:
     out = {
         "about": "Test vectors for protocol/PROTOCOL.md version 1.0. 'frame' is the exact byte "
         "string (JSON string escapes: \\n = LF, \\r = CR, \\u0018 = kill byte). Good frames decode to 'meaning'; bad ones must be rejected "
-        "with 'error' (PROTOCOL.md §2-§3). direction = who sends it.",
+        "with 'error' (PROTOCOL.md §2-§3). direction = who sends it. 'loop_replies' are "
+        "board replies to `loop` (§5.4) that every codec reads; their fields declare the "
+        "loop in 'declares' (optional fields absent: null) or must be refused with 'error'.",
         "crc_check": {"algorithm": "CRC-16/IBM-3740", "poly": "0x1021", "init": "0xFFFF",
                       "refin": False, "refout": False, "xorout": "0x0000",
                       "input": "123456789", "check": "0x29B1"},
         "good": [{"direction": d, "frame": frame(b), "meaning": m} for d, b, m in GOOD],
         "bad": [{"direction": d, "frame": raw, "error": e} for d, raw, e in BAD],
+        "loop_replies": [
+            {"frame": frame(b), **({"error": r} if isinstance(r, str) else {"declares": r})}
+            for b, r in LOOP_REPLIES],
     }
     path = Path(__file__).with_name("frames.json")
     path.write_text(json.dumps(out, indent=1, ensure_ascii=True) + "\n")

@@ -227,3 +227,47 @@ def test_full_transmit_buffer_drops_telemetry_not_replies():
     nxt = [x for x in h.pump() if isinstance(x, m.Telemetry)]
     # the frame counter counts dropped frames: the gap tells the host how many it lost
     assert nxt[0].frame - (tm[-1].frame + 1) == board.drops
+
+
+def test_loop_replies_declare_the_optional_fields_and_fit_a_line():
+    # PROTOCOL.md §5.4: every simulated loop declares setpoint, limit, dfilt, action (and
+    # rate where a gyro exists); §2: a line holds at most 200 bytes. The longest reply (at
+    # the longest sequence number) is the figure the spec quotes.
+    import re
+
+    from bench.rig.boards import rig_def
+    from bench.wire import HostCodec
+
+    longest = 0
+    for rig, kw in (("balance", {}), ("balance", {"drive": "torque"}), ("wheel", {}),
+                    ("plant", {})):
+        board, rd = make_board(rig, **kw), rig_def(rig, **kw)
+        for i, lp in enumerate(rd.loops):
+            board.receive(HostCodec.encode(m.DescribeLoop(65535, i)))
+            (line,) = [ln for ln in board.output().split(b"\n") if ln.startswith(b"@ok 65535 ")]
+            longest = max(longest, len(line) + 1)
+            (reply,) = HostCodec().receive(line + b"\n")
+            got = LoopInfo.from_fields(reply.fields)
+            assert got == lp.declared(i)
+            assert None not in (got.setpoint, got.limit, got.dfilt, got.action), got
+    spec = (Path(__file__).parents[2] / "protocol" / "PROTOCOL.md").read_text()
+    quoted = int(re.search(r"longest `loop` reply of rigbench's simulated boards is (\d+) "
+                           r"bytes", spec).group(1))
+    assert longest == quoted <= 200
+
+
+def test_declared_action_is_the_sign_the_firmware_computes():
+    # PROTOCOL.md §5.4: direct: e = measure − setpoint; reverse: e = setpoint − measure.
+    # Checked against the error the board's own PID forms (bench.rig.firmware_control).
+    from bench.rig.firmware_control import LoopEngine
+
+    for rig, kw in (("balance", {}), ("wheel", {}), ("plant", {})):
+        board = make_board(rig, **kw)
+        h = Host(board)
+        engine = LoopEngine(board.rig, 0.002)
+        for i, lp in enumerate(board.rig.loops):
+            declared = LoopInfo.from_fields(h.ask(m.DescribeLoop, i).fields)
+            e = engine.pids[lp.name].error(setpoint=1.0, measure=0.0)
+            assert e == (-1.0 if declared.action == "direct" else 1.0), (rig, lp.name)
+    actions = {lp.name: lp.action for lp in make_board("balance").rig.loops}
+    assert actions == {"tilt": "direct", "trim": "reverse"}

@@ -1,12 +1,15 @@
 """protocol/vectors/frames.json: every good frame decodes to its written meaning, every bad
-frame yields its named error — fed whole, one byte at a time, and with junk around it."""
+frame yields its named error — fed whole, one byte at a time, and with junk around it;
+every loop reply declares its written loop or is refused with its named error."""
 
 import json
+from dataclasses import asdict
 from pathlib import Path
 
 import pytest
 
-from bench.wire import BoardCodec, HostCodec, as_dict
+from bench.wire import BoardCodec, HostCodec, LoopInfo, as_dict
+from bench.wire.errors import RemoteProtocolError
 from bench.wire.frame import BadFrame
 
 VECTORS = json.loads((Path(__file__).parents[2] / "protocol" / "vectors" / "frames.json").read_text())
@@ -85,3 +88,33 @@ def test_crc_check_block_matches_catalogue():
 
     block = VECTORS["crc_check"]
     assert crc16(block["input"].encode()) == int(block["check"], 16) == 0x29B1
+
+
+@pytest.mark.parametrize("vec", VECTORS["loop_replies"], ids=lambda v: v["frame"][-32:])
+def test_loop_reply_vector(vec):
+    # PROTOCOL.md §5.4: the codec reads every loop reply; the declaration is read from its
+    # fields, optional fields absent reading as null, a bad value refused with its code.
+    (msg,) = HostCodec().receive(vec["frame"].encode("ascii"))
+    assert as_dict(msg)["type"] == "Ok"
+    if "error" in vec:
+        with pytest.raises(RemoteProtocolError) as exc:
+            LoopInfo.from_fields(msg.fields)
+        assert exc.value.code == vec["error"]
+    else:
+        loop = LoopInfo.from_fields(msg.fields)
+        assert {**asdict(loop), "gains": list(loop.gains)} == vec["declares"]
+        # what a board sends for that declaration reads back the same
+        assert LoopInfo.from_fields([(k, str(v)) for k, v in loop.to_fields()]) == loop
+
+
+def test_worked_example_frames_carry_real_crcs():
+    # PROTOCOL.md §9 says its CRCs are real; the refused-frames example is meant to be bad.
+    import re
+
+    from bench.wire import crc16
+
+    spec = (Path(__file__).parents[2] / "protocol" / "PROTOCOL.md").read_text()
+    session = spec[spec.index("## 9. Worked examples"):spec.index("### Refused and unreadable")]
+    frames = re.findall(r"@([^|@\n]*)\|([0-9A-F]{4})", session)
+    assert len(frames) > 20 and any(b.startswith("ok 22 index=0 name=tilt") for b, _ in frames)
+    assert [(b, c) for b, c in frames if crc16(b.encode()) != int(c, 16)] == []
