@@ -14,6 +14,7 @@ No I/O here. Must not import link, rig, ui or domain modules.
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
 
 from .crc import crc16
@@ -26,6 +27,9 @@ MAX_LINE = 200  # bytes from "@" to "\n" inclusive
 MAX_BODY = MAX_LINE - 7  # "@" + "|" + 4 hex + "\n"
 
 _HEX = frozenset(b"0123456789ABCDEFabcdef")
+# The common case in one match: a whole well-formed line (body chars, "|", four hex digits,
+# optional CR). Anything else goes through parse_line, which names the error.
+_GOOD_LINE = re.compile(rb"@([\x20-\x3f\x41-\x7b\x7d\x7e]{1,%d})\|([0-9A-Fa-f]{4})\r?" % MAX_BODY)
 
 
 @dataclass(frozen=True)
@@ -168,6 +172,12 @@ class FrameDecoder:
         if at > 0:
             out.append(_bad_prefix(line[:at]))
             line = line[at:]
+        good = _GOOD_LINE.fullmatch(line)
+        if good is not None and len(line) < self.max_line:
+            body = good.group(1)
+            if crc16(body) == int(good.group(2), 16):
+                out.append(Body(body.decode("ascii")))
+                return
         try:
             out.append(Body(parse_line(line)))
         except RemoteProtocolError as exc:

@@ -134,3 +134,23 @@ def test_frames_with_any_flipped_byte_are_never_accepted_as_other_frames(noise):
     raw[i] ^= (noise[-1] | 1)
     events = BoardCodec().receive(bytes(raw))
     assert all(e == m.Set(3, (("tilt_kp", 0.64),)) or isinstance(e, (BadFrame, KillByte)) for e in events)
+
+
+_tm_text = st.lists(
+    st.text(alphabet="0123456789.-+eE", min_size=1, max_size=8), min_size=0, max_size=6
+).map(lambda vals: " ".join(["tm", "12", "3400"] + vals))
+
+
+@settings(max_examples=1500, deadline=None)
+@given(st.one_of(_tm_text, st.text(alphabet="tm 0123456789.-+eE", max_size=40)))
+def test_fast_telemetry_path_agrees_with_the_token_parser(text):
+    # The fast path must accept exactly what the general parser accepts, with equal results.
+    from bench.wire.errors import RemoteProtocolError
+
+    def outcome(parse):
+        try:
+            return parse(text)
+        except RemoteProtocolError as exc:
+            return exc.code
+
+    assert outcome(m.parse_board_body) == outcome(m.parse_board_body_strict)
