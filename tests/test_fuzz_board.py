@@ -129,7 +129,10 @@ def test_every_command_gets_exactly_one_documented_reply_and_the_rules_hold(sess
         assert reply.seq == cmd.seq
         (read,) = BoardCodec().receive(frame)
         if last is not None and read == last[0]:      # §4.2: the same command again is a
-            assert reply == last[1]                   # resend: the same reply, not acted on
+            # resend: the same reply, not acted on — or `err state` when the board tripped
+            # since (the old reply would describe the state before the trip)
+            assert reply == last[1] or (reply == m.Err(cmd.seq, "state", reply.text)
+                                        and board.motor == "tripped"), (reply, last[1])
             assert board.motor == before_motor and board.params.values == before_vals
             continue
         last = (read, reply)
@@ -228,16 +231,18 @@ def test_a_vanishing_stream_rate_is_answered_not_a_crash(rate_hz):
                                                                  rel=1e-6)
 
 
-def test_a_clear_resent_after_a_kill_gets_its_old_reply_and_leaves_the_fault():
+def test_a_clear_resent_after_a_kill_is_refused_and_leaves_the_fault():
     # PROTOCOL.md §4.2: a resend (same seq, same body) is not acted on again, so a retry of
-    # a clear sent before a kill cannot undo the kill; a new clear can
+    # a clear sent before a kill cannot undo the kill, and its reply does not claim the
+    # motor is off (err state: tripped since); a new clear can clear
     board = make_board("wheel")
     board.receive(HostCodec.encode(m.Heartbeat()) + HostCodec.encode(m.Clear(5)))
     board.output()
     board.receive(KILL)
     board.receive(HostCodec.encode(m.Clear(5)))
     (again,) = _replies(board, HostCodec())
-    assert again == m.Ok(5, (("motor", "off"),)) and board.motor == "tripped"
+    assert isinstance(again, m.Err) and again.seq == 5 and again.code == "state"
+    assert board.motor == "tripped"
     board.receive(HostCodec.encode(m.Clear(6)))
     (new,) = _replies(board, HostCodec())
     assert new == m.Ok(6, (("motor", "off"),)) and board.motor == "off" and board.fault is None

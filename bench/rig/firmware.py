@@ -267,6 +267,11 @@ class SimBoard(BoardCommands):
             self._event("trip", **fields)
         self._happen("trip")
         self._pending_si = 0.0
+        if self._last_cmd is not None:
+            # §4.2: a resend of a command answered before the trip must not report the state
+            # from before it (e.g. a retried `clear` saying motor=off after a kill)
+            self._last_reply = self._encode(
+                m.Err(self._last_cmd.seq, "state", "tripped since this command; ask status"))
 
     def interlock_reasons(self) -> list[str]:
         """Conditions that would refuse an ``arm`` now (PROTOCOL.md §7.3), in order."""
