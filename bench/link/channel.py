@@ -34,8 +34,8 @@ from bench.wire.messages import Err, Heartbeat, Ok
 from .clock import clock_of, is_virtual
 from .errors import BoardRefused, LinkError, LinkLost, LinkTimeout
 from .ingest import Ingest
+from .rawtap import RawTap
 from .records import LinkEvent, LinkHealth
-from .ring import CursorLog
 from .waits import Waits
 
 
@@ -89,7 +89,7 @@ class Channel:
                            virtual_stall_s=virtual_stall_s)
         self._cond = self.waits.cond  # replies are filed under the same condition
         self.events = self.ingest.events
-        self.raw = CursorLog(raw_chunks)  # (time, ">" or "<", bytes) per write / read
+        self.raw = RawTap(raw_chunks)  # whole lines of both directions, for a console
         self._thread: threading.Thread | None = None
         self._stop = False
         self._closed = False
@@ -172,7 +172,7 @@ class Channel:
             self._mark_lost(exc)
             raise LinkLost(self._lost or f"link to {self.url} lost") from None
         self._count("tx_bytes", len(data))
-        self.raw.append((self.clock.now(), ">", bytes(data)))
+        self.raw.record(self.clock.now(), ">", bytes(data))
 
     def write(self, data: bytes) -> float:
         """Write one frame (a pending kill goes first); return the link-clock time."""
@@ -274,7 +274,7 @@ class Channel:
                 if data:
                     self._last_rx = now
                     self.c["rx_bytes"] += len(data)
-                    self.raw.append((now, "<", data))
+                    self.raw.record(now, "<", data)
                     for reply in self.ingest.handle(self.codec.receive(data), now):
                         self._match(reply, now)
                 if not self._rates or now - self._rates[-1][0] >= 0.25:

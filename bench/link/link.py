@@ -36,7 +36,7 @@ from .channel import Channel
 from .errors import (
     BoardRefused, IncompatibleBoard, LinkError, LinkLost, LinkTimeout, SaveMismatch, open_error,
 )
-from .records import BoardStatus, LinkEvent, LinkHealth, RawLine, SaveResult, raw_lines
+from .records import BoardStatus, LinkEvent, LinkHealth, RawLine, SaveResult
 from .ring import TelemetryBlock
 
 _FIXED_CHUNK_SCHEMES = ("socket://", "rfc2217://")  # in_waiting says only 0 or 1
@@ -327,9 +327,9 @@ class Link:
         return self.channel.raw.cursor()
 
     def raw_since(self, cursor: int) -> tuple[int, list[RawLine]]:
-        """What crossed the link since ``cursor``, as console lines (heartbeats included)."""
-        cursor, chunks = self.channel.raw.since(cursor)
-        return cursor, raw_lines(chunks)
+        """Whole lines that crossed the link since ``cursor``, both directions, heartbeats
+        and telemetry included (rawtap.py); a line still arriving waits for its end."""
+        return self.channel.raw.since(cursor)
 
     @property
     def last_status(self) -> BoardStatus | None:

@@ -9,7 +9,6 @@ Must not import bench.rig, bench.ui or domain modules.
 
 from __future__ import annotations
 
-import re
 from dataclasses import dataclass, field
 
 from bench.wire.errors import RemoteProtocolError
@@ -84,31 +83,21 @@ class LinkEvent:
 
 @dataclass(frozen=True)
 class RawLine:
-    """Bytes that crossed the link, for a console: ``>`` to the board, ``<`` from it.
+    """One line that crossed the link, for a console: ``>`` to the board, ``<`` from it.
 
-    A read or write chunk is split at line ends; a line cut by a chunk boundary shows as
-    two pieces. Non-printable bytes (the kill byte) appear as ``\\x18``.
+    Whole lines, however the port cut them into chunks (rawtap.py). ``cut``: the line was
+    longer than the tap keeps (200 bytes), or a kill byte ended it unfinished; its text
+    is what was kept. Non-printable bytes (the kill byte) appear as ``\\x18``.
     """
 
     host_time_s: float
     direction: str
     text: str
+    cut: bool = False
 
     def __str__(self) -> str:
-        return f"{self.host_time_s:10.3f} {self.direction} {self.text}"
-
-
-_UNPRINTABLE = re.compile(rb"[^\x20-\x7e]")
-
-
-def raw_lines(chunks) -> list[RawLine]:
-    out = []
-    for t, direction, data in chunks:
-        for piece in data.split(b"\n"):
-            piece = _UNPRINTABLE.sub(lambda m: b"\\x%02x" % m.group()[0], piece.rstrip(b"\r"))
-            if piece:
-                out.append(RawLine(t, direction, piece.decode("ascii")))
-    return out
+        mark = " …[cut]" if self.cut else ""
+        return f"{self.host_time_s:10.3f} {self.direction} {self.text}{mark}"
 
 
 @dataclass(frozen=True)
