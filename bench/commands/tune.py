@@ -25,6 +25,7 @@ from bench.cli import (
     EXIT_CHECK, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_LINK, EXIT_OK, EXIT_REFUSED, EXIT_TRIP,
     EXIT_USAGE, CommandError,
 )
+from bench.experiments.conventions import primary_loop
 from bench.experiments.proposals import propose
 from bench.experiments.relay import run_relay
 from bench.experiments.runner import ArmRefused
@@ -42,7 +43,10 @@ def add_parser(subparsers):
                               description=__doc__.split("\n\n")[0])
     add_port_option(p)
     p.add_argument("--loop", default=None, metavar="NAME",
-                   help="the loop to test (required when the board has more than one)")
+                   help="the loop to test; required when the board has more than one (a "
+                        "relay test moves the motor, so none is picked for you): the error "
+                        "then names the innermost loop of the cascade, the usual first to "
+                        "tune")
     p.add_argument("--margin", type=float, default=45.0, metavar="DEG",
                    help="target phase margin of the one-point designs (default 45)")
     p.add_argument("--amplitude", type=float, default=None, metavar="X",
@@ -203,6 +207,18 @@ def tune_text(doc: dict) -> str:
     return "\n".join(lines)
 
 
+def _which_loop_text(link) -> str:
+    """Usage error for a board with several loops (or none): the loops, and which one is
+    usually tuned first."""
+    text = "name the loop with --loop; the board has: " + (", ".join(link.loops) or "none")
+    choice = primary_loop(link.loops, {s.name: s.unit for s in link.signals})
+    if choice.name is not None and not choice.ambiguous:
+        text += f". Start with --loop {choice.name}: {choice.reason}"
+    elif choice.ambiguous:
+        text += f". {choice.reason[0].upper()}{choice.reason[1:]}"
+    return text
+
+
 def run(args) -> int:
     if args.max_seconds <= 0 or args.cycles < 1 or args.margin <= 0 or args.margin >= 90:
         raise CommandError(EXIT_USAGE, "--max-seconds > 0, --cycles >= 1, 0 < --margin < 90")
@@ -218,8 +234,7 @@ def run(args) -> int:
         loop = args.loop
         if loop is None:
             if len(link.loops) != 1:
-                raise CommandError(EXIT_USAGE, "name the loop with --loop; the board has: "
-                                   + ", ".join(link.loops))
+                raise CommandError(EXIT_USAGE, _which_loop_text(link))
             loop = next(iter(link.loops))
         if loop not in link.loops:
             raise CommandError(EXIT_USAGE, f"the board has no loop {loop!r}; it has: "

@@ -26,6 +26,10 @@ boards; a firmware author can follow them):
   unit.
 - drive of a balance loop: ``speed`` when the loop's output is a speed (rev/s, rad/s,
   rpm), ``torque`` when it is a torque (N.m, mN.m).
+- the loop to offer first (``primary_loop``): the innermost loop of a cascade, i.e. one
+  whose output is no other loop's set-point signal (declared, else by the convention
+  above), preferring one whose output is in a motor-drive unit (``DRIVE_UNITS``); else the
+  first declared.
 
 Must not import: textual, bench.ui, bench.commands, control.
 """
@@ -38,10 +42,15 @@ from bench.units import si_factor
 from bench.wire.describe import LOOP_OPTIONAL
 
 __all__ = ["LoopSignals", "loop_signals", "param_value", "BoardView", "board_view",
-           "loop_action", "SPEED_UNITS", "TORQUE_UNITS"]
+           "loop_action", "LoopChoice", "primary_loop", "SPEED_UNITS", "TORQUE_UNITS",
+           "DRIVE_UNITS"]
 
 SPEED_UNITS = ("rev/s", "rad/s", "rpm")
 TORQUE_UNITS = ("N.m", "mN.m")
+# Units of a motor command: a torque, a speed (a speed-controlled drive), a voltage, a
+# current or a duty cycle.
+DRIVE_UNITS = (*TORQUE_UNITS, *SPEED_UNITS, "V", "A", "%")
+_SETPOINT_NAMES = ("{loop}_sp", "sp", "r", "setpoint")
 # Units of one quantity, convertible into each other by their SI factors (bench.units).
 _KINDS = (("deg", "rad"), ("deg/s", "rad/s", "rev/s", "rpm"), TORQUE_UNITS, ("s", "ms"))
 _ANGLE_RATES = {"deg": _KINDS[1], "rad": _KINDS[1]}
@@ -145,8 +154,7 @@ def _setpoint(link, lp, units: dict, mu: str) -> tuple[str | None, str | None]:
     """(set-point signal, set-point parameter) of the loop."""
     name = lp.setpoint
     if name is None:
-        return next((c for c in (f"{lp.name}_sp", "sp", "r", "setpoint")
-                     if units.get(c) == mu and c != lp.measure), None), None
+        return _conventional_setpoint(lp, units, mu), None
     if name in units:
         if units[name] != mu or name == lp.measure:
             raise ValueError(f"loop {lp.name!r} declares setpoint={name}, a signal in "
@@ -157,6 +165,11 @@ def _setpoint(link, lp, units: dict, mu: str) -> tuple[str | None, str | None]:
         return None, name
     raise ValueError(f"loop {lp.name!r} declares setpoint={name}, which is neither a signal "
                      "nor a parameter of the board")
+
+
+def _conventional_setpoint(lp, units: dict, mu: str | None) -> str | None:
+    return next((c for c in (n.format(loop=lp.name) for n in _SETPOINT_NAMES)
+                 if units.get(c) == mu and c != lp.measure), None)
 
 
 def _rate(lp, units: dict, mu: str) -> str | None:
@@ -209,3 +222,53 @@ def loop_signals(link, loop: str) -> LoopSignals:
         "relay" if "relay" in units else None, limit, dfilt,
         param_value(link, f"trip_{lp.measure}"), drive, loop_action(lp), setpoint_param,
         declared)
+
+
+@dataclass(frozen=True)
+class LoopChoice:
+    """The loop to offer first on a board, and why."""
+
+    name: str | None                # None: the board declares no loop
+    candidates: tuple[str, ...]     # the loops that fit the rule equally well (board order)
+    reason: str                     # in words, for a hint or an error message
+
+    @property
+    def ambiguous(self) -> bool:
+        """More than one loop fits: ``name`` is only the first declared of them."""
+        return len(self.candidates) > 1
+
+
+def primary_loop(loops: dict, units: dict) -> LoopChoice:
+    """The loop a user tunes first: the innermost loop of a cascade.
+
+    ``loops``: name -> LoopInfo in the board's order; ``units``: signal name -> unit. A loop
+    is inner when its output is no other loop's set-point signal (the declared
+    ``setpoint=``, else the convention of the module docstring). Among inner loops, those
+    whose output is in a motor-drive unit (``DRIVE_UNITS``) come first. When no loop is
+    inner (a declaration loop), the first declared loop.
+    """
+    names = list(loops)
+    if not names:
+        return LoopChoice(None, (), "the board declares no loop")
+    if len(names) == 1:
+        return LoopChoice(names[0], (names[0],), "the board declares one loop")
+    fed: set[str] = set()
+    for lp in loops.values():
+        sp = lp.setpoint if lp.setpoint is not None else \
+            _conventional_setpoint(lp, units, units.get(lp.measure))
+        if sp is not None:
+            fed.add(sp)
+    inner = [n for n in names if loops[n].output not in fed]
+    if not inner:
+        return LoopChoice(names[0], tuple(names), "every loop's output is another loop's "
+                          f"set-point; the first declared, {names[0]}")
+    driving = [n for n in inner if units.get(loops[n].output) in DRIVE_UNITS]
+    pick = tuple(driving or inner)
+    first = loops[pick[0]]
+    drives = (f"drives the motor ({units.get(first.output)})" if driving
+              else "is no other loop's set-point")
+    if len(pick) == 1:
+        return LoopChoice(pick[0], pick, f"{pick[0]} is the innermost loop, its output "
+                          f"{first.output} {drives}")
+    return LoopChoice(pick[0], pick, f"{', '.join(pick)} are all innermost loops "
+                      f"(outputs feed no other loop's set-point); the first declared, {pick[0]}")
