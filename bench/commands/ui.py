@@ -24,11 +24,15 @@ def add_parser(subparsers):
     return p
 
 
-def run(args) -> int:
+def make_app(args):
+    """The app for these arguments, its theme applied by the app itself (after it has
+    registered its themes)."""
     from bench.ui.app import RigApp
 
-    app = RigApp(args.port, stream_hz=args.stream_hz,
-                 baudrate=getattr(args, "baud", None) or 115200)
-    app.theme = args.theme
-    app.run()
+    return RigApp(args.port, stream_hz=args.stream_hz,
+                  baudrate=getattr(args, "baud", None) or 115200, theme=args.theme)
+
+
+def run(args) -> int:
+    make_app(args).run()
     return 0

@@ -68,7 +68,8 @@ def error_words(exc: BaseException) -> str:
 
 
 class RigApp(App):
-    """The rigbench terminal UI on one board at ``url``."""
+    """The rigbench terminal UI on one board at ``url``, in colour ``theme`` (one of
+    bench.ui.theme.THEMES or Textual's own)."""
 
     TITLE = "rigbench"
     CSS_PATH = "rigbench.tcss"
@@ -78,6 +79,9 @@ class RigApp(App):
         "sequences": SequencesScreen, "link": LinkScreen, "help": HelpScreen,
     }
     DEFAULT_MODE = "live"
+    # classes on every screen by terminal size (rigbench.tcss lays out narrow/short screens)
+    HORIZONTAL_BREAKPOINTS = [(0, "-narrow"), (110, "-wide")]
+    VERTICAL_BREAKPOINTS = [(0, "-short"), (34, "-tall")]
     BINDINGS = [
         Binding("ctrl+k", "kill", "KILL", priority=True),
         Binding("f9", "kill", "KILL", show=False, priority=True),
@@ -101,7 +105,7 @@ class RigApp(App):
 
     def __init__(self, url: str = DEFAULT_URL, *, stream_hz: float = 250.0,
                  safety_hz: float = 10.0, virtual_speed: float | None = 1.0,
-                 baudrate: int = 115200) -> None:
+                 baudrate: int = 115200, theme: str = THEMES[0].name) -> None:
         super().__init__()
         self.url = url
         self.baudrate = baudrate
@@ -117,9 +121,11 @@ class RigApp(App):
         self.last_relay = None  # the last relay outcome (runners.RelayOutcome)
         self.cancel_events: set = set()  # cancel flags of running experiments
         self._event_cursor = 0
-        for theme in THEMES:
-            self.register_theme(theme)
-        self.theme = THEMES[0].name
+        # the app's themes exist before one is chosen: a theme set on an app that has not
+        # registered it yet would be refused, or replaced later by a default
+        for bench_theme in THEMES:
+            self.register_theme(bench_theme)
+        self.theme = theme
 
     # ------------------------------------------------------------------ life cycle
 

@@ -1,8 +1,10 @@
 """Experiments screen: a relay autotune or a disturbance sweep on one of the board's loops,
 with its settings, live progress (cycles as they form), cancel, and the results.
 
-The experiments are domain code (bench.experiments: guards, arming through the interlock,
-modes, recording, a safe end) run in a thread worker through :mod:`bench.ui.runners`.
+The loop offered first is the innermost loop of a cascade (``primary_loop``), the one a
+user tunes first. The experiments are domain code (bench.experiments: guards, arming
+through the interlock, modes, recording, a safe end) run in a thread worker through
+:mod:`bench.ui.runners`.
 This screen collects the settings, shows progress messages and the result. Kill (ctrl+k,
 F9) also cancels; cancel (x) stops in an orderly way and the runner leaves the rig safe.
 
@@ -13,9 +15,11 @@ from __future__ import annotations
 
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import Horizontal, Vertical
+from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.message import Message
 from textual.widgets import DataTable, Input, Label, ProgressBar, Select, Static
+
+from bench.experiments.conventions import primary_loop
 
 from . import runners
 from .results import cycle_row, progress_text, relay_lines, sweep_lines
@@ -64,8 +68,8 @@ class ExperimentsScreen(BenchScreen):
             with Vertical(id="exp-form"):
                 yield form_row("loop", Select([], prompt="loop", allow_blank=True,
                                               compact=True, id="exp-loop"))
-                yield Label("Relay test (r); blank amplitude/hysteresis: sized "
-                            "automatically", classes="section")
+                yield Label("Relay test (r); blank amplitude/hysteresis: auto-sized",
+                            classes="section")
                 for fid, label, default in RELAY_FIELDS:
                     yield form_row(label, Input(default, id=f"exp-{fid}", compact=True))
                 yield Label("Disturbance sweep (t)", classes="section")
@@ -80,14 +84,15 @@ class ExperimentsScreen(BenchScreen):
                                             id="exp-at"))
                 for fid, label, default in SWEEP_FIELDS:
                     yield form_row(label, Input(default, id=f"exp-{fid}", compact=True))
-                yield Static("", id="exp-hint", markup=False)
             with Vertical(id="exp-live"):
                 yield Label("Progress", classes="section")
                 yield ProgressBar(id="exp-bar", show_eta=False, total=1.0)
                 yield Static("idle", id="exp-state", markup=False)
                 yield DataTable(id="exp-cycle-table", cursor_type="none")
+                yield Static("", id="exp-hint", markup=False)
         yield Label("Result", classes="section")
-        yield Static("No experiment run yet.", id="exp-result", markup=False)
+        with VerticalScroll(id="exp-result-box"):  # a long result scrolls, never cut off
+            yield Static("No experiment run yet.", id="exp-result", markup=False)
 
     def on_mount(self) -> None:
         self.query_one("#exp-cycle-table", DataTable).add_columns(
@@ -100,10 +105,12 @@ class ExperimentsScreen(BenchScreen):
         if link is None:
             return
         pick = self.query_one("#exp-loop", Select)
-        pick.set_options([(f"{n} ({lp.plant}, relay on {lp.relay})", n)
+        first = primary_loop(link.loops, {s.name: s.unit for s in link.signals})
+        inner = first.name if len(link.loops) > 1 and not first.ambiguous else None
+        pick.set_options([(f"{n}{', innermost' if n == inner else ''} ({lp.plant})", n)
                           for n, lp in link.loops.items()])
-        if link.loops:
-            pick.value = next(iter(link.loops))
+        if first.name is not None:
+            pick.value = first.name
 
     def on_select_changed(self, event: Select.Changed) -> None:
         if event.select.id == "exp-loop":
@@ -117,10 +124,12 @@ class ExperimentsScreen(BenchScreen):
         units = {s.name: s.unit for s in link.signals}
         m_unit = units.get(lp.measure, "?")
         amp_unit = m_unit if lp.relay == "integral" else units.get(lp.output, "?")
+        where = ("the integral channel, loop closed" if lp.relay == "integral"
+                 else "the output")
         self.query_one("#exp-hint", Static).update(
-            f"loop {loop}: measure {lp.measure} ({m_unit}), output {lp.output}. Relay "
-            f"amplitude in {amp_unit}, hysteresis in {m_unit}. The experiment arms through "
-            "the board's interlock and leaves the rig safe at the end.")
+            f"{loop}: measure {lp.measure} ({m_unit}), output {lp.output}. Relay on {where}: "
+            f"amplitude in {amp_unit}, hysteresis in {m_unit}. Arms through the board's "
+            "interlock; leaves the rig safe.")
 
     def loop_name(self) -> str | None:
         value = self.query_one("#exp-loop", Select).value
@@ -215,7 +224,9 @@ class ExperimentsScreen(BenchScreen):
         row = cycle_row(p)
         if row is not None and p.cycles > self.cycles_shown:
             self.cycles_shown = p.cycles
-            self.query_one("#exp-cycle-table", DataTable).add_row(*row)
+            table = self.query_one("#exp-cycle-table", DataTable)
+            table.add_row(*row)
+            table.scroll_end(animate=False)  # the newest cycle in view
 
     def on_experiment_done(self, message: ExperimentDone) -> None:
         self.running = None

@@ -16,6 +16,8 @@ from textual.binding import Binding
 from textual.containers import Horizontal
 from textual.widgets import DataTable, Label, Select, Static
 
+from bench.experiments.conventions import primary_loop
+
 from .dialogs import PromptDialog
 from .gains_actions import GainsBoardActions
 from .results import proposal_items, proposal_rows
@@ -94,8 +96,9 @@ class GainsScreen(GainsBoardActions, BenchScreen):
             return
         pick = self.query_one("#gains-loop", Select)
         pick.set_options([(name, name) for name in link.loops])
-        if link.loops:
-            self.loop = next(iter(link.loops))
+        first = primary_loop(link.loops, {s.name: s.unit for s in link.signals}).name
+        if first is not None:
+            self.loop = first
             with pick.prevent(Select.Changed):
                 pick.value = self.loop
         self._drop()

@@ -13,7 +13,7 @@ from __future__ import annotations
 from textual import work
 from textual.app import ComposeResult
 from textual.binding import Binding
-from textual.containers import Horizontal, Vertical
+from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.widgets import Button, Checkbox, Input, Label, Log, OptionList, Static
 from textual.widgets.option_list import Option
 
@@ -29,10 +29,9 @@ CONSOLE_LINES = 2000
 
 
 def is_chatter(text: str) -> bool:
-    """Telemetry, a heartbeat, or a bare frame start cut off by a read boundary: a display
-    filter on the text the link's tap gives, not a parser."""
-    body = text.lstrip("@")
-    return body == "" or body.startswith(("tm ", "hb|"))
+    """Telemetry or a heartbeat: a display filter on the whole lines the link's tap gives,
+    not a parser."""
+    return text.startswith(("@tm ", "@hb|"))
 
 
 def list_serial_ports() -> list[tuple[str, str]]:
@@ -43,6 +42,8 @@ def list_serial_ports() -> list[tuple[str, str]]:
 
 
 def health_lines(link, stream_rate_hz) -> list[str]:
+    """The board and the link's counters in short lines (most under 38 columns), so they
+    read beside the port list in an 80-column terminal."""
     h = link.health()
     info = link.info
     bad = ", ".join(f"{k} {v}" for k, v in sorted(h.bad_frames.items())) or "none"
@@ -50,24 +51,24 @@ def health_lines(link, stream_rate_hz) -> list[str]:
            else "–")
     since = f"{h.since_rx_s:.2f} s" if h.since_rx_s is not None else "–"
     return [
-        f"board       {info.board}  firmware {info.firmware}  rig {info.rig}"
-        + ("  SIMULATED" if info.simulated else ""),
-        f"protocol    {'%d.%d' % info.version}  loop {info.rate_hz:g} Hz  "
-        f"watchdog {info.watchdog_ms:g} ms",
-        f"declares    {info.params} parameters, {info.signals} signals, {info.loops} loops",
-        f"telemetry   asked {stream_rate_hz or 0:g} Hz, receiving {h.telemetry_per_s:.0f} rows/s",
+        f"board      {info.board}" + ("  SIMULATED" if info.simulated else ""),
+        f"firmware   {info.firmware}  rig {info.rig}",
+        f"protocol   {'%d.%d' % info.version}  loop {info.rate_hz:g} Hz",
+        f"watchdog   {info.watchdog_ms:g} ms",
+        f"declares   {info.params} params {info.signals} signals {info.loops} loops",
+        f"stream     asked {stream_rate_hz or 0:g} Hz, got {h.telemetry_per_s:.0f}/s",
         "",
-        f"state       {h.state}   last byte {since} ago",
-        f"frames      {h.rx_frames} good, {h.frames_per_s:.0f}/s",
-        f"bad frames  {bad}",
-        f"lost        {h.lost_frames} telemetry frames (board dropped {h.board_drops})",
-        f"board saw   {h.board_rx_errors} unreadable frames from us",
-        f"replies     median {lat}, {h.timeouts} timeouts, {h.resends} resends, "
-        f"{h.late_replies} late",
-        f"heartbeats  {h.heartbeats} sent",
-        f"bytes       {h.rx_bytes} in, {h.tx_bytes} out",
-        f"restarts    {h.resets} seen, {h.resyncs} handshakes again",
-    ] + ([f"lost        {h.lost_reason}"] if h.lost_reason else [])
+        f"state      {h.state}, last byte {since} ago",
+        f"frames     {h.rx_frames} good, {h.frames_per_s:.0f}/s",
+        f"bad frames {bad}",
+        f"lost       {h.lost_frames} frames (board dropped {h.board_drops})",
+        f"board saw  {h.board_rx_errors} unreadable frames from us",
+        f"replies    median {lat}, {h.timeouts} timeouts",
+        f"           {h.resends} resends, {h.late_replies} late",
+        f"heartbeats {h.heartbeats} sent",
+        f"bytes      {h.rx_bytes} in, {h.tx_bytes} out",
+        f"restarts   {h.resets} seen, {h.resyncs} handshakes again",
+    ] + ([f"lost       {h.lost_reason}"] if h.lost_reason else [])
 
 
 class LinkScreen(BenchScreen):
@@ -93,7 +94,8 @@ class LinkScreen(BenchScreen):
                     yield Input(placeholder="or type a device path or URL", id="port-url",
                                 compact=True)
                     yield Button("Connect", id="connect", variant="primary", compact=True)
-            yield Static("", id="link-health", markup=False)
+            with VerticalScroll(id="link-health-box"):
+                yield Static("", id="link-health", markup=False)
         with Horizontal(id="console-row"):
             yield Label("Console", classes="section")
             yield Input(placeholder="filter: show lines containing…", id="console-filter",

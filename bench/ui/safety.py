@@ -154,9 +154,27 @@ class BottomStack(Vertical):
     """
 
 
+def size_classes(app) -> dict[str, bool]:
+    """The App's breakpoint classes (``HORIZONTAL_BREAKPOINTS``, ``VERTICAL_BREAKPOINTS``)
+    for the terminal's present size: class name -> whether it applies."""
+    out: dict[str, bool] = {}
+    for limits, size in ((app.HORIZONTAL_BREAKPOINTS, app.size.width),
+                         (app.VERTICAL_BREAKPOINTS, app.size.height)):
+        names = [name for _, name in sorted(limits or [])]
+        fitting = [name for limit, name in sorted(limits or []) if size >= limit]
+        out.update({name: bool(fitting) and name == fitting[-1] for name in names})
+    return out
+
+
 class BenchScreen(Screen):
     """A full screen with header, body, safety bar and footer. Subclasses write
     :meth:`compose_body`."""
+
+    def on_mount(self) -> None:
+        # Textual sets the size classes on the first resize, after a first layout without
+        # them; a narrow terminal then shows a scrollbar that outlives the overflow
+        for name, on in size_classes(self.app).items():
+            self.set_class(on, name)
 
     def compose(self) -> ComposeResult:
         yield TopBar(self.SUB_TITLE or "")
