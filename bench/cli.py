@@ -77,7 +77,8 @@ class Parser(argparse.ArgumentParser):
         raise UsageError(f"{self.prog}: {message} (see {self.prog} --help)")
 
 
-def build_parser() -> Parser:
+def build_parser(only: str | None = None) -> Parser:
+    """The whole command line; with ``only``, just that command's module is loaded."""
     parser = Parser(prog="rigbench",
                     description="Tune, verify and document the control loops of balanced rigs.",
                     epilog="exit codes: " + "; ".join(f"{k} {v.split(':')[0].split(' (')[0]}"
@@ -85,6 +86,11 @@ def build_parser() -> Parser:
     parser.add_argument("--debug", action="store_true", help="show tracebacks of errors")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name in COMMANDS:
+        if only is not None and name != only:
+            # not the command being run: a bare entry, so its module (some import scipy,
+            # about a second) is not loaded just to start `rigbench kill`
+            sub.add_parser(name, add_help=False).add_argument("rest", nargs=argparse.REMAINDER)
+            continue
         try:
             module = importlib.import_module(f"bench.commands.{name}")
             sp = module.add_parser(sub)
@@ -122,18 +128,19 @@ def main(argv: list[str] | None = None) -> int:
 
     argv = sys.argv[1:] if argv is None else list(argv)
     debug = "--debug" in argv
+    if (DEFAULT_COMMAND in COMMANDS and not any(tok in COMMANDS for tok in argv)
+            and not any(tok in ("-h", "--help") for tok in argv)):
+        # `rigbench --port /dev/ttyACM0` means the default command with that option
+        argv = [DEFAULT_COMMAND] + [tok for tok in argv if tok != "--debug"] + (
+            ["--debug"] if debug else [])
     try:
-        parser = build_parser()
+        selected = next((tok for tok in argv if tok in COMMANDS), None)
+        parser = build_parser(only=selected) if selected else build_parser()
         args = parser.parse_args(argv)
     except UsageError as exc:
         return _fail(EXIT_USAGE, str(exc), False)
     except SystemExit as exc:  # --help, --version
         return exc.code if isinstance(exc.code, int) else EXIT_OK
-    if getattr(args, "_run", None) is None and DEFAULT_COMMAND in COMMANDS:
-        try:
-            args = parser.parse_args(argv + [DEFAULT_COMMAND])
-        except UsageError as exc:
-            return _fail(EXIT_USAGE, str(exc), False)
     if getattr(args, "_run", None) is None:
         return _fail(EXIT_USAGE, f"name a command: {', '.join(COMMANDS)} (see rigbench --help)",
                      False)

@@ -102,8 +102,8 @@ def test_internal_error_is_one_line_unless_debug(capsys, monkeypatch):
 def _parser_running(fn):
     real = cli.build_parser
 
-    def build():
-        parser = real()
+    def build(only=None):
+        parser = real(only)
         parser.set_defaults(_run=fn)
         for action in parser._subparsers._group_actions:
             for sub in action.choices.values():
@@ -161,3 +161,13 @@ def test_ports_lists_descriptions_or_says_none(capsys, monkeypatch):
     monkeypatch.setattr(list_ports, "comports", lambda: [fake])
     code, out, _ = run(["ports", "--json"], capsys)
     assert json.loads(out)["ports"][0]["description"] == "USB serial board"
+
+
+def test_options_before_any_command_go_to_the_default_command(capsys, monkeypatch):
+    import importlib
+
+    module = importlib.import_module(f"bench.commands.{cli.DEFAULT_COMMAND}")
+    seen = []
+    monkeypatch.setattr(module, "run", lambda args: seen.append(args.port) or 0)
+    code, _, err = run(["--port", "sim://wheel"], capsys)
+    assert code == 0 and seen == ["sim://wheel"], err
