@@ -21,10 +21,10 @@ units, for its sample time):
 
 Predictions, for every proposal that applies and for the board's current gains:
 - margins (bench.tuning.margins) of the discrete controller at the board's sample time,
-  with the derivative filter the board declares (``<loop>_dfilt_s``), on the model (when
-  the model's dead time exceeds 20 samples: the continuous controller with half a sample
-  more dead time, as the exact discrete loop would be a polynomial of huge degree);
-  unstable loops get lower and upper gain margins;
+  with the derivative filter the board declares (``<loop>_dfilt_s``), on the exact
+  zero-order-hold model, however long its dead time (margins splits the dead time off
+  and counts stability by the Nyquist criterion, so hundreds of samples cost
+  milliseconds); unstable loops get lower and upper gain margins;
 - a simulated disturbance on the model: a load step at the plant input of the relay's
   amplitude (stable loops), or an input pulse as large as the output's swing in the relay
   test and a quarter period long (unstable loops); metrics per METHODS.md §5 with a band
@@ -137,8 +137,8 @@ class _Judge:
     """Predicts margins and the disturbance response of gains on the model."""
 
     def __init__(self, run: RelayRun, plant, direct: bool, band: float, dist: dict, *,
-                 steps: int = 2000, max_delay_samples: int = 20):
-        self.steps, self.max_delay_samples = steps, max_delay_samples
+                 steps: int = 2000):
+        self.steps = steps
         ls = run.loop
         self.plant, self.direct, self.band, self.dist = plant, direct, band, dist
         self.h = run.board.dt_s if run.board else 0.002
@@ -150,17 +150,8 @@ class _Judge:
             return
         ctrl = LoopController(item.kp, item.ki, item.kd, tf_s=self.tf, h_s=self.h,
                               direct_acting=self.direct)
-        plant = self.plant
-        if plant.delay_s > self.max_delay_samples * self.h:
-            # a long dead time makes the exact discrete loop a polynomial of hundreds of
-            # degrees in z: use the continuous controller with the sample-and-hold as half
-            # a period more dead time (accurate while ω·h << 1)
-            ctrl = LoopController(item.kp, item.ki, item.kd, tf_s=self.tf,
-                                  direct_acting=self.direct)
-            plant = PlantModel(plant.num, plant.den, plant.delay_s + self.h / 2)
-            item.details["margins_method"] = "continuous, hold as h/2 of dead time"
         try:
-            item.margins = margins(ctrl, plant)
+            item.margins = margins(ctrl, self.plant)
         except (ValueError, np.linalg.LinAlgError, ZeroDivisionError) as exc:
             item.notes = f"{item.notes}; margins not computed: {exc}".strip("; ")
             return
