@@ -24,9 +24,14 @@ the analysis of bench.tuning.relay.
    cycle), an automatic hysteresis grows ×3 instead, up to the target oscillation:
    the cycle then sits at −180° + arcsin(ε/a) (METHODS.md §3), which the exact point
    accounts for.
-3. **Convergence** (RelayTracker): ``cycles`` consecutive cycles whose cycle-to-cycle
-   change of period and amplitude is under ``tol``, after discarding the first; else give
-   up at ``max_s`` with the tracker's reason.
+3. **Convergence** (RelayTracker, bench.tuning.cycles): after discarding the first
+   cycle, the last ``cycles`` cycles no longer drift — the change of period and amplitude
+   along a line fitted across them is within ``tol``, the period's resolution (1.5 loop
+   samples: the board switches at its samples) or three standard errors of the
+   cycle-to-cycle noise, whichever is largest — and scatter by less than 25%; else give
+   up at ``max_s`` with the tracker's reason. Noise-limited cycles (a band set wide by
+   the automatic hysteresis) and cycles a few tens of samples long converge by this
+   test; their scatter is reported with the result.
 4. **Excitation for the model fit** (integral relays): back in hold, a set-point doublet
    (+A then −A, each ``1.25`` relay periods long, A = ``excite_fraction`` × trip limit).
    The fit window (``fit_window``) runs from the quiet hold to the end of the doublet.
@@ -286,7 +291,8 @@ def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, b
         done = max(p.cycles - discard, 0)
         est = {"period_s": p.period_s, "amplitude": p.amplitude,
                "ku": p.ku if ls.relay == "output" else None,
-               "period_change": p.period_change, "amplitude_change": p.amplitude_change}
+               "period_change": p.period_change, "amplitude_change": p.amplitude_change,
+               "period_scatter": p.period_scatter, "amplitude_scatter": p.amplitude_scatter}
         exp.report("relay", budget_s=budget, cycles=done, cycles_needed=cycles,
                    fraction=min(1.0, max(done / cycles, (exp.elapsed_s() - t_start) / budget)),
                    estimate=est, message=f"relay amplitude {settings.amplitude:.4g}")
@@ -342,18 +348,8 @@ def _run(exp: Experiment, ls: LoopSignals, st: dict, *, amplitude, hysteresis, b
             break
         d = d_new
         tracker = start(d)
-    # -- run until the cycles agree. Where the band sets the cycle (the hysteresis had to
-    # grow), noise shifts each switching instant by about σ/slope, which makes periods
-    # scatter by about σ/(4ε): the tolerance is widened to 1.5·σ/a so that noise alone
-    # does not hold convergence off (the point still averages over whole cycles).
-    if cur["hyst"] > hyst and tracker.amplitudes:
-        a_now = float(np.mean(tracker.amplitudes[-2:]))
-        tol_eff = max(tol, 1.5 * sigma / a_now) if a_now > 0 else tol
-        if tol_eff > tol:
-            st["tol"] = tol_eff
-            tracker = RelayTracker(amplitude=d, hysteresis=cur["hyst"], bias=an_bias,
-                                   discard_cycles=discard, tol=tol_eff, min_cycles=cycles)
-            prog["tracker"] = tracker
+    # -- run until the cycles no longer drift (the tracker's test allows for noise and
+    # for the period's resolution of one loop sample)
     left = max_s - (exp.elapsed_s() - t_start)
     settled = exp.wait(max(left, 0.0), until=lambda: tracker.progress().settled,
                        on_block=feed)

@@ -20,12 +20,18 @@ Conventions
 - ``static_gain`` = ∫y dt / ∫u dt over whole periods (biased relay, Shen, Wu & Yu 1996);
   ``None`` when ``bias == 0``. Signals must be deviations from the operating point where
   u = 0 gives y = 0.
-- Convergence: after discarding ``discard_cycles`` cycles, the longest trailing run of
-  cycles whose cycle-to-cycle change in period and amplitude (and, for a biased relay, in
-  the per-cycle ∫y/∫u, whose slow transient otherwise biases the static gain by ~1%) is
-  below ``tol`` (relative to the mean) must hold at least ``min_cycles`` cycles; those
-  cycles are the ones used. Not converged: all cycles after the discarded ones are used
-  and ``reason`` says why.
+- Convergence (bench.tuning.cycles): after discarding ``discard_cycles`` cycles, the
+  longest trailing window of at least ``min_cycles`` cycles whose period, amplitude (and,
+  for a biased relay, per-cycle ∫y/∫u, whose slow transient otherwise biases the static
+  gain by ~1%) no longer drift: the change along a line fitted across the window is
+  within max(``tol``, the series' resolution, ``noise_sigmas`` standard errors of that
+  change, the noise being estimated once ``noise_cycles`` cycles are in), and no series
+  scatters by more than ``max_scatter`` (chatter). The period's resolution is
+  ``resolution_samples`` sample intervals (a board switches at its samples), so
+  noise-limited cycles and periods of a few tens of samples converge, while a trend does
+  not. Those cycles are the ones used; the result reports each series' scatter, standard
+  error and drift (``convergence``). Not converged: all cycles after the discarded ones
+  are used and ``reason`` says which series did not settle.
 
 Public API: analyse_relay, RelayResult, RelayTracker, RelayProgress, FrequencyPoint,
 fundamental_ratio.
@@ -40,6 +46,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
+from .cycles import CycleCheck, check_cycles, settled_cycles
 from .point import FrequencyPoint
 
 __all__ = ["analyse_relay", "RelayResult", "RelayTracker", "RelayProgress",
@@ -52,7 +59,7 @@ class RelayResult:
     reason: str                 # why not converged ('' when converged)
     cycles: int                 # cycles used for the estimates
     period_s: float | None
-    period_scatter: float | None    # relative standard deviation of the cycle periods
+    period_scatter: float | None    # relative sample standard deviation of the periods
     amplitude: float | None         # mean half peak-to-peak of y per cycle
     amplitude_scatter: float | None
     ku: float | None                # 4·d/(π·a)
@@ -64,6 +71,9 @@ class RelayResult:
     relay_amplitude: float | None = None  # the relay settings, for the record
     hysteresis: float | None = None
     bias: float | None = None
+    period_stderr: float | None = None      # period_scatter/√cycles: precision of period_s
+    amplitude_stderr: float | None = None
+    convergence: CycleCheck | None = None   # per-series scatter, drift and allowance
 
 
 def rising_switches(relay, *, level: float = 0.0) -> np.ndarray:
@@ -119,38 +129,23 @@ def _cycle_stats(t: np.ndarray, u: np.ndarray, y: np.ndarray, rises: np.ndarray)
     return periods, amps, gains
 
 
-def _rel_changes(x: np.ndarray) -> np.ndarray:
-    if len(x) < 2:
-        return np.zeros(0)
-    return np.abs(np.diff(x)) / np.mean(np.abs(x))
+def _series(periods, amps, gains, biased: bool) -> dict:
+    out = {"period": periods, "amplitude": amps}
+    if biased:
+        out["static gain"] = gains
+    return out
 
 
-def _rel_std(x: np.ndarray) -> float:
-    return float(np.std(x) / np.mean(np.abs(x))) if len(x) > 1 else 0.0
-
-
-def _trailing_run(tol, *series) -> int:
-    """Length of the longest trailing run of cycles whose consecutive changes are < tol
-    in every one of ``series`` (period, amplitude, and per-cycle static gain if biased)."""
-    n = len(series[0])
-    if n == 0:
-        return 0
-    ok = np.ones(n - 1, dtype=bool)
-    for x in series:
-        with np.errstate(invalid="ignore"):
-            ok &= _rel_changes(np.asarray(x, dtype=float)) < tol
-    run = 1
-    for good in ok[::-1]:
-        if not good:
-            break
-        run += 1
-    return run
+def _sample_interval(t: np.ndarray) -> float:
+    return float(np.median(np.diff(t))) if len(t) > 1 else 0.0
 
 
 def analyse_relay(t_s, relay, u, y, *, amplitude: float, hysteresis: float = 0.0,
                   bias: float = 0.0, discard_cycles: int = 1, tol: float = 0.02,
                   min_cycles: int = 3, level: float = 0.0,
-                  phase_centre_deg: float = -180.0) -> RelayResult:
+                  phase_centre_deg: float = -180.0, noise_sigmas: float = 3.0,
+                  resolution_samples: float = 1.5, max_scatter: float = 0.25,
+                  noise_cycles: int = 8) -> RelayResult:
     """Analyse a logged relay experiment (see the module docstring for conventions).
 
     ``amplitude`` is the relay's half step d (u = bias ± d). ``hysteresis`` is only
@@ -166,6 +161,10 @@ def analyse_relay(t_s, relay, u, y, *, amplitude: float, hysteresis: float = 0.0
         raise ValueError("amplitude must be positive")
     if hysteresis < 0 or discard_cycles < 0 or min_cycles < 1 or tol <= 0:
         raise ValueError("hysteresis, discard_cycles >= 0; min_cycles >= 1; tol > 0")
+    if noise_sigmas < 0 or resolution_samples < 0 or max_scatter <= 0:
+        raise ValueError("noise_sigmas, resolution_samples >= 0; max_scatter > 0")
+    opts = dict(tol=tol, noise_sigmas=noise_sigmas, max_scatter=max_scatter,
+                noise_cycles=noise_cycles)
     if np.any(np.diff(t) <= 0):
         raise ValueError("t_s must be strictly increasing")
 
@@ -178,24 +177,25 @@ def analyse_relay(t_s, relay, u, y, *, amplitude: float, hysteresis: float = 0.0
                            None, None, None, None, None, None, amplitude, hysteresis, bias)
     rises = rises[discard_cycles:]
     periods, amps, gains = _cycle_stats(t, uu, yy, rises)
-    series = (periods, amps, gains) if bias != 0.0 else (periods, amps)
-    run = _trailing_run(tol, *series)
-    if run >= min_cycles:
+    series = _series(periods, amps, gains, bias != 0.0)
+    need = max(min_cycles, 3)
+    floors = {"period": resolution_samples * _sample_interval(t[rises[0]:rises[-1] + 1])}
+    used, check = settled_cycles(series, min_cycles=need, floors=floors, **opts)
+    if used:
         converged, reason = True, ""
-        used = run
     else:
         converged = False
         used = len(periods)
-        if len(periods) < min_cycles:
+        if check is None:
             reason = (f"only {len(periods)} cycle(s) after discarding {discard_cycles}; "
-                      f"need {min_cycles}")
+                      f"need {need}")
         else:
-            names = ("period", "amplitude", "static gain")
-            changes = ", ".join(f"{name} {100 * _rel_changes(x)[-1]:.1f}%"
-                                for name, x in zip(names, series))
-            reason = (f"last cycle-to-cycle change: {changes} (tolerance "
-                      f"{100 * tol:.1f}%); the last {run} cycle(s) agree, "
-                      f"{min_cycles} needed")
+            bad = [c.name for c in check.series if not c.ok]
+            reason = (f"{' and '.join(bad)} not settled over the last {need} cycles "
+                      f"(drift or scatter above the allowance, max scatter "
+                      f"{100 * max_scatter:.3g}%): {check.describe()}")
+        if used >= 3:  # the figures of all the cycles, which are the ones used
+            check = check_cycles(series, floors=floors, **opts)
     rises = rises[len(rises) - 1 - used:]
     periods, amps = periods[-used:], amps[-used:]
 
@@ -210,9 +210,18 @@ def analyse_relay(t_s, relay, u, y, *, amplitude: float, hysteresis: float = 0.0
         int_y = float(np.sum(0.5 * (yw[1:] + yw[:-1]) * np.diff(tw)))
         static_gain = int_y / int_u if int_u != 0.0 else None
     ku = 4.0 * amplitude / (math.pi * amp) if amp > 0 else None
-    return RelayResult(converged, reason, used, period, _rel_std(periods), amp,
-                       _rel_std(amps), ku, period, point, static_gain,
-                       float(t[a]), float(t[b]), amplitude, hysteresis, bias)
+    p_check = check.get("period") if check is not None else None
+    a_check = check.get("amplitude") if check is not None else None
+    return RelayResult(converged, reason, used, period, _scatter(periods), amp,
+                       _scatter(amps), ku, period, point, static_gain,
+                       float(t[a]), float(t[b]), amplitude, hysteresis, bias,
+                       p_check.stderr if p_check else None,
+                       a_check.stderr if a_check else None, check)
+
+
+def _scatter(x: np.ndarray) -> float:
+    """Relative sample standard deviation (0 for a single value)."""
+    return float(np.std(x, ddof=1) / np.mean(np.abs(x))) if len(x) > 1 else 0.0
 
 
 @dataclass(frozen=True)
@@ -226,7 +235,10 @@ class RelayProgress:
     static_gain: float | None      # ∫y/∫u over the last cycle (biased relay only)
     period_change: float | None    # relative change from the previous cycle
     amplitude_change: float | None
-    settled: bool                  # same convergence test as analyse_relay, on cycles so far
+    settled: bool                  # analyse_relay's test on the last min_cycles cycles
+    period_scatter: float | None = None     # relative, over the last min_cycles cycles
+    amplitude_scatter: float | None = None
+    convergence: CycleCheck | None = None   # that test's figures per series
 
 
 class RelayTracker:
@@ -240,12 +252,17 @@ class RelayTracker:
 
     def __init__(self, *, amplitude: float, hysteresis: float = 0.0, bias: float = 0.0,
                  discard_cycles: int = 1, tol: float = 0.02, min_cycles: int = 3,
-                 level: float = 0.0, max_samples: int = 2_000_000):
+                 level: float = 0.0, noise_sigmas: float = 3.0,
+                 resolution_samples: float = 1.5, max_scatter: float = 0.25,
+                 noise_cycles: int = 8, max_samples: int = 2_000_000):
         if amplitude <= 0:
             raise ValueError("amplitude must be positive")
         self._opts = dict(amplitude=amplitude, hysteresis=hysteresis, bias=bias,
                           discard_cycles=discard_cycles, tol=tol, min_cycles=min_cycles,
-                          level=level)
+                          level=level, noise_sigmas=noise_sigmas,
+                          resolution_samples=resolution_samples, max_scatter=max_scatter,
+                          noise_cycles=noise_cycles)
+        self._dt_s = 0.0   # sample interval (median of the latest chunk)
         self._max = int(max_samples)
         self._chunks: list[np.ndarray] = []
         self._n = 0
@@ -266,6 +283,9 @@ class RelayTracker:
         yy = np.atleast_1d(np.asarray(y, dtype=float))
         if not (len(t) == len(r) == len(uu) == len(yy)):
             raise ValueError("chunk arrays must have the same length")
+        steps = np.diff(t if self._last is None else np.r_[self._last[0], t])
+        if len(steps):
+            self._dt_s = float(np.median(steps))
         for k in range(len(t)):  # per sample: chunks are small and this is bookkeeping
             self._step(float(t[k]), bool(r[k] > self._opts["level"]), float(uu[k]),
                        float(yy[k]))
@@ -299,20 +319,27 @@ class RelayTracker:
         n = len(self.periods)
         if n == 0:
             return RelayProgress(0, None, None, None, None, None, None, False)
+        o = self._opts
         p, a = self.periods[-1], self.amplitudes[-1]
-        biased = self._opts["bias"] != 0.0
-        ku = 4.0 * self._opts["amplitude"] / (math.pi * a) if a > 0 else None
+        biased = o["bias"] != 0.0
+        ku = 4.0 * o["amplitude"] / (math.pi * a) if a > 0 else None
         dp = abs(p - self.periods[-2]) / p if n > 1 else None
         da = abs(a - self.amplitudes[-2]) / a if n > 1 and a > 0 else None
-        need = self._opts["min_cycles"]
-        settled = False
-        if n - self._opts["discard_cycles"] >= need:
-            series = [self.periods[-need:], self.amplitudes[-need:]]
-            if biased:
-                series.append(self.static_gains[-need:])
-            settled = _trailing_run(self._opts["tol"], *series) >= need
+        need = max(o["min_cycles"], 3)
+        check = None
+        kept = n - o["discard_cycles"]
+        if kept >= need:
+            series = _series(self.periods[-kept:], self.amplitudes[-kept:],
+                             self.static_gains[-kept:], biased)
+            check = check_cycles(series, window=need, tol=o["tol"],
+                                 noise_sigmas=o["noise_sigmas"],
+                                 noise_cycles=o["noise_cycles"], max_scatter=o["max_scatter"],
+                                 floors={"period": o["resolution_samples"] * self._dt_s})
         gain = self.static_gains[-1] if biased else None
-        return RelayProgress(n, p, a, ku, gain, dp, da, settled)
+        pc = check.get("period") if check else None
+        ac = check.get("amplitude") if check else None
+        return RelayProgress(n, p, a, ku, gain, dp, da, bool(check and check.settled),
+                             pc.scatter if pc else None, ac.scatter if ac else None, check)
 
     def result(self) -> RelayResult:
         """Full analysis of the samples kept so far."""
