@@ -18,7 +18,9 @@ bench.rig.wheel):
 - ``balance-torque``: the same rig with a torque drive: tilt loop motor torque (N.m) from
   tilt. Boot gains kp 0.078 N.m/deg, ki 0.14 N.m/(deg·s), kd 0.005 N.m·s/deg: poles of
   Jp·s³ + kd·s² + (kp − mgl)·s + ki at −3 and ω 15 rad/s, ζ 0.7 (our own design).
-- ``wheel``: motor and flywheel speed loop, armature volts from wheel speed, stable.
+- ``wheel``: motor and flywheel speed loop, armature volts from wheel speed, stable. The
+  wheel speed is the encoder's count difference through a first-order filter of
+  ``wheel_tc_s`` (default 5 ms, our own choice: boards filter encoder speed).
 - ``plant``: a linear transfer function with dead time; loop ``main``, r/y/u.
 
 Must not import serial, bench.link, bench.ui, Textual or control.
@@ -131,8 +133,23 @@ class BalanceInstruments(Instruments):
 
 
 class WheelInstruments(Instruments):
+    """Wheel speed through the board's first-order filter, as real boards filter the
+    encoder's count difference (one count per period is 0.12 rev/s at 4096 counts and
+    500 Hz): w[k] = w[k−1] + a·(raw[k] − w[k−1]), a = h/(wheel_tc_s + h) (backward Euler,
+    the complementary filter's form); ``wheel_tc_s`` = 0 passes the raw difference."""
+
+    def __init__(self, dt_s: float) -> None:
+        self.dt_s = dt_s
+        self._wheel: float | None = None
+
+    def reset(self) -> None:
+        self._wheel = None
+
     def read(self, sensors, params):
-        return {"wheel": sensors["wheel_rad_s"] / _REV, "current": sensors["current_A"]}
+        raw = sensors["wheel_rad_s"] / _REV
+        a = self.dt_s / (params["wheel_tc_s"] + self.dt_s)
+        self._wheel = raw if self._wheel is None else self._wheel + a * (raw - self._wheel)
+        return {"wheel": self._wheel, "current": sensors["current_A"]}
 
 
 class PlantInstruments(Instruments):
@@ -262,6 +279,7 @@ def _wheel() -> RigDef:
         P("speed_sp", "rev/s", -70, 70, 0.0), P("cmd_limit", "V", 0, 12, 12),
         P("trip_wheel", "rev/s", 1, 100, 90), P("arm_wheel", "rev/s", 0.1, 100, 2),
         P("supply_v", "V", 12, 12, 12, writable=False),
+        P("wheel_tc_s", "s", 0, 0.05, 0.005),   # wheel-speed filter (WheelInstruments)
     )
     loops = (LoopDef("speed", measure="wheel", output="cmd",
                      gains=("speed_kp", "speed_ki", "speed_kd"), plant="stable", relay="output",
@@ -275,7 +293,7 @@ def _wheel() -> RigDef:
 
     return RigDef(rig="wheel", board="sim-wheel-1", params=params, signals=signals,
                   loops=loops, command="cmd", command_si=1.0, make_plant=plant,
-                  make_instruments=lambda dt_s: WheelInstruments())
+                  make_instruments=WheelInstruments)
 
 
 # ----------------------------------------------------------------------------- plant
