@@ -21,6 +21,12 @@ w[k+1] = α·w[k] + β·u[k−d] for d = 0..max_delay, the best d kept; τe = �
 g = β/(1 − α). Torque drive: θ̈ = a²θ − b·u[k−d] + k0 with the same scan of d.
 Uncertainties are 1-sigma from the least-squares covariance, with the residual variance
 counted over n_eff = n·2·fc·dt samples (the filter correlates neighbouring residuals).
+A record that cannot give a model raises :class:`BalanceFitError` (a ValueError) saying
+why: too short for the filter, no unstable pole in the data, or a driver lag that is not
+identified — the actuator fit's α must lie in (0, 1) by two standard errors, which a
+short or unexcited window (the wheel barely moving beyond its slow drift) fails, often
+with α > 1. Such a record is refused rather than fitted within bounds: a lag pinned at a
+bound would look like a measurement.
 Identify from relay or PRBS runs: quiet data with unmeasured pushes bias a (METHODS §4).
 
 Designs live in bench.tuning.balance_design (pole placement, LQR) and are re-exported here.
@@ -38,10 +44,14 @@ from scipy import signal
 
 from .loop import PlantModel
 
-__all__ = ["BalanceModel", "fit_balance_model", "design_pole_placement", "design_lqr",
-           "LqrDesign", "DRIVES"]
+__all__ = ["BalanceModel", "BalanceFitError", "fit_balance_model", "design_pole_placement",
+           "design_lqr", "LqrDesign", "DRIVES"]
 
 DRIVES = ("speed", "torque")
+
+
+class BalanceFitError(ValueError):
+    """The record cannot give a balance model; the message says why and what to record."""
 
 
 @dataclass(frozen=True)
@@ -114,7 +124,9 @@ def fit_balance_model(t_s, tilt_rad, gyro_rad_s, wheel_rad_s, command, *, dt: fl
     tilt, gyro, wheel, cmd = (signal.filtfilt(b, a, v) for v in arrays)
     edge = int(round((3.0 / cutoff_hz if trim_s is None else trim_s) / dt))
     if n - 2 * edge < 50 + max_delay:
-        raise ValueError("record too short for the filter and delay scan")
+        raise BalanceFitError(f"record too short for the filter and delay scan: {n} samples, "
+                              f"{2 * edge} of them lost to the filter's edges, "
+                              f"{50 + max_delay} needed after that")
     sl = slice(edge, n - edge)
     acc = np.gradient(gyro, dt)[sl]
     n_eff = (n - 2 * edge) * min(1.0, 2.0 * cutoff_hz * dt)
@@ -126,8 +138,7 @@ def fit_balance_model(t_s, tilt_rad, gyro_rad_s, wheel_rad_s, command, *, dt: fl
         _check_unstable(p[0])
         act = _fit_actuator(wheel[sl], cmd[sl], max_delay, n_eff)
         alpha, beta, d, acov = act
-        if not 0 < alpha < 1:
-            raise ValueError(f"driver model not a stable lag (α = {alpha:.4f})")
+        _check_lag(alpha, math.sqrt(acov[0, 0]), n * dt)
         tau = -dt / math.log(alpha)
         gain = beta / (1.0 - alpha)
         tau_sig = dt * math.sqrt(acov[0, 0]) / (alpha * math.log(alpha) ** 2)
@@ -157,8 +168,20 @@ def fit_balance_model(t_s, tilt_rad, gyro_rad_s, wheel_rad_s, command, *, dt: fl
 
 def _check_unstable(a2: float) -> None:
     if a2 <= 0:
-        raise ValueError(f"no unstable pole in the data (a² = {a2:.3g} <= 0); "
-                         "identify from relay or PRBS runs")
+        raise BalanceFitError(f"no unstable pole in the data (a² = {a2:.3g} <= 0); "
+                              "identify from relay or PRBS runs")
+
+
+def _check_lag(alpha: float, sigma: float, seconds: float, sigmas: float = 2.0) -> None:
+    """The driver's w[k+1] = α·w[k] + β·u is a lag only for 0 < α < 1, by ``sigmas``."""
+    if sigmas * sigma < alpha < 1.0 - sigmas * sigma:
+        return
+    raise BalanceFitError(
+        f"driver lag not identified from this record ({seconds:.3g} s): the wheel-speed fit "
+        f"w[k+1] = α·w[k] + β·u[k−d] gives α = {alpha:.4f} ± {sigma:.2g}, but a lag needs "
+        f"0 < α < 1 by {sigmas:g} standard errors (τe = −dt/ln α); the command moves the "
+        "wheel too little beyond its slow drift. Fit a longer record with excitation: a "
+        "relay test with its set-point doublet, or a PRBS")
 
 
 def _fit_actuator(wheel, cmd, max_delay: int, n_eff: float):
