@@ -19,6 +19,8 @@ Options (``parse_replay_url``, a pure function; each at most once, unknown ones 
 Attributes beyond pyserial's: ``clock`` (the port's clock, RealClock or VirtualClock from
 bench.rig.clock), ``board`` (the ReplayBoard), ``options``.
 
+Line settings, modem lines and the output side come from ``bench.handlers.board_port``.
+
 Must not import bench.link, bench.ui or Textual.
 """
 
@@ -30,11 +32,12 @@ from dataclasses import dataclass
 from pathlib import Path
 from urllib.parse import parse_qsl, unquote, urlsplit
 
-from serial.serialutil import PortNotOpenError, SerialBase, SerialException
+from serial.serialutil import SerialException
 
 from bench.recording import RecordingError, load_recording
 from bench.rig.clock import RealClock, VirtualClock
 
+from .board_port import BoardPort
 from .replay_board import ReplayBoard
 
 __all__ = ["Serial", "ReplayOptions", "parse_replay_url"]
@@ -84,7 +87,7 @@ def parse_replay_url(url: str) -> ReplayOptions:
     return ReplayOptions(path, clock, speed, loop == "1")
 
 
-class Serial(SerialBase):
+class Serial(BoardPort):
     """A replayed recording as a serial port (see the module docstring)."""
 
     def __init__(self, *args, **kwargs) -> None:
@@ -99,10 +102,7 @@ class Serial(SerialBase):
     # ------------------------------------------------------------------ open / close
 
     def open(self) -> None:
-        if self.is_open:
-            raise SerialException("Port is already open.")
-        if self._port is None:
-            raise SerialException("Port must be configured before it can be used.")
+        self._check_can_open()
         try:
             self.options = parse_replay_url(self._port)
             rec = load_recording(Path(self.options.path))
@@ -119,9 +119,6 @@ class Serial(SerialBase):
     def from_url(self, url: str) -> str:
         parse_replay_url(url)
         return url
-
-    def _reconfigure_port(self) -> None:
-        pass  # no line settings: nothing to configure
 
     # ------------------------------------------------------------------ time
 
@@ -154,8 +151,7 @@ class Serial(SerialBase):
 
     @property
     def in_waiting(self) -> int:
-        if not self.is_open:
-            raise PortNotOpenError()
+        self._check_open()
         if self.clock.virtual:
             if not self.board.out:
                 self._step_virtual(VIRTUAL_IDLE_S)
@@ -164,8 +160,7 @@ class Serial(SerialBase):
         return len(self.board.out)
 
     def read(self, size: int = 1) -> bytes:
-        if not self.is_open:
-            raise PortNotOpenError()
+        self._check_open()
         if size <= 0:
             return b""
         board = self.board
@@ -194,8 +189,7 @@ class Serial(SerialBase):
             return board.drain(size)
 
     def write(self, data) -> int:
-        if not self.is_open:
-            raise PortNotOpenError()
+        self._check_open()
         data = bytes(data)
         with self._lock:
             if not self.clock.virtual:
@@ -204,46 +198,9 @@ class Serial(SerialBase):
         return len(data)
 
     def reset_input_buffer(self) -> None:
-        if not self.is_open:
-            raise PortNotOpenError()
+        self._check_open()
         with self._lock:
             self.board.drain()
 
-    def reset_output_buffer(self) -> None:
-        if not self.is_open:
-            raise PortNotOpenError()
-
-    @property
-    def out_waiting(self) -> int:
-        return 0
-
     def cancel_read(self) -> None:
         self._cancel = True
-
-    def cancel_write(self) -> None:
-        pass
-
-    def _update_break_state(self) -> None:
-        pass
-
-    def _update_rts_state(self) -> None:
-        pass
-
-    def _update_dtr_state(self) -> None:
-        pass
-
-    @property
-    def cts(self) -> bool:
-        return True
-
-    @property
-    def dsr(self) -> bool:
-        return True
-
-    @property
-    def ri(self) -> bool:
-        return False
-
-    @property
-    def cd(self) -> bool:
-        return True

@@ -19,6 +19,8 @@ counters).
 - Unplug (``unplug=`` fault): ``read`` and ``write`` raise ``SerialException``,
   ``in_waiting`` raises ``OSError`` (EIO), as a vanished USB device does on Linux.
 
+Line settings, modem lines and the output side come from ``bench.handlers.board_port``.
+
 Must not import bench.link or bench.ui.
 """
 
@@ -28,11 +30,13 @@ import errno
 import threading
 import time
 
-from serial.serialutil import PortNotOpenError, SerialBase, SerialException
+from serial.serialutil import SerialException
 
 from bench.rig.clock import RealClock, VirtualClock
 from bench.rig.simlink import SimLink
 from bench.rig.url import parse_sim_url
+
+from .board_port import BoardPort
 
 __all__ = ["Serial"]
 
@@ -42,7 +46,7 @@ REAL_BATCH_S = 0.002       # how often the real-time stepper wakes
 REAL_MAX_LAG_S = 0.25      # beyond this the stepper skips instead of catching up
 
 
-class Serial(SerialBase):
+class Serial(BoardPort):
     """A simulated board as a serial port (see the module docstring)."""
 
     def __init__(self, *args, **kwargs) -> None:
@@ -64,10 +68,7 @@ class Serial(SerialBase):
     # ------------------------------------------------------------------ open / close
 
     def open(self) -> None:
-        if self.is_open:
-            raise SerialException("Port is already open.")
-        if self._port is None:
-            raise SerialException("Port must be configured before it can be used.")
+        self._check_can_open()
         try:
             options = parse_sim_url(self._port)
             self.link = SimLink(options)
@@ -97,9 +98,6 @@ class Serial(SerialBase):
     def from_url(self, url: str) -> str:
         parse_sim_url(url)
         return url
-
-    def _reconfigure_port(self) -> None:
-        pass  # no line settings: the simulated link has no baud rate
 
     # ------------------------------------------------------------------ real clock
 
@@ -152,16 +150,14 @@ class Serial(SerialBase):
     # ------------------------------------------------------------------ pyserial API
 
     def _check_plug(self) -> None:
-        if not self.is_open:
-            raise PortNotOpenError()
+        self._check_open()
         if self.link.unplugged:
             raise SerialException("device reports readiness to read but returned no data "
                                   "(device disconnected or multiple access on port?)")
 
     @property
     def in_waiting(self) -> int:
-        if not self.is_open:
-            raise PortNotOpenError()
+        self._check_open()
         if self.link.unplugged:
             raise OSError(errno.EIO, "Input/output error")
         if self.clock.virtual and not self._buf:
@@ -201,8 +197,7 @@ class Serial(SerialBase):
         return data
 
     def write(self, data) -> int:
-        if not self.is_open:
-            raise PortNotOpenError()
+        self._check_open()
         if self.link.unplugged:
             raise SerialException(f"write failed: [Errno {errno.EIO}] Input/output error")
         data = bytes(data)
@@ -211,48 +206,11 @@ class Serial(SerialBase):
         return len(data)
 
     def reset_input_buffer(self) -> None:
-        if not self.is_open:
-            raise PortNotOpenError()
+        self._check_open()
         with self._lock:
             self._buf.clear()
-
-    def reset_output_buffer(self) -> None:
-        if not self.is_open:
-            raise PortNotOpenError()
-
-    @property
-    def out_waiting(self) -> int:
-        return 0
 
     def cancel_read(self) -> None:
         self._cancel = True
         with self._cond:
             self._cond.notify_all()
-
-    def cancel_write(self) -> None:
-        pass
-
-    def _update_break_state(self) -> None:
-        pass
-
-    def _update_rts_state(self) -> None:
-        pass
-
-    def _update_dtr_state(self) -> None:
-        pass
-
-    @property
-    def cts(self) -> bool:
-        return True
-
-    @property
-    def dsr(self) -> bool:
-        return True
-
-    @property
-    def ri(self) -> bool:
-        return False
-
-    @property
-    def cd(self) -> bool:
-        return True
