@@ -37,7 +37,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from bench.rig.sensing import Encoder, GaussianStream
+from bench.rig.sensing import Encoder, GaussianStream, check_counts_per_rev
+from bench.rig.stepping import check_push, clip_command, count_substeps
 
 __all__ = ["BalanceParams", "BalanceRig", "DRIVES"]
 
@@ -97,9 +98,7 @@ class BalanceParams:
         for name in ("balance_offset_rad", "accel_bias_rad", "gyro_bias_rad_s"):
             if not math.isfinite(getattr(self, name)):
                 raise ValueError(f"BalanceParams.{name} must be finite")
-        if self.counts_per_rev < 0 or int(self.counts_per_rev) != self.counts_per_rev:
-            raise ValueError("counts_per_rev must be a whole number >= 0, "
-                             f"got {self.counts_per_rev}")
+        check_counts_per_rev(self.counts_per_rev)
 
     @property
     def mgl_Nm_rad(self) -> float:
@@ -155,19 +154,14 @@ class BalanceRig:
             raise ValueError("params must be a BalanceParams")
         if drive not in DRIVES:
             raise ValueError(f"drive must be one of {DRIVES}, got {drive!r}")
-        if not (math.isfinite(noise) and noise >= 0.0):
-            raise ValueError(f"noise must be finite and >= 0, got {noise}")
-        if not (math.isfinite(dt_s) and dt_s > 0.0):
-            raise ValueError(f"dt_s must be finite and > 0, got {dt_s}")
-        if not (math.isfinite(max_substep_s) and max_substep_s > 0.0):
-            raise ValueError(f"max_substep_s must be finite and > 0, got {max_substep_s}")
+        substeps = count_substeps(noise=noise, dt_s=dt_s, max_substep_s=max_substep_s)
         if not (math.isfinite(initial_tilt_rad) and abs(initial_tilt_rad) <= p.tilt_stop_rad):
             raise ValueError(f"initial_tilt_rad must lie within the stops, got {initial_tilt_rad}")
         self.params = p
         self.drive = drive
         self.noise = float(noise)
         self.dt_s = float(dt_s)
-        self.substeps = max(1, math.ceil(self.dt_s / max_substep_s - 1e-9))
+        self.substeps = substeps
         self._h = self.dt_s / self.substeps
         self.initial_tilt_rad = float(initial_tilt_rad)
         if drive == "speed":
@@ -220,10 +214,7 @@ class BalanceRig:
 
         The duration is rounded to whole integration substeps.
         """
-        if not math.isfinite(torque_Nm):
-            raise ValueError(f"torque_Nm must be finite, got {torque_Nm}")
-        if not (math.isfinite(duration_s) and duration_s >= 0.0):
-            raise ValueError(f"duration_s must be finite and >= 0, got {duration_s}")
+        check_push(torque_Nm, duration_s)
         self._push_Nm = float(torque_Nm)
         self._push_left = round(duration_s / self._h)
 
@@ -264,10 +255,7 @@ class BalanceRig:
 
     def step(self, command: float) -> None:
         """Hold ``command`` (rad/s in speed drive, N·m in torque drive) for ``dt_s``."""
-        if not math.isfinite(command):
-            raise ValueError(f"command must be finite, got {command}")
-        lo, hi = self.input_limits
-        cmd = hi if command > hi else (lo if command < lo else float(command))
+        cmd = clip_command(command, self.input_limits)
         h = self._h
         stop = self.params.tilt_stop_rad
         accel = self._accel

@@ -5,6 +5,7 @@
   plain ``math`` (a numpy call per scalar costs about a microsecond).
 - ``Encoder``: an incremental encoder read once per loop period; wheel speed is the count
   difference over the period, so it is quantised to one count per period.
+  ``check_counts_per_rev`` is its check of the count, for the plants' parameter sets too.
 - ``ComplementaryFilter``: the tilt estimate a balance board computes from its
   accelerometer tilt and gyro rate. It belongs to the board's firmware (its state resets
   with the board and its time constant is a board setting), so the plants do not run it;
@@ -19,7 +20,7 @@ import math
 
 import numpy as np
 
-__all__ = ["ComplementaryFilter", "Encoder", "GaussianStream"]
+__all__ = ["ComplementaryFilter", "Encoder", "GaussianStream", "check_counts_per_rev"]
 
 
 class GaussianStream:
@@ -49,6 +50,12 @@ class GaussianStream:
         return x
 
 
+def check_counts_per_rev(counts_per_rev: int) -> None:
+    """An encoder's counts per revolution: a whole number >= 0 (0: no quantisation)."""
+    if counts_per_rev < 0 or int(counts_per_rev) != counts_per_rev:
+        raise ValueError(f"counts_per_rev must be a whole number >= 0, got {counts_per_rev}")
+
+
 class Encoder:
     """Incremental encoder with ``counts_per_rev`` counts (edges) per revolution.
 
@@ -60,8 +67,7 @@ class Encoder:
     """
 
     def __init__(self, counts_per_rev: int, period_s: float) -> None:
-        if counts_per_rev < 0 or int(counts_per_rev) != counts_per_rev:
-            raise ValueError(f"counts_per_rev must be a whole number >= 0, got {counts_per_rev}")
+        check_counts_per_rev(counts_per_rev)
         if not period_s > 0.0:
             raise ValueError(f"period_s must be > 0, got {period_s}")
         self.counts_per_rev = int(counts_per_rev)

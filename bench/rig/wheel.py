@@ -28,7 +28,8 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.linalg import expm
 
-from bench.rig.sensing import Encoder, GaussianStream
+from bench.rig.sensing import Encoder, GaussianStream, check_counts_per_rev
+from bench.rig.stepping import check_push, clip_command, count_substeps
 
 __all__ = ["WheelParams", "WheelRig"]
 
@@ -68,9 +69,7 @@ class WheelParams:
             v = getattr(self, name)
             if not (math.isfinite(v) and v >= 0.0):
                 raise ValueError(f"WheelParams.{name} must be finite and >= 0, got {v}")
-        if self.counts_per_rev < 0 or int(self.counts_per_rev) != self.counts_per_rev:
-            raise ValueError("counts_per_rev must be a whole number >= 0, "
-                             f"got {self.counts_per_rev}")
+        check_counts_per_rev(self.counts_per_rev)
 
     @property
     def electrical_time_constant_s(self) -> float:
@@ -105,16 +104,11 @@ class WheelRig:
         p = WheelParams() if params is None else params
         if not isinstance(p, WheelParams):
             raise ValueError("params must be a WheelParams")
-        if not (math.isfinite(noise) and noise >= 0.0):
-            raise ValueError(f"noise must be finite and >= 0, got {noise}")
-        if not (math.isfinite(dt_s) and dt_s > 0.0):
-            raise ValueError(f"dt_s must be finite and > 0, got {dt_s}")
-        if not (math.isfinite(max_substep_s) and max_substep_s > 0.0):
-            raise ValueError(f"max_substep_s must be finite and > 0, got {max_substep_s}")
+        substeps = count_substeps(noise=noise, dt_s=dt_s, max_substep_s=max_substep_s)
         self.params = p
         self.noise = float(noise)
         self.dt_s = float(dt_s)
-        self.substeps = max(1, math.ceil(self.dt_s / max_substep_s - 1e-9))
+        self.substeps = substeps
         h = self.dt_s / self.substeps
         self.input_limits: tuple[float, float] = (-p.supply_voltage_V, p.supply_voltage_V)
         self._gauss = GaussianStream(rng)
@@ -150,19 +144,13 @@ class WheelRig:
 
         Rounded to whole substeps.
         """
-        if not math.isfinite(torque_Nm):
-            raise ValueError(f"torque_Nm must be finite, got {torque_Nm}")
-        if not (math.isfinite(duration_s) and duration_s >= 0.0):
-            raise ValueError(f"duration_s must be finite and >= 0, got {duration_s}")
+        check_push(torque_Nm, duration_s)
         self._load_Nm = float(torque_Nm)
         self._load_left = round(duration_s * self.substeps / self.dt_s)
 
     def step(self, command: float) -> None:
         """Hold armature voltage ``command`` (V, clipped to the supply) for ``dt_s``."""
-        if not math.isfinite(command):
-            raise ValueError(f"command must be finite, got {command}")
-        lo, hi = self.input_limits
-        u = hi if command > hi else (lo if command < lo else float(command))
+        u = clip_command(command, self.input_limits)
         p = self.params
         kt, tc, R = p.torque_constant_Nm_A, p.coulomb_friction_Nm, p.resistance_ohm
         (p00, p01, p02), (p10, p11, p12), (p20, p21, p22) = self._phi
