@@ -1,6 +1,10 @@
 """A one-line progress bar on stderr for long experiments (tune, sweep): redrawn in place on
 a terminal, silent otherwise (pipes and log files get the final result only).
 
+``experiment_run()`` is the block both commands run their experiment in: it hands out the
+bar, closes it at the end, and turns the board's refusal to arm (exit 4) and a bad option
+(``ValueError``, exit 2) into ``CommandError``.
+
 Must not import Textual or bench.ui.
 """
 
@@ -8,6 +12,11 @@ from __future__ import annotations
 
 import shutil
 import sys
+from collections.abc import Iterator
+from contextlib import contextmanager
+
+from bench.cli import EXIT_REFUSED, EXIT_USAGE, CommandError
+from bench.experiments.runner import ArmRefused
 
 
 class ProgressBar:
@@ -48,3 +57,20 @@ class ProgressBar:
             self.stream.write("\n")
             self.stream.flush()
             self._shown = False
+
+
+@contextmanager
+def experiment_run() -> Iterator[ProgressBar]:
+    """Run an experiment inside: yields a ProgressBar on stderr for its ``progress``, closes
+    it at the end; ArmRefused becomes CommandError(EXIT_REFUSED) naming the board's reasons,
+    ValueError (an option the experiment rejects) CommandError(EXIT_USAGE)."""
+    bar = ProgressBar(sys.stderr)
+    try:
+        yield bar
+    except ArmRefused as exc:
+        raise CommandError(EXIT_REFUSED, f"the board refused to arm: "
+                                         f"{', '.join(exc.reasons) or exc}") from None
+    except ValueError as exc:
+        raise CommandError(EXIT_USAGE, str(exc)) from None
+    finally:
+        bar.close()

@@ -17,19 +17,16 @@ Must not import Textual or bench.ui.
 from __future__ import annotations
 
 import json
-import sys
 from pathlib import Path
 
 from bench.cli import (
-    EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_LINK, EXIT_OK, EXIT_REFUSED, EXIT_TRIP, EXIT_USAGE,
-    CommandError,
+    EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_LINK, EXIT_OK, EXIT_TRIP, EXIT_USAGE, CommandError,
 )
-from bench.experiments.runner import ArmRefused
 from bench.experiments.sweep import GainSet, run_sweep
 from bench.profiles import SchemaError, check_against_board, load_profile
 
 from ._common import add_json_option, add_port_option, open_link, plain, print_json, table
-from ._progress import ProgressBar
+from ._progress import experiment_run
 
 EXIT_BY_STOP = {"done": EXIT_OK, "fell": EXIT_TRIP, "guard": EXIT_TRIP, "trip": EXIT_TRIP,
                 "stale": EXIT_TRIP, "reset": EXIT_TRIP, "lost": EXIT_LINK,
@@ -171,21 +168,13 @@ def run(args) -> int:
     out_dir = Path(args.out) if args.out else None
     if out_dir is not None:
         out_dir.mkdir(parents=True, exist_ok=True)
-    bar = ProgressBar(sys.stderr)
     with open_link(args) as link:
         sets = _load_sets(args, link)
-        try:
+        with experiment_run() as bar:
             sw = run_sweep(link, sets, loop=args.loop, amplitudes=amplitudes,
                            repeats=args.repeats, kind=args.kind, at=args.at,
                            width_s=args.width, settle_s=args.settle,
                            rearm_after_fall=args.rearm, progress=bar, results_dir=out_dir)
-        except ArmRefused as exc:
-            raise CommandError(EXIT_REFUSED, f"the board refused to arm: "
-                                             f"{', '.join(exc.reasons) or exc}") from None
-        except ValueError as exc:
-            raise CommandError(EXIT_USAGE, str(exc)) from None
-        finally:
-            bar.close()
     doc = sweep_document(sw)
     if out_dir is not None:
         (out_dir / "sweep.json").write_text(json.dumps(plain(doc), indent=2) + "\n")

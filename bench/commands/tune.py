@@ -18,20 +18,18 @@ from __future__ import annotations
 
 import json
 import math
-import sys
 from pathlib import Path
 
 from bench.cli import (
-    EXIT_CHECK, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_LINK, EXIT_OK, EXIT_REFUSED, EXIT_TRIP,
-    EXIT_USAGE, CommandError,
+    EXIT_CHECK, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_LINK, EXIT_OK, EXIT_TRIP, EXIT_USAGE,
+    CommandError,
 )
 from bench.experiments.conventions import primary_loop
 from bench.experiments.proposals import propose
 from bench.experiments.relay import run_relay
-from bench.experiments.runner import ArmRefused
 
 from ._common import add_json_option, add_port_option, open_link, plain, print_json, table
-from ._progress import ProgressBar
+from ._progress import experiment_run
 
 EXIT_BY_STOP = {"converged": EXIT_OK, "gave_up": EXIT_CHECK, "guard": EXIT_TRIP,
                 "trip": EXIT_TRIP, "stale": EXIT_TRIP, "reset": EXIT_TRIP, "lost": EXIT_LINK,
@@ -229,7 +227,6 @@ def run(args) -> int:
             out_dir.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
             raise CommandError(EXIT_USAGE, f"--out {out_dir}: {exc.strerror or exc}") from None
-    bar = ProgressBar(sys.stderr)
     with open_link(args) as link:
         loop = args.loop
         if loop is None:
@@ -239,18 +236,11 @@ def run(args) -> int:
         if loop not in link.loops:
             raise CommandError(EXIT_USAGE, f"the board has no loop {loop!r}; it has: "
                                + ", ".join(link.loops))
-        try:
+        with experiment_run() as bar:
             relay = run_relay(link, loop, amplitude=args.amplitude,
                               hysteresis=args.hysteresis, bias=args.bias,
                               max_s=args.max_seconds, cycles=args.cycles, progress=bar,
                               results_dir=out_dir)
-        except ArmRefused as exc:
-            raise CommandError(EXIT_REFUSED, f"the board refused to arm: "
-                                             f"{', '.join(exc.reasons) or exc}") from None
-        except ValueError as exc:
-            raise CommandError(EXIT_USAGE, str(exc)) from None
-        finally:
-            bar.close()
         ps, error = None, None
         if relay.converged:
             try:
