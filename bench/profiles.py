@@ -13,7 +13,6 @@ Must not import textual, bench.ui, bench.commands or control.
 from __future__ import annotations
 
 import datetime as _dt
-import difflib
 import re
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -23,7 +22,7 @@ from bench.atomic import write_text_atomic
 from bench.profile_diff import DiffRow, diff_profiles, format_diff, same_value
 from bench.wire.describe import LoopInfo, ParamInfo, format_value
 from bench.wire.messages import NAME_RE, WORD_RE
-from bench.yamlload import Cursor, MapCursor, SchemaError, load_yaml, load_yaml_text
+from bench.yamlload import Cursor, MapCursor, SchemaError, load_yaml, load_yaml_text, near_hint
 
 __all__ = ["PROFILE_VERSION", "SOURCES", "PREDICTED_KEYS", "Setting", "Provenance", "Profile",
            "Problem", "DiffRow", "SchemaError", "load_profile", "load_profile_text",
@@ -300,9 +299,8 @@ def check_against_board(profile: Profile, params: Mapping[str, ParamInfo],
         where = profile.where(name)
         p = params.get(name)
         if p is None:
-            near = difflib.get_close_matches(name, list(params), n=1)
-            hint = f" (did you mean {near[0]!r}?)" if near else ""
-            out.append(Problem(where, f"the board has no parameter {name!r}{hint}", s.line))
+            out.append(Problem(where, f"the board has no parameter {name!r}"
+                                      f"{near_hint(name, params)}", s.line))
             continue
         if s.unit != p.unit:
             out.append(Problem(where, f"unit {s.unit!r} differs from the board's {p.unit!r}",

@@ -12,7 +12,6 @@ Must not import textual, bench.ui, bench.commands, bench.link or control.
 
 from __future__ import annotations
 
-import difflib
 from typing import Iterable, Mapping
 
 from bench.profiles import Problem, check_against_board
@@ -20,6 +19,7 @@ from bench.sequence_steps import (
     PushStep, RelayStep, RepeatStep, Sequence, SetStep, Step, SweepStep, WaitStep,
 )
 from bench.wire.describe import LoopInfo, ParamInfo, format_value
+from bench.yamlload import near_hint
 
 __all__ = ["check_sequence_against_board"]
 
@@ -66,9 +66,8 @@ def _steps(steps, params, loops, signals, info, out: list[Problem]) -> None:
 def _param(step: Step, field: str, name: str, values, params, out: list[Problem]) -> None:
     p = params.get(name)
     if p is None:
-        near = difflib.get_close_matches(name, list(params), n=1)
-        hint = f" (did you mean {near[0]!r}?)" if near else ""
-        out.append(Problem(field, f"the board has no parameter {name!r}{hint}", step.line))
+        out.append(Problem(field, f"the board has no parameter {name!r}"
+                                  f"{near_hint(name, params)}", step.line))
         return
     if not p.writable:
         out.append(Problem(field, f"{name} is read-only on this board", step.line))

@@ -22,7 +22,6 @@ Must not import textual, bench.ui, bench.commands, bench.link or control.
 
 from __future__ import annotations
 
-import difflib
 import re
 from dataclasses import replace
 from pathlib import Path, PurePosixPath
@@ -36,7 +35,7 @@ from bench.sequence_steps import (
     WaitStep, count_steps, expand,
 )
 from bench.wire.messages import NAME_RE
-from bench.yamlload import Cursor, MapCursor, SchemaError, load_yaml, load_yaml_text
+from bench.yamlload import Cursor, MapCursor, SchemaError, load_yaml, load_yaml_text, near_hint
 
 __all__ = ["SEQUENCE_VERSION", "STEP_KINDS", "MAX_NESTING", "DEFAULT_STALE_S", "SchemaError",
            "load_sequence", "load_sequence_text", "project_folder", "expand", "Sequence"]
@@ -155,9 +154,8 @@ class _Reader:
         else:
             raise cur.error(f"expected a step (one of {kinds})")
         if kind not in STEP_KINDS:
-            near = difflib.get_close_matches(kind, STEP_KINDS, n=1)
-            hint = f" (did you mean {near[0]!r}?)" if near else ""
-            raise cur.error(f"unknown step kind {kind!r}{hint}; allowed: {kinds}")
+            raise cur.error(f"unknown step kind {kind!r}{near_hint(kind, STEP_KINDS)}; "
+                            f"allowed: {kinds}")
         reader, shorthand, required, optional = STEP_KINDS[kind]
         if body.value is None and not required:
             body = body.as_mapping({})

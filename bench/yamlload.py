@@ -15,6 +15,9 @@ What the loader accepts, deliberately narrower than YAML 1.1:
 - nesting deeper than ``MAX_DEPTH`` is an error.
 Nothing raised while reading a file is anything but ``SchemaError``.
 
+``near_hint(word, choices)`` is the " (did you mean 'x'?)" that the unknown-name messages
+of these files' readers and checkers carry (unknown key, step kind, parameter).
+
 Must not import anything from bench: this is a leaf (pyyaml and the standard library only).
 """
 
@@ -30,7 +33,7 @@ from typing import Any, Iterable
 import yaml
 
 __all__ = ["SchemaError", "StrictLoader", "Cursor", "MapCursor", "load_yaml", "load_yaml_text",
-           "MAX_DEPTH", "MAX_BYTES"]
+           "MAX_DEPTH", "MAX_BYTES", "near_hint"]
 
 MAX_DEPTH = 32
 MAX_BYTES = 1 << 20  # a profile or sequence is a few kB; refuse anything absurd
@@ -39,6 +42,12 @@ _TAG = "tag:yaml.org,2002:"
 _STR, _INT, _FLOAT, _BOOL, _NULL = (_TAG + t for t in ("str", "int", "float", "bool", "null"))
 _MAP, _SEQ = _TAG + "map", _TAG + "seq"
 
+
+
+def near_hint(word: str, choices: Iterable[str]) -> str:
+    """`` (did you mean 'x'?)`` naming the choice closest to ``word``, or "" if none is close."""
+    near = difflib.get_close_matches(word, choices, n=1)
+    return f" (did you mean {near[0]!r}?)" if near else ""
 
 class SchemaError(ValueError):
     """A file is not what its schema says: ``FILE:LINE: field: message``."""
@@ -257,8 +266,7 @@ class Cursor:
 
     def unknown_key(self, key: str, allowed: Iterable[str]) -> SchemaError:
         allowed = sorted(allowed)
-        near = difflib.get_close_matches(str(key), allowed, n=1)
-        hint = f" (did you mean {near[0]!r}?)" if near else ""
+        hint = near_hint(str(key), allowed)
         return self._child(key, None, self.value.lines[key][0]).error(
             f"unknown key {key!r}{hint}; allowed: {', '.join(allowed) or 'none'}")
 
