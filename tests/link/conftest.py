@@ -1,20 +1,11 @@
-"""Fixtures for link tests: a fake board behind a virtual-clock port, and a guard that no
-link thread ends with an unhandled exception (a traceback a user would see)."""
-
-import threading
+"""Fixtures for link tests: a fake board behind a virtual-clock port; ``link`` uses the
+``thread_errors`` guard of tests/conftest.py (no link thread ends with an unhandled
+exception)."""
 
 import pytest
 from fake_board import FakeBoard, FakePort
 
 from bench.link import Link
-
-
-@pytest.fixture
-def thread_errors(monkeypatch):
-    seen = []
-    monkeypatch.setattr(threading, "excepthook", lambda args: seen.append(args))
-    yield seen
-    assert not seen, [f"{a.thread.name}: {a.exc_value!r}" for a in seen]
 
 
 @pytest.fixture
