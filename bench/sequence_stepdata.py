@@ -5,7 +5,7 @@ their predicted margins, the pushes of a sweep with their metrics).
 - ``relay_outcome(run)``: the ``relay.*`` metrics of a bench.experiments RelayRun and, when
   the test converged, the proposals of bench.experiments.proposals with the identified
   plant (board units: measure/output) so a report can draw its frequency response.
-- ``push_record``: METHODS.md §5 metrics of one push of a sweep, the same recipe as
+- ``push_record``: docs/METHODS.md §5 metrics of one push of a sweep, the same recipe as
   bench.experiments.sweep: the error is the measure minus the streamed set-point signal
   (or the measure alone) less its mean over the ``pre_s`` before the push; the settling
   band is ``band_noise`` × the error's noise RMS before the push; the rig fell when

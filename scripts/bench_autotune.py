@@ -1,4 +1,4 @@
-"""Print how the relay autotune does on the METHODS.md §3 plants and the balance rig's two
+"""Print how the relay autotune does on the docs/METHODS.md §3 plants and the balance rig's two
 drives (simulated boards, virtual clock): rig seconds and cycles to convergence, wall
 time, the measured point's error against the true plant, Ku/Tu against the exact ultimate
 point, and for the balance rig the fitted unstable pole against the simulator's.
@@ -8,7 +8,7 @@ Not a test: figures depend on the seed and the machine (wall time).
     python scripts/bench_autotune.py [--seeds 3] [--noise 1]
 
 True responses: the plants' transfer functions evaluated with numpy; the balance rig's
-linear model θ/u from its parameters (METHODS.md §4: speed drive −c·s·H(s)/(s² − a²),
+linear model θ/u from its parameters (docs/METHODS.md §4: speed drive −c·s·H(s)/(s² − a²),
 H = 1/(T·s + 1); torque drive −(1/Jp)/(s² − a²)), in the board's units (deg per rev/s,
 deg per N.m), times the board's complementary tilt filter (it leads by about ω·dt/2).
 """
@@ -31,7 +31,7 @@ from bench.experiments.proposals import propose  # noqa: E402
 from bench.experiments.relay import run_relay  # noqa: E402
 from bench.link import Link  # noqa: E402
 
-# name: (num, den, delay s, exact Ku, exact Tu s) — METHODS.md §3 [calc]
+# name: (num, den, delay s, exact Ku, exact Tu s) — docs/METHODS.md §3 [calc]
 PLANTS = {
     "1/(s+1)^3": ((1.0,), (1.0, 3.0, 3.0, 1.0), 0.0, 8.0000, 3.6276),
     "e^-s/(s+1)": ((1.0,), (1.0, 1.0), 1.0, 2.2618, 3.0971),

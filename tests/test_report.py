@@ -88,7 +88,7 @@ def test_measured_point_on_the_model_plot_is_the_plants_response(relay_run):
     w, g = model.series["recomputed from the recording"]
     # G(s) = 1/(0.1s+1)^3: G(jω) = (1 + 0.1jω)^-3 (closed form); the relay's fundamental and third
     # harmonic over whole periods give G at ω and 3ω exactly for a linear plant
-    # (Åström & Hägglund 1984, as METHODS.md §3 states); noise and ZOH sampling leave ~1%
+    # (Åström & Hägglund 1984, as docs/METHODS.md §3 states); noise and ZOH sampling leave ~1%
     exact = (1 + 0.1j * w) ** -3
     np.testing.assert_allclose(np.abs(g), np.abs(exact), rtol=0.02)
     np.testing.assert_allclose(np.angle(g / exact, deg=True), 0.0, atol=2.0)

@@ -1,5 +1,5 @@
 """``rigbench sweep --gains A.yaml [--gains B.yaml ...]``: push each gain set, hold, inject
-disturbances at several amplitudes (repeated), and compare the METHODS.md §5 metrics.
+disturbances at several amplitudes (repeated), and compare the docs/METHODS.md §5 metrics.
 
 ``--gains`` takes a gain profile file (checked against the board first: unknown
 parameters, units, ranges) or inline values ``name=value,name=value`` (optionally

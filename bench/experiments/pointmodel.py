@@ -3,7 +3,7 @@
 A relay's output is a square wave, so besides the fundamental it excites the odd harmonics
 (and the even ones when biased). Over whole periods of a periodic steady state, the ratio
 of the k-th Fourier components Y_k/U_k is G(j·k·ω) exactly for a linear plant, just as it
-is for the fundamental (METHODS.md §3). :func:`harmonic_points` measures G at ω and 3ω;
+is for the fundamental (docs/METHODS.md §3). :func:`harmonic_points` measures G at ω and 3ω;
 with the static gain of a biased relay that is enough to fit
 
 - ``'lag'``:         G(s) = K·e^{−Ls}/(T·s + 1)^n        (stable loops), or

@@ -9,11 +9,11 @@ units, for its sample time):
   measured point with the target phase margin ``margin_deg``. The rules take Ku = 1/|G|,
   Tu = 2π/ω from the exact measured point when its phase is within 3° of −180°; otherwise
   (a large hysteresis moves the cycle off −180°) from the fitted model's own −180°
-  crossing, and only without a model from the describing function (METHODS.md §3 error
+  crossing, and only without a model from the describing function (docs/METHODS.md §3 error
   band). The model: K·e^{−Ls}/(Ts+1)^n (or with an integrator), fitted to G(jω), G(3jω)
   and the static gain of a biased relay (pointmodel.py).
 - **Unstable loops** (``relay=integral``): the ultimate-point rules are listed as "does not
-  apply" (no P-only ultimate gain exists, METHODS.md §4); offered are the one-point
+  apply" (no P-only ultimate gain exists, docs/METHODS.md §4); offered are the one-point
   designs on the measured point and, from the balance model fitted to the run's record
   (balancefit.py), pole placement PI/PID and LQR turned into the nearest PID plus the
   outer wheel-speed trim (the board has no state feedback, but the trim loop supplies the
@@ -21,13 +21,13 @@ units, for its sample time):
 
 Predictions, for every proposal that applies and for the board's current gains:
 - margins (bench.tuning.margins) of the discrete controller at the board's sample time,
-  with the derivative filter the board declares (``<loop>_dfilt_s``), on the exact
+  with the derivative filter the board declares (``dfilt=``, else ``<loop>_dfilt_s``), on the exact
   zero-order-hold model, however long its dead time (margins splits the dead time off
   and counts stability by the Nyquist criterion, so hundreds of samples cost
   milliseconds); unstable loops get lower and upper gain margins;
 - a simulated disturbance on the model: a load step at the plant input of the relay's
   amplitude (stable loops), or an input pulse as large as the output's swing in the relay
-  test and a quarter period long (unstable loops); metrics per METHODS.md §5 with a band
+  test and a quarter period long (unstable loops); metrics per docs/METHODS.md §5 with a band
   of ``band_noise`` × the noise RMS measured in the quiet hold.
 Ranking: proposals the model predicts stable, those with Ms ≤ ``ms_max`` first, then by
 predicted IAE. Any proposal the model predicts unstable is marked and not ranked.
@@ -211,7 +211,7 @@ def propose(run: RelayRun, *, margin_deg: float = 45.0, ms_max: float = 2.0,
                "source": f"measured point ({off:.1f}° from −180°)"}
     elif off <= df_tol_deg and run.ku is not None:
         ult = {"ku": run.ku, "tu_s": run.tu_s,
-               "source": f"describing function, cycle {off:.1f}° from −180° (METHODS.md §3: "
+               "source": f"describing function, cycle {off:.1f}° from −180° (docs/METHODS.md §3: "
                          "−4…−18% on Ku with hysteresis)"}
     if ult is not None:
         raw = propose_from_ultimate(ult["ku"], ult["tu_s"], static_gain=static,

@@ -6,11 +6,11 @@ the analysis of bench.tuning.relay.
 1. **Quiet hold**: closed loop with the current gains for ``settle_s``, then ``quiet_s``
    to measure the noise RMS of the loop's error (measure minus set-point signal where the
    board streams one; linear trend removed) and the operating point (mean output and
-   measure). Hysteresis defaults to ``hysteresis_noise`` × that RMS (METHODS.md §3: ≈ 2×).
+   measure). Hysteresis defaults to ``hysteresis_noise`` × that RMS (docs/METHODS.md §3: ≈ 2×).
 2. **Relay**, as the board declares for the loop (PROTOCOL.md §5.4, §8.1):
    ``relay=output`` (stable and integrating loops): the relay replaces the output,
    centred on the operating output, amplitude d in the output's units; ``relay=integral``
-   (unstable loops, METHODS.md §4): the stabilising controller stays in charge and the
+   (unstable loops, docs/METHODS.md §4): the stabilising controller stays in charge and the
    relay switches a set-point offset ±h fed to its integral only, h in the measure's units.
    **Automatic amplitude** (when ``amplitude`` is None): start small (``start_fraction``
    of ``<output>_limit`` for output relays, ``target_snr``·noise for integral relays),
@@ -22,7 +22,7 @@ the analysis of bench.tuning.relay.
    are shorter than ``min_period_samples`` telemetry samples, or the oscillation did not
    grow with the amplitude (a plant with little phase lag, where the band sets the
    cycle), an automatic hysteresis grows ×3 instead, up to the target oscillation:
-   the cycle then sits at −180° + arcsin(ε/a) (METHODS.md §3), which the exact point
+   the cycle then sits at −180° + arcsin(ε/a) (docs/METHODS.md §3), which the exact point
    accounts for.
 3. **Convergence** (RelayTracker, bench.tuning.cycles): after discarding the first
    cycle, the last ``cycles`` cycles no longer drift — the change of period and amplitude

@@ -1,5 +1,5 @@
 """Disturbance sweep: for one or more gain sets, push each (one atomic ``set``), hold, inject
-disturbances at several amplitudes, repeated, and compare METHODS.md §5 metrics.
+disturbances at several amplitudes, repeated, and compare docs/METHODS.md §5 metrics.
 
 For each gain set, in hold: wait ``settle_s``; then for every amplitude and repeat an
 ``inject`` (PROTOCOL.md §8: ``shape`` pulse or step, ``at`` body, setpoint or output, the

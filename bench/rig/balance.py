@@ -1,6 +1,6 @@
 """The balance rig: a reaction-wheel pendulum, full nonlinear, for the simulated board.
 
-Model (METHODS §4; the structure of Spong, Corke & Lozano (2001), Automatica 37, and
+Model (docs/METHODS.md §4; the structure of Spong, Corke & Lozano (2001), Automatica 37, and
 Block, Åström & Spong (2007), *The Reaction Wheel Pendulum*). θ is the body tilt from
 vertical, φ the wheel angle relative to the body (what the motor encoder reads), τ the motor
 torque on the wheel (its reaction acts on the body), τd a push on the body, δ the balance
@@ -11,14 +11,14 @@ offset (the tilt at which the rig balances)::
 
 Jp is the inertia about the pivot of everything except the wheel's spin (body plus the
 wheel as a point mass at its axle); Jw the wheel's spin inertia. The bearing friction b_w·φ̇
-is internal, so its reaction appears on the body as well (METHODS writes the frictionless
-form). With the wheel free (τ = 0) the tilt pole is √(mgl/Jp); with the wheel held
+is internal, so its reaction appears on the body as well (a form that applies it to the
+wheel only would miss part of the loss). With the wheel free (τ = 0) the tilt pole is √(mgl/Jp); with the wheel held
 (φ̇ = 0) it is √(mgl/(Jp + Jw)).
 
 Drives: ``'torque'`` (command τ in N·m) or ``'speed'`` (command a wheel speed set-point in
 rad/s). The speed driver is a stiff loop that follows a first-order reference with lag
 ``driver_lag_s``: while its torque is inside the limits, φ̇ = ω_cmd/(T·s + 1) exactly
-(METHODS' H(s)); it computes the torque that gives that wheel acceleration and clips it.
+(H(s) of docs/METHODS.md §4); it computes the torque that gives that wheel acceleration and clips it.
 The torque available while motoring falls linearly from ``stall_torque_Nm`` at rest to zero
 at ``free_speed_rad_s`` (back-EMF), capped at ``torque_limit_Nm``; braking keeps the full
 limit. Both drives see this curve.
@@ -50,7 +50,7 @@ _REV = 2.0 * math.pi
 class BalanceParams:
     """Physical and sensor figures of a balance rig (SI units; our own demo rig by default).
 
-    Demo rig (METHODS §6, our own invented numbers): body 0.90 kg + wheel 0.30 kg with the
+    Demo rig (docs/METHODS.md §6, our own invented numbers): body 0.90 kg + wheel 0.30 kg with the
     common centre of mass 85 mm above the pivot, so mgl = 1.2·9.81·0.085 ≈ 1.001 N·m/rad;
     unstable pole √(mgl/Jp) ≈ 9.13 rad/s in torque drive, √(mgl/(Jp+Jw)) ≈ 8.84 rad/s
     with the wheel speed held (speed drive). Sensor biases, the stop angle, the encoder and

@@ -6,15 +6,15 @@ the output signal of the loop outside it), plus three small pieces of code a rea
 would have: the plant it drives (simulation only), its instruments (sensor readings to
 signals in declared units) and the factor from its command unit to the plant's SI input.
 
-Rigs (our own invented demo rigs; numbers in METHODS.md §6 and in bench.rig.balance /
+Rigs (our own invented demo rigs; numbers in docs/METHODS.md §6 and in bench.rig.balance /
 bench.rig.wheel):
 
 - ``balance`` (speed drive, the default): tilt loop wheel-speed command (rev/s) from tilt
   (deg), open-loop unstable, relay on the integral channel; outer ``trim`` loop: tilt
   set-point (deg) from wheel speed (rev/s), integrating (with a right-half-plane zero at
-  +a, METHODS.md §4), relay on the output. Boot gains: tilt kp 0.64, ki 9.9, kd 0; trim kp
-  0.2, ki 0.05 (METHODS.md §6; the trim loop is direct, e = wheel_sp − wheel, which is the
-  sign that balances, checked in simulation: tests/rig/test_board_balance.py).
+  +a, docs/METHODS.md §4), relay on the output. Boot gains: tilt kp 0.64, ki 9.9, kd 0; trim kp
+  0.2, ki 0.05 (docs/METHODS.md §6; the trim loop is reverse-acting, e = wheel_sp − wheel
+  (``action=reverse``), the sign that balances, checked in simulation: tests/rig/test_board_loops.py).
 - ``balance-torque``: the same rig with a torque drive: tilt loop motor torque (N.m) from
   tilt. Boot gains kp 0.078 N.m/deg, ki 0.14 N.m/(deg·s), kd 0.005 N.m·s/deg: poles of
   Jp·s³ + kd·s² + (kp − mgl)·s + ki at −3 and ω 15 rad/s, ζ 0.7 (our own design).

@@ -15,7 +15,7 @@ PID (PROTOCOL.md §5.4), parallel form, discrete at the loop period dt::
   that limit (never further out; it is not pulled back either). The output is clipped to
   ±limit. (Back-calculation was not chosen: it needs a tracking
   time constant that would be one more parameter to declare.)
-- ``e_i`` is e plus an offset: the relay of a ``relay=integral`` loop (METHODS.md §4).
+- ``e_i`` is e plus an offset: the relay of a ``relay=integral`` loop (docs/METHODS.md §4).
 
 Relay (PROTOCOL.md §8.1): the state r (+1/−1) flips to +1 when e > hyst and to −1 when
 e < −hyst. ``relay=output``: u = bias + amp·r. ``relay=integral``: the loop stays closed

@@ -1,4 +1,4 @@
-"""Model of a reaction-wheel balance loop, fitted from logged data (METHODS.md §4).
+"""Model of a reaction-wheel balance loop, fitted from logged data (docs/METHODS.md §4).
 
 Body tilt θ (rad), wheel speed w relative to the body (rad/s), controller output u.
 - Speed drive (the driver tracks a wheel-speed command): θ̈ = a²(θ − δ) − c′·ẇ and
@@ -13,7 +13,7 @@ LoopController(..., direct_acting=True). For the speed drive the closed loop is 
 (τe s + 1)(s² − a²) + c′g(kd s² + kp s + ki) = 0, which with τe = 0, g = 1 is METHODS'
 (1 + c·kd)s² + c·kp·s + (c·ki − a²).
 
-Fitting (:func:`fit_balance_model`, METHODS.md §4 recipe): the same zero-phase Butterworth
+Fitting (:func:`fit_balance_model`, docs/METHODS.md §4 recipe): the same zero-phase Butterworth
 low-pass on tilt, gyro, wheel speed and command (a linear time-invariant filter keeps the
 linear relations between them); least squares θ̈ = a²θ − c′·ẇ + k0 with θ̈, ẇ the
 derivatives of the filtered gyro and wheel speed; δ = −k0/a². Actuator: least squares
@@ -27,7 +27,7 @@ identified — the actuator fit's α must lie in (0, 1) by two standard errors, 
 short or unexcited window (the wheel barely moving beyond its slow drift) fails, often
 with α > 1. Such a record is refused rather than fitted within bounds: a lag pinned at a
 bound would look like a measurement.
-Identify from relay or PRBS runs: quiet data with unmeasured pushes bias a (METHODS §4).
+Identify from relay or PRBS runs: quiet data with unmeasured pushes bias a (docs/METHODS.md §4).
 
 Designs live in bench.tuning.balance_design (pole placement, LQR) and are re-exported here.
 

@@ -1,9 +1,9 @@
 """Controller designs on a fitted BalanceModel: pole placement and discrete LQR.
 
-Pole placement (tilt PID, board convention e = θ − θ_sp, direct acting; METHODS.md §4):
+Pole placement (tilt PID, board convention e = θ − θ_sp, direct acting; docs/METHODS.md §4):
 - Speed drive, PI with lag τe (c = c′·g): closed loop (τe s + 1)(s² − a²) + c(kp s + ki)
   placed at (s² + 2ζωn s + ωn²)(s + p3) gives p3 = 1/τe − 2ζωn,
-  kp = τe(ωn² + 2ζωn·p3 + a²)/c, ki = (a² + τe·ωn²·p3)/c (METHODS' formulas, re-derived).
+  kp = τe(ωn² + 2ζωn·p3 + a²)/c, ki = (a² + τe·ωn²·p3)/c (docs/METHODS.md §4, re-derived).
   PID: p3 is free (default 1/τe) and kd = (τe(2ζωn + p3) − 1)/c.
 - Torque drive, PID (b = 1/Jp): s(s² − a²) + b(kd s² + kp s + ki) placed at the same
   polynomial: kd = (2ζωn + p3)/b, kp = (ωn² + 2ζωn·p3 + a²)/b, ki = ωn²·p3/b.
@@ -40,8 +40,8 @@ from .rules import ParallelPid, Proposal
 
 __all__ = ["design_pole_placement", "design_lqr", "LqrDesign", "lqr_matrices"]
 
-_PP_SOURCE = "pole placement on the identified model (METHODS.md §4, re-derived)"
-_LQR_SOURCE = "discrete LQR on the identified model (METHODS.md §4); Bryson's rule weights"
+_PP_SOURCE = "pole placement on the identified model (docs/METHODS.md §4, re-derived)"
+_LQR_SOURCE = "discrete LQR on the identified model (docs/METHODS.md §4); Bryson's rule weights"
 
 
 def _no(rule: str, kind: str, reason: str) -> Proposal:

@@ -1,4 +1,4 @@
-"""Figures of merit for disturbance sweeps and step responses (METHODS.md §5).
+"""Figures of merit for disturbance sweeps and step responses (docs/METHODS.md §5).
 
 :func:`disturbance_metrics` — for a push with final value 0, where step percentages are
 undefined: peak |e| and its time, the opposite-sign excursion after the peak relative to
@@ -76,7 +76,7 @@ def disturbance_metrics(t_s, error, *, band: float, wheel=None, wheel_limit: flo
                         wheel_recovery_fraction: float = 0.1) -> DisturbanceMetrics:
     """Metrics of one disturbance response (see the module docstring).
 
-    ``band`` is absolute (choose ≥ 3σ of the noise, METHODS.md §5). A sample is "at a
+    ``band`` is absolute (choose ≥ 3σ of the noise, docs/METHODS.md §5). A sample is "at a
     limit" when |value| ≥ limit_fraction·limit. The wheel has recovered when |w − w0|
     stays within wheel_recovery_fraction of its peak change. The rig fell when |error|
     exceeded ``fall_threshold``.

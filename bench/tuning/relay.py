@@ -13,7 +13,7 @@ Conventions
   its Fourier integral is computed exactly for a held signal; ``y`` is a sampled
   continuous signal integrated with the trapezoid rule. Over whole periods this gives
   Y1/U1 = G(jω) for a linear plant in periodic steady state (Åström & Hägglund 1984; see
-  METHODS.md §3), independent of hysteresis or bias.
+  docs/METHODS.md §3), independent of hysteresis or bias.
 - ``amplitude`` is the relay's half step (u = bias ± amplitude); ``ku = 4·d/(π·a)`` is the
   describing-function estimate from the output amplitude a (half peak-to-peak of y per
   cycle). With hysteresis this is not the ultimate point: use ``point`` instead.

@@ -1,7 +1,7 @@
 """PID tuning rules from the ultimate point (Ku, Tu) and from one measured point G(jω0).
 
 Every rule is stated in the ideal (standard) form C(s) = K(1 + 1/(s·Ti) + s·Td) and
-converted explicitly to the parallel form kp = K, ki = K/Ti, kd = K·Td (METHODS.md §1).
+converted explicitly to the parallel form kp = K, ki = K/Ti, kd = K·Td (docs/METHODS.md §1).
 Gains are in (controller output)/(measured input) of whatever units Ku or the point were
 measured in; conversion to a board's units happens elsewhere (bench.units).
 
@@ -30,7 +30,7 @@ Rule ids and sources
   margin φm: β = −π + φm − ψ (wrapped into (−π, π]); K = cos β / r;
   PID Td = (tan β + sqrt(tan²β + 4/α))/(2ω0), Ti = α·Td, α = 4; PI Ti = −1/(ω0·tan β),
   needing β < 0. This is exactly the condition C(jω0)G(jω0) = e^{j(−π+φm)}: magnitude 1
-  and phase −180° + φm at ω0 (checked in the tests; the METHODS.md formula needed no fix).
+  and phase −180° + φm at ω0 (checked in the tests; the docs/METHODS.md formula needed no fix).
   At the ultimate point it gives K = Ku·cos φm.
 
 Public API: IdealPid, ParallelPid, Proposal, ULTIMATE_RULES, AMIGO_KAPPA_RANGE,
@@ -86,7 +86,7 @@ class IdealPid:
     td_s: float = 0.0
 
     def to_parallel(self) -> ParallelPid:
-        """kp = K, ki = K/Ti, kd = K·Td (METHODS.md §1)."""
+        """kp = K, ki = K/Ti, kd = K·Td (docs/METHODS.md §1)."""
         ki = self.k / self.ti_s if self.ti_s else 0.0
         return ParallelPid(self.k, ki, self.k * self.td_s)
 

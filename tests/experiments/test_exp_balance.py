@@ -27,13 +27,13 @@ def test_relay_converges_on_the_unstable_tilt_loop(open_sim_shared, drive):
     link, run, _ = _tuned(open_sim_shared, drive)
     assert run.converged, run.reason
     assert run.loop.relay == "integral" and run.ku is None
-    # METHODS.md §4 [calc]: the integral-channel relay gives sustained, repeatable cycles
+    # docs/METHODS.md §4 [calc]: the integral-channel relay gives sustained, repeatable cycles
     assert run.analysis.period_scatter < 0.02
     assert run.experiment.stopped_by == "done" and run.experiment.motor_after == "off"
 
 
 def _linear_truth(board, drive, omega):
-    """θ/u of the linearised rig (METHODS.md §4; Spong, Corke & Lozano 2001) in the board's
+    """θ/u of the linearised rig (docs/METHODS.md §4; Spong, Corke & Lozano 2001) in the board's
     units, times the board's complementary tilt filter (its textbook z-transform)."""
     p = board.plant.params
     s = 1j * omega
@@ -52,7 +52,7 @@ def _linear_truth(board, drive, omega):
 def test_measured_point_matches_the_linearised_rig(open_sim_shared, drive):
     link, run, _ = _tuned(open_sim_shared, drive)
     g = _linear_truth(link.port.board, drive, run.point.omega_rad_s)
-    # METHODS.md §4 [calc]: the integral-channel relay's point matched the true plant within
+    # docs/METHODS.md §4 [calc]: the integral-channel relay's point matched the true plant within
     # 0.1% and 0.2°; here the rig is nonlinear (sin, back-EMF, friction): 2% and 1.5°
     assert run.point.gain == pytest.approx(abs(g), rel=0.02)
     dphi = (run.point.phase_deg - math.degrees(np.angle(g)) + 180) % 360 - 180
@@ -65,7 +65,7 @@ def test_fitted_unstable_pole_matches_the_simulator(open_sim_shared, drive):
     p = link.port.board.plant.params
     # the true pole from the simulator's own parameters: sqrt(mgl/Jt) with the wheel speed
     # driven (speed drive), sqrt(mgl/Jp) with the torque driven (Spong, Corke & Lozano
-    # 2001; Block, Åström & Spong 2007; METHODS.md §4); tolerance 5% (brief)
+    # 2001; Block, Åström & Spong 2007; docs/METHODS.md §4); tolerance 5% (brief)
     truth = p.speed_drive_pole_rad_s if drive == "speed" else p.torque_drive_pole_rad_s
     assert ps.model.a == pytest.approx(truth, rel=0.05)
     assert ps.model_kind == f"balance-{drive}"
@@ -75,7 +75,7 @@ def test_fitted_unstable_pole_matches_the_simulator(open_sim_shared, drive):
 @pytest.mark.parametrize("drive", ["speed", "torque"])
 def test_ultimate_point_rules_do_not_apply(open_sim_shared, drive):
     _, _, ps = _tuned(open_sim_shared, drive)
-    # METHODS.md §4: no P-only ultimate gain exists on an open-loop-unstable loop, so the
+    # docs/METHODS.md §4: no P-only ultimate gain exists on an open-loop-unstable loop, so the
     # Ziegler–Nichols, Tyreus–Luyben and AMIGO rules must say so rather than give numbers
     for rule in ULTIMATE_RULES:
         item = ps.by_rule(rule)
@@ -85,7 +85,7 @@ def test_ultimate_point_rules_do_not_apply(open_sim_shared, drive):
     assert "astrom-hagglund-pm-pid" in offered and "pole-placement-pid" in offered
     for p in ps.proposals:
         if p.applies and p.margins is not None and p.margins.stable:
-            # an unstable plant has a lower gain margin as well as an upper one (METHODS §4)
+            # an unstable plant has a lower gain margin as well as an upper one (docs/METHODS.md §4)
             assert p.margins.gain_margin_lower is not None and p.margins.gain_margin_lower < 1
 
 

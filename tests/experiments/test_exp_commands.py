@@ -31,7 +31,7 @@ def test_tune_json_has_the_documented_keys(capsys, tmp_path):
     assert set(zn) >= {"rule", "kp", "ki", "kd", "form", "margins", "applies", "reason"}
     assert zn["applies"] and zn["form"] == "parallel"
     assert set(zn["margins"]) >= {"gain_margin", "phase_margin_deg"}
-    # e^{-0.5s}/(s+1)^2: Ku 4.6879, Tu 3.2718 s (METHODS.md §3 [calc]); the rules use the
+    # e^{-0.5s}/(s+1)^2: Ku 4.6879, Tu 3.2718 s (docs/METHODS.md §3 [calc]); the rules use the
     # model's ultimate point, so Z-N PID kp = 0.6 Ku within 3%
     assert zn["kp"] == pytest.approx(0.6 * 4.6879, rel=0.03)
     assert doc["tu_s"] == pytest.approx(3.2718, rel=0.03)
@@ -43,7 +43,7 @@ def test_tune_text_on_the_balance_rig_says_rules_do_not_apply(capsys):
     code = main(["tune", "--port", "sim://balance?clock=virtual&seed=3", "--loop", "tilt"])
     out = capsys.readouterr().out
     assert code == 0
-    # METHODS.md §4: the ultimate-point rules do not apply to the unstable tilt loop
+    # docs/METHODS.md §4: the ultimate-point rules do not apply to the unstable tilt loop
     assert "does not apply" in out and "ziegler-nichols-pid: no ultimate point" in out
     assert "pole-placement-pid" in out and "[SIMULATED]" in out
 
@@ -65,7 +65,7 @@ def test_sweep_with_a_profile_and_inline_gains(capsys):
                                "--amplitudes", "0.02", "--repeats", "2", "--settle", "1.5",
                                "--json"])
     # DESIGN.md Decision 4 (sweep: metrics for one or more gain sets); both sets balance
-    # the demo rig (METHODS.md §6 start gains; a pole-placement set), common practice
+    # the demo rig (docs/METHODS.md §6 start gains; a pole-placement set), common practice
     assert code == 0 and doc["stopped_by"] == "done"
     names = [s["name"] for s in doc["sets"]]
     assert names == ["balance start (demo)", "firm"]
@@ -76,7 +76,7 @@ def test_sweep_with_a_profile_and_inline_gains(capsys):
 
 
 def test_sweep_fall_exits_5_and_bad_gains_exit_2(capsys):
-    # P alone never stabilises the speed-drive tilt loop (METHODS.md §4 [calc]): it falls
+    # P alone never stabilises the speed-drive tilt loop (docs/METHODS.md §4 [calc]): it falls
     code = main(["sweep", "--port", "sim://balance?clock=virtual",
                  "--gains", "tilt_kp=0.3,tilt_ki=0", "--amplitudes", "0.02", "--repeats", "1"])
     assert code == 5 and "FELL" in capsys.readouterr().out

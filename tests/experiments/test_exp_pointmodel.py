@@ -21,14 +21,14 @@ def _points(num, den, delay, omegas):
 
 
 @pytest.mark.parametrize("num,den,delay,order,k,t,w", [
-    ([1.0], [1.0, 3.0, 3.0, 1.0], 0.0, 3, 1.0, 1.0, 1.7321),     # METHODS.md §3 plants
+    ([1.0], [1.0, 3.0, 3.0, 1.0], 0.0, 3, 1.0, 1.0, 1.7321),     # docs/METHODS.md §3 plants
     ([1.0], [1.0, 1.0], 1.0, 1, 1.0, 1.0, 2.0288),
     ([1.0], [1.0, 2.0, 1.0], 0.5, 2, 1.0, 1.0, 1.9204),
     ([2.0], [3.0, 1.0], 0.4, 1, 2.0, 3.0, 1.3),
 ])
 def test_fit_recovers_plant_from_points_at_w_and_3w(num, den, delay, order, k, t, w):
     # points computed with python-control at ω and 3ω, ω near the ultimate frequency
-    # (METHODS.md §3 table [calc]); a plant of the model's own form must come back exactly
+    # (docs/METHODS.md §3 table [calc]); a plant of the model's own form must come back exactly
     pts = _points(num, den, delay, [w, 3 * w])
     m = fit_process_model(pts)
     assert m.order == order

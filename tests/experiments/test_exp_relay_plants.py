@@ -11,7 +11,7 @@ import pytest
 from bench.experiments.proposals import propose
 from bench.experiments.relay import run_relay
 
-# METHODS.md §3 plants: url num, den, dead time; exact Ku, Tu [calc, python-control];
+# docs/METHODS.md §3 plants: url num, den, dead time; exact Ku, Tu [calc, python-control];
 # describing-function errors of an ideal relay on these plants, period and Ku [calc]
 PLANTS = {
     "lag3": ("1", "1,3,3,1", 0.0, 8.0000, 3.6276, 0.014, -0.024),
@@ -61,7 +61,7 @@ def test_measured_point_is_the_plant_response(open_sim_shared, name, noise, gain
 def test_ku_tu_within_describing_function_band(open_sim_shared, name, noise):
     _, _, _, ku, tu, df_period, df_ku = PLANTS[name]
     run = _relay(open_sim_shared, name, noise)
-    # METHODS.md §3 [calc]: describing-function errors of an ideal relay on these plants;
+    # docs/METHODS.md §3 [calc]: describing-function errors of an ideal relay on these plants;
     # band ±2 points for the hysteresis (2× noise RMS) and 2 ms sampling
     assert run.tu_s / tu - 1 == pytest.approx(df_period, abs=0.02)
     assert run.ku / ku - 1 == pytest.approx(df_ku, abs=0.02)
@@ -71,7 +71,7 @@ def test_automatic_amplitude_and_hysteresis_follow_the_noise(open_sim_shared):
     run = _relay(open_sim_shared, "sopdt", 1)
     s = run.settings
     assert s.automatic
-    # METHODS.md §3 (common practice): hysteresis ≈ 2× noise RMS, oscillation ≥ 10× noise
+    # docs/METHODS.md §3 (common practice): hysteresis ≈ 2× noise RMS, oscillation ≥ 10× noise
     assert s.hysteresis == pytest.approx(2 * run.noise_rms, rel=1e-9)
     assert run.noise_rms == pytest.approx(1e-3, rel=0.2)  # the plant's declared noise
     assert run.analysis.amplitude >= 10 * run.noise_rms
@@ -82,7 +82,7 @@ def test_proposals_on_a_stable_plant(open_sim_shared):
     run = _relay(open_sim_shared, "lag3", 1)
     ps = propose(run)
     # the rules take Ku, Tu at the fitted model's −180° crossing: the exact ultimate point
-    # of 1/(s+1)^3 is Ku = 8, Tu = 3.6276 s (METHODS.md §3 [calc])
+    # of 1/(s+1)^3 is Ku = 8, Tu = 3.6276 s (docs/METHODS.md §3 [calc])
     assert ps.ultimate["ku"] == pytest.approx(8.0, rel=0.02)
     assert ps.ultimate["tu_s"] == pytest.approx(3.6276, rel=0.01)
     zn = ps.by_rule("ziegler-nichols-pid")
@@ -156,7 +156,7 @@ def test_biased_relay_measures_the_static_gain_and_amigo_applies(open_sim):
     run = run_relay(link, "main", bias=0.4, max_s=60.0)
     assert run.converged, run.reason
     # ∫y dt/∫u dt over whole periods of a biased relay is the static gain (Shen, Wu & Yu
-    # 1996, value from memory; METHODS.md §3 [calc]: within 0.3%); the plant's is 2
+    # 1996, value from memory; docs/METHODS.md §3 [calc]: within 0.3%); the plant's is 2
     assert run.static_gain == pytest.approx(2.0, rel=0.01)
     ps = propose(run)
     assert ps.model.static_gain_used and ps.model.gain == pytest.approx(2.0, rel=0.01)
@@ -165,5 +165,5 @@ def test_biased_relay_measures_the_static_gain_and_amigo_applies(open_sim):
     kappa = 1.0 / (run.static_gain * ku)
     # Åström & Hägglund (2006), Advanced PID Control, ch. 7: K = (0.3 − 0.1κ⁴)Ku
     assert amigo.applies and amigo.kp == pytest.approx((0.3 - 0.1 * kappa ** 4) * ku)
-    # 2e^{-0.5s}/(s+1)^2: Ku = 4.6879/2 (METHODS.md §3 [calc], gain scaled by 2)
+    # 2e^{-0.5s}/(s+1)^2: Ku = 4.6879/2 (docs/METHODS.md §3 [calc], gain scaled by 2)
     assert ku == pytest.approx(4.6879 / 2, rel=0.02)

@@ -44,7 +44,7 @@ def test_setpoint_step_iae_matches_python_control(open_sim):
 def test_a_fall_is_recorded_and_the_sweep_goes_on_when_asked(open_sim):
     link = open_sim("sim://balance?seed=7")
     start = link.get("tilt_kp", "tilt_ki", "tilt_kd")
-    # P alone never stabilises the speed-drive tilt loop (METHODS.md §4 [calc])
+    # P alone never stabilises the speed-drive tilt loop (docs/METHODS.md §4 [calc])
     bad = {"tilt_kp": 0.3, "tilt_ki": 0.0, "tilt_kd": 0.0}
     sw = run_sweep(link, [("start", start), ("p only", bad), ("start again", start)],
                    amplitudes=(0.02,), repeats=1, settle_s=1.0, rearm_after_fall=True)

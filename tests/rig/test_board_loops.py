@@ -1,5 +1,5 @@
 """The simulated board's loops against results from outside the project: the balance rig's
-closed-loop polynomial (METHODS.md §4), its documented stabilising gains (§6), relay cycles
+closed-loop polynomial (docs/METHODS.md §4), its documented stabilising gains (§6), relay cycles
 (§3, §4), and the PID itself against python-control on a linear plant.
 """
 
@@ -32,7 +32,7 @@ def stays_up(h: Host, seconds: float) -> bool:
     return not h.events(msgs, "trip") and h.board.motor == "running"
 
 
-# METHODS.md §4 (model of Block, Åström & Spong (2007), The Reaction Wheel Pendulum):
+# docs/METHODS.md §4 (model of Block, Åström & Spong (2007), The Reaction Wheel Pendulum):
 # with a PID on tilt driving wheel speed the closed loop is
 # (1 + c·kd)s² + c·kp·s + (c·ki − a²): P alone (ki = 0) leaves a negative constant term,
 # so it never stabilises, whatever kp. Trim loop off so that the tilt loop stands alone.
@@ -44,7 +44,7 @@ def test_p_alone_never_balances_the_speed_drive_rig(kp):
     assert h.events(kind="trip")[0].get("cause") in ("tilt_limit", "wheel_limit")
 
 
-# METHODS.md §6 [calc]: minimum stabilising ki ≈ 3.5 (rev/s)/(deg·s) on the demo rig;
+# docs/METHODS.md §6 [calc]: minimum stabilising ki ≈ 3.5 (rev/s)/(deg·s) on the demo rig;
 # kp 0.64, ki 9.9 stabilise. Trim loop off: the tilt loop alone, over a short run (the
 # wheel drifts without the trim loop).
 @pytest.mark.parametrize("ki,up", [(3.0, False), (9.9, True)])
@@ -56,7 +56,7 @@ def test_integral_gain_supplies_the_stiffness(ki, up):
 
 @pytest.mark.parametrize("drive", ["speed", "torque"])
 def test_boot_gains_balance_the_rig(drive):
-    """METHODS.md §6 stabilising start (speed drive) and our torque-drive design."""
+    """docs/METHODS.md §6 stabilising start (speed drive) and our torque-drive design."""
     h = balance_host(drive=drive, seed=4)
     h.start("hold")
     msgs = h.run(20.0)
@@ -83,7 +83,7 @@ def test_body_push_is_rejected():
 
 
 def test_relay_on_the_integral_channel_keeps_the_rig_up_with_sustained_cycles():
-    """METHODS.md §4 [calc]: keep the stabilising controller in charge, switch a set-point
+    """docs/METHODS.md §4 [calc]: keep the stabilising controller in charge, switch a set-point
     offset on the integral channel: cycles sustained and repeatable (period scatter ~0.5%
     there; we allow 2%)."""
     h = balance_host(seed=7)
@@ -106,7 +106,7 @@ def test_relay_on_the_integral_channel_keeps_the_rig_up_with_sustained_cycles():
 
 def test_relay_output_on_first_order_plus_dead_time():
     """Relay period and amplitude on K·e^{−Ls}/(Ts+1), K = L = T = 1, d = 1: period
-    2[L + T·ln(2 − e^{−L/T})], amplitude K·d·(1 − e^{−L/T}) (METHODS.md §3, classical
+    2[L + T·ln(2 − e^{−L/T})], amplitude K·d·(1 − e^{−L/T}) (docs/METHODS.md §3, classical
     closed form for an ideal relay; Åström & Hägglund 1984 for the experiment). The board
     adds one loop period of computational delay: L = 1 + dt."""
     h = Host(make_board("plant", num=(1.0,), den=(1.0, 1.0), delay_s=1.0, noise=0.0))

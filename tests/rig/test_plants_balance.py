@@ -13,7 +13,7 @@ import scipy.signal
 from bench.rig.plants import BalanceParams, BalanceRig, ComplementaryFilter, Plant, make_balance
 
 DEMO = BalanceParams()
-# friction off, so the frictionless model of METHODS §4 applies exactly
+# friction off, so the frictionless model of docs/METHODS.md §4 applies exactly
 IDEAL = replace(DEMO, wheel_friction_Nms_rad=0.0, pivot_friction_Nms_rad=0.0)
 
 
@@ -49,7 +49,7 @@ def measured_pole_rad_s(r: BalanceRig, start_rad=1e-3, until_rad=0.05) -> float:
 
 
 def test_demo_figures():
-    # METHODS §6 [calc]: mgl ≈ 1.0 N·m/rad, poles ≈ 9.1 rad/s (torque) and 8.8 rad/s (speed).
+    # docs/METHODS.md §6 [calc]: mgl ≈ 1.0 N·m/rad, poles ≈ 9.1 rad/s (torque) and 8.8 rad/s (speed).
     assert DEMO.mgl_Nm_rad == pytest.approx(1.0, abs=0.005)
     assert DEMO.torque_drive_pole_rad_s == pytest.approx(9.1, abs=0.05)
     assert DEMO.speed_drive_pole_rad_s == pytest.approx(8.8, abs=0.05)
@@ -139,7 +139,7 @@ def test_energy_lost_equals_friction_dissipation():
 
 
 def test_torque_drive_sign_and_initial_accelerations():
-    # From rest at the balance point: θ̈ = −τ/Jp and φ̈ = τ/Jw + τ/Jp (METHODS §4 equations):
+    # From rest at the balance point: θ̈ = −τ/Jp and φ̈ = τ/Jw + τ/Jp (docs/METHODS.md §4 equations):
     # a positive torque spins the wheel forward and tilts the body backward.
     r = rig(drive="torque")
     r.set_state(tilt_rad=IDEAL.balance_offset_rad)
@@ -155,7 +155,7 @@ def test_torque_drive_sign_and_initial_accelerations():
 
 @pytest.mark.parametrize("drive", ["torque", "speed"])
 def test_small_signal_response_matches_linear_model(drive):
-    # METHODS §4 (Block, Åström & Spong 2007): θ/τ = −(1/Jp)/(s² − mgl/Jp);
+    # docs/METHODS.md §4 (Block, Åström & Spong 2007): θ/τ = −(1/Jp)/(s² − mgl/Jp);
     # θ/ω_cmd = −c·s·H(s)/(s² − mgl/Jt), H = 1/(T·s + 1), c = Jw/Jt. Reference response from
     # scipy.signal.lsim with a zero-order-held input.
     p = IDEAL
@@ -185,7 +185,7 @@ def test_small_signal_response_matches_linear_model(drive):
     assert np.max(np.abs(theta - ref)) < 1e-4 * np.max(np.abs(ref))
     assert theta[5] < 0.0                            # positive command tilts it back first
     if drive == "speed":
-        # the driver's wheel speed is the first-order lag of the command (METHODS §4 H(s))
+        # the driver's wheel speed is the first-order lag of the command (docs/METHODS.md §4 H(s))
         _, wref, _ = scipy.signal.lsim(([1.0], [T, 1.0]), u, t, interp=False)
         # RK4 at h/T = 0.25 follows e^{-h/T} to (h/T)^5/120 ≈ 8e-6 per step
         assert np.max(np.abs(np.array(wheel) - wref)) < 1e-4 * amp
@@ -242,7 +242,7 @@ def test_fall_ends_on_stop_and_wheel_keeps_absolute_speed():
 
 
 def test_push_acts_on_the_body_for_its_duration():
-    # τd enters the body equation with a plus sign (METHODS §4): θ̈ = τd/Jp at balance.
+    # τd enters the body equation with a plus sign (docs/METHODS.md §4): θ̈ = τd/Jp at balance.
     r = rig(drive="torque")
     r.set_state(tilt_rad=IDEAL.balance_offset_rad)
     r.push(0.04, 0.01)
@@ -258,7 +258,7 @@ def test_push_acts_on_the_body_for_its_duration():
 
 
 def test_sensor_noise_bias_and_determinism():
-    # Noise figures are the demo rig's own (METHODS §6); 5000 normal draws give a sample RMS
+    # Noise figures are the demo rig's own (docs/METHODS.md §6); 5000 normal draws give a sample RMS
     # within ±5% and a mean within 4σ/√n (common practice, no source).
     def record(seed):
         r = make_balance("torque", np.random.default_rng(seed), noise=1.0)

@@ -1,10 +1,10 @@
-"""Test helper: the linear balance loop of METHODS.md §4, simulated exactly at the loop rate.
+"""Test helper: the linear balance loop of docs/METHODS.md §4, simulated exactly at the loop rate.
 
 Speed drive: θ̈ = a²(θ − δ) − c·ẇ, ẇ = (g·u(t − d·dt) − w)/τe; torque drive:
 θ̈ = a²(θ − δ) − b·u(t − d·dt). Exact ZOH of the continuous model (scipy.linalg.expm), a
 delay buffer of whole samples, noisy tilt/gyro/wheel readings, and the board's controller
 u = kp·e + ki·∫e + kd·gyro with e = tilt − θ_sp, θ_sp = trim_p·w + trim_i·∫w + excitation.
-All numbers are the invented demo rig of METHODS.md §6 (demos and tests only).
+All numbers are the invented demo rig of docs/METHODS.md §6 (demos and tests only).
 """
 
 from __future__ import annotations

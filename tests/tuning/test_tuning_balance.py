@@ -20,7 +20,7 @@ from bench.tuning.margins import margins  # noqa: E402
 from bench.units import gain_from_si, gain_to_si  # noqa: E402
 
 DEG, REV = math.pi / 180, 2 * math.pi
-# Invented demo rig of METHODS.md §6 (demo numbers): Jp 0.012, Jw 8e-4, mgl ≈ 1.0 N·m/rad
+# Invented demo rig of docs/METHODS.md §6 (demo numbers): Jp 0.012, Jw 8e-4, mgl ≈ 1.0 N·m/rad
 JP, JW, MGL = 0.0120, 8.0e-4, 1.0
 A_SPEED = math.sqrt(MGL / (JP + JW))
 C_SPEED = JW / (JP + JW)
@@ -34,7 +34,7 @@ NOISE = dict(tilt_noise=0.03 * DEG, gyro_noise=0.2 * DEG, wheel_noise=0.05 * REV
 
 
 def test_demo_rig_derived_figures():
-    # METHODS.md §6 [calc]: unstable pole ≈ 9.1 rad/s (torque drive), 8.8 rad/s (speed
+    # docs/METHODS.md §6 [calc]: unstable pole ≈ 9.1 rad/s (torque drive), 8.8 rad/s (speed
     # drive); minimum stabilising ki = a²/c ≈ 3.5 (rev/s)/(deg·s).
     assert A_TORQUE == pytest.approx(9.1, abs=0.05)
     assert A_SPEED == pytest.approx(8.8, abs=0.05)
@@ -43,7 +43,7 @@ def test_demo_rig_derived_figures():
 
 
 def speed_run(seed=0):
-    # the stabilising start of METHODS.md §6: kp 0.64, ki 9.9 (rev/s per deg, per deg·s),
+    # the stabilising start of docs/METHODS.md §6: kp 0.64, ki 9.9 (rev/s per deg, per deg·s),
     # kd small, wheel-speed trim (sign for this model's conventions: see the trim check)
     kp = gain_to_si(0.64, "rev/s", "deg")
     ki = gain_to_si(9.9, "rev/s", "deg", "1/s")
@@ -57,7 +57,7 @@ def test_fit_speed_drive_from_noisy_closed_loop_data():
     r = speed_run()
     assert np.max(np.abs(r.true_tilt)) < 10 * DEG      # it balanced
     fit = fit_balance_model(r.t, r.tilt, r.gyro, r.wheel, r.command, dt=DT)
-    # brief: fitted a within 2% of the true a (METHODS.md §4 saw 1.5% [calc])
+    # brief: fitted a within 2% of the true a (docs/METHODS.md §4 saw 1.5% [calc])
     assert fit.a == pytest.approx(A_SPEED, rel=0.02)
     assert fit.c_prime == pytest.approx(C_SPEED, rel=0.05)
     assert fit.offset_rad == pytest.approx(0.8 * DEG, abs=0.05 * DEG)
@@ -95,7 +95,7 @@ def test_fit_refuses_stable_data():
 
 
 def closed_loop_char(model, kp, ki, kd):
-    """Analytic closed-loop polynomial (METHODS.md §4), no delay."""
+    """Analytic closed-loop polynomial (docs/METHODS.md §4), no delay."""
     a2 = model.a ** 2
     if model.drive == "speed":
         c = model.c_prime * model.drive_gain
@@ -112,7 +112,7 @@ def test_pole_placement_lands_where_placed(model, kind):
     # computed back through the loop code ...
     assert np.allclose(np.sort_complex(np.array(p.details["closed_loop_poles"])), target,
                        rtol=1e-8)
-    # ... and from the analytic polynomial (METHODS.md §4 [calc])
+    # ... and from the analytic polynomial (docs/METHODS.md §4 [calc])
     char = closed_loop_char(model, p.kp, p.ki, p.kd)
     assert np.allclose(np.sort_complex(np.roots(char)), target, rtol=1e-8)
     assert abs(target[1]) == pytest.approx(15.0) or abs(target[0]) == pytest.approx(15.0)
@@ -120,7 +120,7 @@ def test_pole_placement_lands_where_placed(model, kind):
 
 
 def test_pole_placement_pi_matches_methods_formula():
-    # METHODS.md §4: p3 = 1/τe − 2ζωn, kp = τe(ωn² + 2ζωn p3 + a²)/c′,
+    # docs/METHODS.md §4: p3 = 1/τe − 2ζωn, kp = τe(ωn² + 2ζωn p3 + a²)/c′,
     # ki = (a² + τe ωn² p3)/c′
     zeta, wn, tau, a2, c = 0.7, 20.0, 0.008, A_SPEED ** 2, C_SPEED
     p3 = 1 / tau - 2 * zeta * wn
@@ -128,7 +128,7 @@ def test_pole_placement_pi_matches_methods_formula():
     assert p.kp == pytest.approx(tau * (wn ** 2 + 2 * zeta * wn * p3 + a2) / c)
     assert p.ki == pytest.approx((a2 + tau * wn ** 2 * p3) / c)
     assert p.kd == 0.0
-    assert p.ki > a2 / c  # the integral supplies the stiffness (METHODS.md §4)
+    assert p.ki > a2 / c  # the integral supplies the stiffness (docs/METHODS.md §4)
 
 
 def test_torque_drive_pi_not_applicable():
@@ -170,5 +170,5 @@ def test_margins_on_fitted_model_accept_balance_model():
                                gain_to_si(9.9, "rev/s", "deg", "1/s"), 0.0, h_s=DT,
                                direct_acting=True), TRUE_SPEED)
     assert m.stable and m.gain_margin_lower is not None and m.gain_margin_upper is not None
-    # lower margin ≈ ki_min/ki = 3.5/9.9 with the lag and delay nudging it (METHODS §6)
+    # lower margin ≈ ki_min/ki = 3.5/9.9 with the lag and delay nudging it (docs/METHODS.md §6)
     assert m.gain_margin_lower == pytest.approx(3.47 / 9.9, rel=0.05)

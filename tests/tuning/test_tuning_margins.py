@@ -53,7 +53,7 @@ def check_against_control(m, sys, rel=1e-6):
 
 
 @pytest.mark.parametrize("kp, ki, kd, tf", [
-    (4.8, 4.8 / 1.8138, 4.8 * 0.4534, 0.0),   # Z-N PID on 1/(s+1)^3 (METHODS.md §3 row)
+    (4.8, 4.8 / 1.8138, 4.8 * 0.4534, 0.0),   # Z-N PID on 1/(s+1)^3 (docs/METHODS.md §3 row)
     (2.0, 0.0, 0.0, 0.0),
     (1.0, 0.5, 0.0, 0.0),
     (4.8, 2.6, 2.2, 0.1),
@@ -65,7 +65,7 @@ def test_continuous_margins_match_python_control(kp, ki, kd, tf):
 
 
 def test_p_control_of_lag3_gain_margin_is_exact():
-    # 1/(s+1)^3 with kp: ultimate gain 8 at ω = √3 (METHODS.md §3), so GM = 8/kp.
+    # 1/(s+1)^3 with kp: ultimate gain 8 at ω = √3 (docs/METHODS.md §3), so GM = 8/kp.
     m = margins(LoopController(2.0), LAG3)
     assert m.gain_margin_upper == pytest.approx(4.0, rel=1e-9)
     assert m.phase_crossover_rad_s == pytest.approx(math.sqrt(3), rel=1e-9)
@@ -107,7 +107,7 @@ def test_fractional_dead_time_discretisation_is_exact():
 
 
 def test_continuous_dead_time_matches_pade_reference():
-    # e^{-s}/(s+1) with the Z-N PI of METHODS.md §3 (K 1.3571·0.45/0.6, Ti) — compared with
+    # e^{-s}/(s+1) with the Z-N PI of docs/METHODS.md §3 (K 1.3571·0.45/0.6, Ti) — compared with
     # python-control on a 12th-order Padé approximation of the delay.
     kp, ki = 1.0178, 1.0178 / 2.5809
     m = margins(LoopController(kp, ki), PlantModel([1.0], [1.0, 1.0], 1.0))
@@ -132,7 +132,7 @@ def test_delay_margin_of_integrator_loop():
     assert m.gain_margin_upper == pytest.approx(math.pi / (2 * k * tau), rel=1e-6)
 
 
-A, C = 8.8, 0.0625  # speed-drive balance loop, METHODS.md §6 demo rig [calc]
+A, C = 8.8, 0.0625  # speed-drive balance loop, docs/METHODS.md §6 demo rig [calc]
 
 
 def balance_plant(tau_e=0.0, delay=0.0):
@@ -142,7 +142,7 @@ def balance_plant(tau_e=0.0, delay=0.0):
 
 @pytest.mark.parametrize("ki", [800.0, 1239.1, 1300.0, 3000.0])
 def test_balance_loop_needs_ki_above_a2_over_c(ki):
-    # Closed loop (1 + c·kd)s² + c·kp·s + (c·ki − a²) (METHODS.md §4): stable iff
+    # Closed loop (1 + c·kd)s² + c·kp·s + (c·ki − a²) (docs/METHODS.md §4): stable iff
     # ki > a²/c = 1239.04 (kp, kd > 0); the lower gain margin is a²/(c·ki), no upper one.
     m = margins(LoopController(60.0, ki, 1.0, direct_acting=True), balance_plant())
     assert m.stable == (ki > A * A / C)
@@ -212,7 +212,7 @@ def test_simulate_pulse_on_balance_loop_returns_to_zero():
 
 def test_loop_transfer_cancels_wheel_drift_mode():
     # PI on the speed-drive tilt plant: the integrator cancels the plant's zero at s = 0
-    # (the wheel-speed drift mode), leaving METHODS.md §4's polynomial.
+    # (the wheel-speed drift mode), leaving docs/METHODS.md §4's polynomial.
     lt = loop_transfer(LoopController(60.0, 2000.0, 1.0, direct_acting=True), balance_plant())
     char = np.polyadd(lt.den, lt.num)
     assert char / char[0] == pytest.approx(np.array([1 + C * 1.0, C * 60.0, C * 2000.0 - A * A])

@@ -1,4 +1,4 @@
-"""Relay analysis against python-control, closed forms and the METHODS.md §3 check values."""
+"""Relay analysis against python-control, closed forms and the docs/METHODS.md §3 check values."""
 
 import math
 import sys
@@ -13,7 +13,7 @@ from relay_sim import simulate_relay  # noqa: E402
 
 from bench.tuning.relay import RelayTracker, analyse_relay, fundamental_ratio  # noqa: E402
 
-# The three plants of METHODS.md §3: (num, den, dead time s)
+# The three plants of docs/METHODS.md §3: (num, den, dead time s)
 PLANTS = {
     "lag3": ([1.0], [1.0, 3.0, 3.0, 1.0], 0.0),
     "fopdt": ([1.0], [1.0, 1.0], 1.0),
@@ -52,7 +52,7 @@ def analyse(sim, relay, **kw):
 @pytest.mark.parametrize("name", list(PLANTS))
 def test_point_is_plant_frequency_response(name, relay):
     # Y1/U1 over whole periods equals G(jω) for a linear plant in periodic steady state
-    # (Åström & Hägglund 1984, Automatica 20(5); METHODS.md §3 [calc]); reference G(jω)
+    # (Åström & Hägglund 1984, Automatica 20(5); docs/METHODS.md §3 [calc]); reference G(jω)
     # from python-control. Tolerance of the brief: 1% gain, 1°.
     res = analyse(run(name, relay), relay)
     assert res.converged, res.reason
@@ -66,7 +66,7 @@ def test_point_is_plant_frequency_response(name, relay):
 def test_fopdt_closed_form_period_and_amplitude():
     # Ideal relay d on K e^{-Ls}/(Ts+1): period 2[L + T ln(2 - e^{-L/T})], amplitude
     # K d (1 - e^{-L/T}); for K = L = T = 1: 2.9799 s, 0.6321 (classical result,
-    # METHODS.md §3 [calc]). The formula gives 2.97976 s: METHODS' 2.9799 is off in the
+    # docs/METHODS.md §3 [calc]). The formula gives 2.97976 s: a value of 2.9799 is off in the
     # fourth decimal, hence the wider check on the tabled figure.
     res = analyse(run("fopdt", "ideal"), "ideal")
     period = 2 * (1 + math.log(2 - math.exp(-1)))
@@ -97,7 +97,7 @@ def test_static_gain_none_without_bias():
                                             ("sopdt", -0.054)])
 def test_describing_function_error_matches_methods(name, ku_error):
     # Ku from the peak amplitude vs the exact ultimate gain (8.0000, 2.2618, 4.6879):
-    # errors -2.4%, -11%, -5.4% (METHODS.md §3 [calc]; ideal relay d = 1).
+    # errors -2.4%, -11%, -5.4% (docs/METHODS.md §3 [calc]; ideal relay d = 1).
     ku_exact = {"lag3": 8.0, "fopdt": 2.2618, "sopdt": 4.6879}[name]
     res = analyse(run(name, "ideal"), "ideal")
     assert res.ku / ku_exact - 1 == pytest.approx(ku_error, abs=0.006)
@@ -105,14 +105,14 @@ def test_describing_function_error_matches_methods(name, ku_error):
 
 def test_hysteresis_moves_phase_by_arcsin():
     # Describing function of a relay with hysteresis: the cycle sits at phase
-    # -180° + arcsin(ε/a) (Åström & Hägglund 1984 [value from memory; METHODS.md §3]).
+    # -180° + arcsin(ε/a) (Åström & Hägglund 1984 [value from memory; docs/METHODS.md §3]).
     res = analyse(run("lag3", "hysteresis"), "hysteresis")
     expected = -180 + math.degrees(math.asin(0.1 / res.amplitude))
     assert res.point.phase_deg == pytest.approx(expected, abs=1.5)
 
 
 def test_point_with_noise_and_dropped_samples():
-    # Measurement noise (relay with hysteresis 0.05 > 2× noise RMS, METHODS.md §3) and
+    # Measurement noise (relay with hysteresis 0.05 > 2× noise RMS, docs/METHODS.md §3) and
     # near-uniform sampling: 20% of the samples where u did not switch are dropped.
     sim = run("sopdt", "hysteresis", noise=0.01, seed=3)
     rng = np.random.default_rng(1)
@@ -123,7 +123,7 @@ def test_point_with_noise_and_dropped_samples():
                         amplitude=1.0, hysteresis=0.1)
     assert res.converged, res.reason
     ratio = res.point.value / plant_response("sopdt", res.point.omega_rad_s)
-    assert abs(abs(ratio) - 1) < 0.01          # METHODS.md §3 [calc]
+    assert abs(abs(ratio) - 1) < 0.01          # docs/METHODS.md §3 [calc]
     assert abs(math.degrees(np.angle(ratio))) < 1.0
 
 

@@ -1,4 +1,4 @@
-"""Tuning rules against the METHODS.md tables, python-control and the defining properties."""
+"""Tuning rules against the docs/METHODS.md tables, python-control and the defining properties."""
 
 import functools
 import math
@@ -40,7 +40,7 @@ def ultimate(name):
     return 1 / abs(g(name, w)), w
 
 
-# METHODS.md §3 check values [calc]: Ku, ωu, Tu and Z-N PID (K, Ti, Td).
+# docs/METHODS.md §3 check values [calc]: Ku, ωu, Tu and Z-N PID (K, Ti, Td).
 TABLE = {
     "lag3": (8.0000, 1.7321, 3.6276, (4.800, 1.8138, 0.4534)),
     "fopdt": (2.2618, 2.0288, 3.0971, (1.3571, 1.5485, 0.3871)),
@@ -63,7 +63,7 @@ def test_ultimate_points_and_zn_pid_match_methods_table(name):
 
 
 def test_rule_constants_on_lag3():
-    # Ku = 8, Tu = 3.6276 (METHODS.md §3). Constants: Ziegler & Nichols (1942); Tyreus &
+    # Ku = 8, Tu = 3.6276 (docs/METHODS.md §3). Constants: Ziegler & Nichols (1942); Tyreus &
     # Luyben (1992); "some/no overshoot" from later literature [value from memory];
     # AMIGO frequency form, Åström & Hägglund (2006) ch. 7, with κ = 1/(1·8) = 0.125.
     ku, tu = 8.0, 3.6276
@@ -92,7 +92,7 @@ def test_rule_constants_on_lag3():
 
 
 def test_ideal_parallel_conversion_round_trip():
-    # kp = K, ki = K/Ti, kd = K·Td (METHODS.md §1, common practice)
+    # kp = K, ki = K/Ti, kd = K·Td (docs/METHODS.md §1, common practice)
     ideal = IdealPid(2.0, 4.0, 0.5)
     par = ideal.to_parallel()
     assert par == ParallelPid(2.0, 0.5, 1.0)
@@ -112,7 +112,7 @@ def test_amigo_needs_static_gain_and_validity():
 
 
 def test_amigo_td_denominator_consistent_with_step_rule():
-    # Consistency check of the Td denominator METHODS.md §2 questions. On first order plus
+    # Consistency check of the Td denominator docs/METHODS.md §2 questions. On first order plus
     # dead time plants e^{-Ls}/(s+1), the AMIGO step-response rule Td = 0.5LT/(0.3L + T)
     # (Åström & Hägglund 2004, J. Process Control 14 [value from memory]) grows with L/T.
     # The frequency rule with (1 - 0.95κ) follows it within 35%; with (1 + 0.95κ) it is
@@ -159,7 +159,7 @@ def test_phase_margin_design_meets_its_defining_property(name, margin, w_rel):
 
 
 def test_phase_margin_design_at_ultimate_point():
-    # At the ultimate point the design reduces to K = Ku·cos φm (METHODS.md §2)
+    # At the ultimate point the design reduces to K = Ku·cos φm (docs/METHODS.md §2)
     p = phase_margin_design(FrequencyPoint(1 / 8.0, -180.0, 1.7321), margin_deg=45)
     assert p.ideal.k == pytest.approx(8.0 * math.cos(math.radians(45)))
 
@@ -177,7 +177,7 @@ def test_unstable_plant_rules():
 
 
 def test_direct_acting_point_design():
-    # Speed-drive tilt plant θ/u = −c·s/(s² − a²) (METHODS.md §4) with a = 8.8, c = 0.0625;
+    # Speed-drive tilt plant θ/u = −c·s/(s² − a²) (docs/METHODS.md §4) with a = 8.8, c = 0.0625;
     # the board's loop is direct acting, so the loop is C·(−G): it must meet the property.
     a, c, w0 = 8.8, 0.0625, 15.0
     gval = complex(control.tf([-c, 0], [1, 0, -a * a])(1j * w0)) * np.exp(-1j * w0 * 0.004)
