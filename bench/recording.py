@@ -45,7 +45,7 @@ __all__ = ["Recorder", "Recording", "RecordingError", "load_recording", "sidecar
 
 FORMAT = "rigbench-recording/1"
 FIXED_COLUMNS = (("host_time", "s"), ("board_time", "s"), ("frame", "1"))
-SIDECAR_KEYS = ("format", "csv", "columns", "board", "url", "params_at_start", "started",
+SIDECAR_KEYS = ("format", "csv", "columns", "board", "url", "params_at_start", "loops", "started",
                 "stopped", "complete", "rows", "rows_skipped", "notes", "events", "link_health")
 _HEADER_RE = re.compile(r"([a-z][a-z0-9_]{0,31}) \[([^\[\]]{1,48})\]\Z")
 
@@ -128,6 +128,10 @@ class Recorder:
             "params_at_start": {
                 n: {"value": p.value, "unit": p.unit, "min": p.minimum, "max": p.maximum,
                     "writable": p.writable} for n, p in link.params.items()},
+            # the loops as the board declared them (PROTOCOL.md §5.4 fields), so a replay of
+            # this recording declares them too
+            "loops": [dict(lp.to_fields())
+                      for lp in getattr(link, "loops", {}).values()],
             "started": {"wall_time": _wall(), "host_time_s": link.now()},
         }
         header = ",".join(f"{n} [{u}]" for n, u in self._columns) + "\n"

@@ -47,7 +47,7 @@ def test_link_handshakes_with_the_recorded_board(recording):
     with Link.open(_url(recording)) as link:
         info = link.info
         assert (info.board, info.firmware, info.rig) == ("sim-balance-1", "0.1.0", "balance")
-        assert info.simulated and info.rate_hz == 500.0 and link.loops == {}
+        assert info.simulated and info.rate_hz == 500.0
         assert list(link.params) == list(side["params_at_start"])
         assert {n: p.value for n, p in link.params.items()} == \
             {n: p["value"] for n, p in side["params_at_start"].items()}
@@ -58,6 +58,16 @@ def test_link_handshakes_with_the_recorded_board(recording):
             "trip_tilt": side["params_at_start"]["trip_tilt"]["value"]}
         # the recording started with the motor armed, then ran in hold
         assert link.status().motor in ("armed", "running")
+
+
+def test_the_replay_declares_the_recorded_loops(recording):
+    # the sidecar keeps the loops as the board declared them; the replay declares them again
+    with Link.open("sim://balance?clock=virtual&seed=2") as live:
+        declared = dict(live.loops)
+    with Link.open(_url(recording)) as link:
+        assert list(link.loops) == list(declared) == ["trim", "tilt"]
+        for name, loop in link.loops.items():
+            assert loop.to_fields()[1:] == declared[name].to_fields()[1:]
 
 
 def test_telemetry_is_the_recordings_rows(recording):

@@ -32,6 +32,7 @@ import numpy as np
 
 from bench.wire import messages as m
 from bench.wire.codec import BoardCodec, KillByte
+from bench.wire.errors import RemoteProtocolError
 from bench.wire.describe import BoardInfo, LoopInfo, ParamInfo, SignalInfo, parse_version
 from bench.wire.frame import BadFrame
 
@@ -117,11 +118,15 @@ class ReplayBoard:
         signals = [SignalInfo(i, n, u) for i, (n, u) in
                    enumerate(zip(self.rec.signals, self.rec.units))]
         loops = []
-        for i, lp in enumerate(side.get("loops") or []):
-            if all(k in lp for k in _LOOP_KEYS):
-                gains = lp["gains"] if isinstance(lp["gains"], list) else str(lp["gains"]).split(",")
-                loops.append(LoopInfo(i, lp["name"], lp["measure"], lp["output"], tuple(gains),
-                                      lp["plant"], lp["relay"]))
+        for lp in side.get("loops") or []:
+            if not (isinstance(lp, dict) and all(k in lp for k in _LOOP_KEYS)):
+                continue
+            fields = [(k, ",".join(map(str, v)) if isinstance(v, list) else str(v))
+                      for k, v in lp.items() if k != "index"]
+            try:  # the same checks as a loop reply from a board (optional fields included)
+                loops.append(LoopInfo.from_fields(tuple([("index", str(len(loops)))] + fields)))
+            except RemoteProtocolError:
+                continue
         info = BoardInfo(version, _word(board.get("board"), "replay"),
                          _word(board.get("firmware"), "unknown"), _word(board.get("rig"), "unknown"),
                          float(board.get("rate_hz") or round(self.rate_hz, 3)),
