@@ -151,15 +151,14 @@ class FrameDecoder:
             self._line(buf[start:nl], out)
             start = nl + 1
         rest = buf[start:]
+        at = rest.rfind(b"@")
+        if at > 0:                    # reported as soon as the '@' that ends them arrives
+            out.extend(_bad_prefix(rest[:at]))
+            rest = rest[at:]
         if len(rest) >= self.max_line:
-            at = rest.rfind(b"@")
-            if 0 < at and len(rest) - at < self.max_line:
-                out.append(_bad_prefix(rest[:at]))
-                rest = rest[at:]
-            else:
-                out.append(BadFrame("too_long", f"no LF within {self.max_line} bytes", rest[:32]))
-                rest = b""
-                self._skipping = True
+            out.append(BadFrame("too_long", f"no LF within {self.max_line} bytes", rest[:32]))
+            rest = b""
+            self._skipping = True
         self._buf = rest
 
     def _line(self, line: bytes, out: list) -> None:
@@ -170,7 +169,7 @@ class FrameDecoder:
             out.append(BadFrame("junk", "bytes outside a frame", line[:32]))
             return
         if at > 0:
-            out.append(_bad_prefix(line[:at]))
+            out.extend(_bad_prefix(line[:at]))
             line = line[at:]
         good = _GOOD_LINE.fullmatch(line)
         if good is not None and len(line) < self.max_line:
@@ -184,11 +183,17 @@ class FrameDecoder:
             out.append(BadFrame(exc.code, exc.detail, line[:32]))
 
 
-def _bad_prefix(prefix: bytes) -> BadFrame:
-    """What was before the last '@' of a line: a frame cut short, or junk."""
-    if b"@" in prefix:
-        return BadFrame("truncated", "a new '@' arrived before the frame ended", prefix[:32])
-    return BadFrame("junk", "bytes outside a frame", prefix[:32])
+def _bad_prefix(prefix: bytes) -> list[BadFrame]:
+    """What was before the last '@' of a line: junk before the first '@', then one frame
+    cut short by each later '@' (PROTOCOL.md §2: an '@' abandons the frame in progress).
+    The errors are the same however the bytes were split into reads."""
+    out = []
+    if not prefix.startswith(b"@"):
+        out.append(BadFrame("junk", "bytes outside a frame", prefix[:32]))
+    for _ in range(prefix.count(b"@")):
+        out.append(BadFrame("truncated", "a new '@' arrived before the frame ended",
+                            prefix[:32]))
+    return out
 
 
 def _first_of(data: bytes, a: bytes, b: bytes) -> int:

@@ -211,6 +211,8 @@ const char *rb_decl_text(const rb_board *b);
 /* One received byte. Safe to call from the UART receive interrupt: it only fills the ring,
  * and on the kill byte switches the motor off at once through port.set_output. */
 void rb_rx_byte(rb_board *b, uint8_t byte);
+/* The same for a block of received bytes (a DMA or USB receive callback). */
+void rb_rx_block(rb_board *b, const uint8_t *data, size_t n);
 /* Handle the bytes received so far (commands answered, kill acted on in stream order) and
  * push queued output to port.write. Call often from the main context. */
 void rb_poll(rb_board *b);

@@ -635,7 +635,10 @@ void rb_command(rb_board *b, const char *body, size_t n)
         return;
     }
     if (!rb_parse_uint(TOKP(&c, 1), TOKN(&c, 1), 65536u, &seq)) {
-        bad(&c, "bad_number", 1, "sequence number is not an integer below 65536");
+        char text[96], tok[48];
+        tok_copy(tok, sizeof tok, TOKP(&c, 1), TOKN(&c, 1));
+        snprintf(text, sizeof text, "sequence number %s is not an integer below 65536", tok);
+        bad(&c, "bad_number", 1, text);
         return;
     }
     c.seq = (uint16_t)seq;
@@ -668,7 +671,10 @@ void rb_command(rb_board *b, const char *body, size_t n)
             return;
         }
         if (!rb_parse_uint(TOKP(&c, 2), TOKN(&c, 2), 256u, &index)) {
-            bad(&c, "bad_number", 1, "index is not an integer below 256");
+            char text[96], tok[48];
+            tok_copy(tok, sizeof tok, TOKP(&c, 2), TOKN(&c, 2));
+            snprintf(text, sizeof text, "index %s is not an integer below 256", tok);
+            bad(&c, "bad_number", 1, text);
             return;
         }
     } else if (strcmp(verb, "get") == 0) {
@@ -687,7 +693,11 @@ void rb_command(rb_board *b, const char *body, size_t n)
         for (i = 2; i < c.nt; i++) {
             size_t k = key_len(&c, i);
             if (!rb_parse_number(TOKP(&c, i) + k + 1, TOKN(&c, i) - k - 1, &values[i])) {
-                bad(&c, "bad_number", 1, "a value is not a number");
+                char text[112], key[40], tok[56];
+                tok_copy(key, sizeof key, TOKP(&c, i), k);
+                tok_copy(tok, sizeof tok, TOKP(&c, i) + k + 1, TOKN(&c, i) - k - 1);
+                snprintf(text, sizeof text, "%s %s is not a number", key, tok);
+                bad(&c, "bad_number", 1, text);
                 return;
             }
         }
@@ -709,7 +719,10 @@ void rb_command(rb_board *b, const char *body, size_t n)
             return;
         }
         if (!rb_parse_number(v, vn, &values[2])) {
-            bad(&c, "bad_number", 1, "rate_hz is not a number");
+            char text[96], tok[56];
+            tok_copy(tok, sizeof tok, v, vn);
+            snprintf(text, sizeof text, "rate_hz %s is not a number", tok);
+            bad(&c, "bad_number", 1, text);
             return;
         }
     }

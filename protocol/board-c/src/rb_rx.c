@@ -38,6 +38,13 @@ void rb_rx_byte(rb_board *b, uint8_t byte)
     b->rx_head = next;
 }
 
+void rb_rx_block(rb_board *b, const uint8_t *data, size_t n)
+{
+    size_t i;
+    for (i = 0; i < n; i++)
+        rb_rx_byte(b, data[i]);
+}
+
 void rb_rx_reset(rb_board *b)
 {
     b->rx_state = RX_IDLE;

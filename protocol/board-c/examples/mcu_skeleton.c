@@ -1,0 +1,358 @@
+/*
+ * mcu_skeleton.c -- the shape of a board port: a small reaction-wheel balance rig on a
+ * generic microcontroller, with rb_board doing the protocol, the loops and the safety logic.
+ *
+ * The "hardware layer" below is made up: a handful of extern functions with plain names
+ * (uart_write_nonblocking, timer_micros, imu_read, flash_write_slot, ...). Replace each with
+ * your chip's driver calls. Everything else is meant to be kept as it is or adapted.
+ *
+ * The rig is the one of rigbench's simulated `balance` board (speed drive): an inner `tilt`
+ * loop turning tilt (deg) into a wheel-speed command (rev/s), and an outer `trim` loop turning
+ * wheel speed (rev/s) into the tilt set-point (deg), so the wheel does not run away.
+ *
+ * Compile check (no link): gcc -std=c99 -Wall -Wextra -Wpedantic -Werror -c
+ *                         examples/mcu_skeleton.c -Iinclude
+ *
+ * A software kill is not an emergency stop: this rig also needs a hardware cut-off that
+ * removes motor power independently of this code (PORTING.md, "Safety").
+ */
+#include <math.h>
+#include <stddef.h>
+#include <stdint.h>
+#include <string.h>
+
+#include "rb_board.h"
+
+/* ------------------------------------------------------------ made-up hardware layer */
+
+extern void hw_init(void);                      /* clocks, pins */
+extern int hw_reset_was_power_on(void);         /* 1 after power-up, 0 after a reset */
+extern void irq_disable(void);                  /* mask interrupts (short sections only) */
+extern void irq_enable(void);
+extern void cpu_sleep_until_interrupt(void);
+
+extern void uart_init(uint32_t baud);           /* 8N1 */
+extern void uart_rx_irq_enable(void);           /* from here on uart_rx_isr() runs */
+extern int uart_rx_ready(void);
+extern uint8_t uart_rx_byte(void);
+/* Copy up to n bytes into the UART's transmit FIFO / DMA ring; never waits. */
+extern size_t uart_write_nonblocking(const uint8_t *data, size_t n);
+
+extern uint32_t timer_micros(void);             /* free-running, wraps at 2^32 */
+extern void loop_timer_start(uint32_t period_us);  /* calls loop_timer_isr() every period */
+
+/* IMU: accelerometer in g along the body's x (tilt direction) and z (up), gyro in deg/s
+ * about the tilt axis. */
+extern void imu_read(float *accel_x_g, float *accel_z_g, float *gyro_deg_s);
+extern int32_t encoder_count(void);             /* wheel encoder, counts, free-running */
+#define ENCODER_COUNTS_PER_REV 2048.0
+
+/* The wheel motor's driver runs its own speed loop and takes a speed in rev/s. */
+extern void motor_speed_set(float rev_s);
+extern void motor_driver_enable(int on);        /* the driver's enable pin */
+
+/* Two flash slots of at least 512 + 16 bytes each, erased to 0xFF. */
+extern int flash_erase_slot(int slot);          /* 0 on success */
+extern int flash_write_slot(int slot, uint32_t offset, const uint8_t *data, size_t n);
+extern void flash_read_slot(int slot, uint32_t offset, uint8_t *out, size_t n);
+
+extern void led_set(int on);
+
+/* ------------------------------------------------------------ the rig's variables */
+
+#define LOOP_RATE_HZ 500u
+
+/* Parameters: the initial values are the boot defaults (rb_init loads saved ones over them).
+ * rb_board reads and writes these between loop periods only. */
+static rb_real tilt_kp = 0.64, tilt_ki = 9.9, tilt_kd = 0.0, tilt_dfilt_s = 0.005;
+static rb_real trim_kp = 0.2, trim_ki = 0.05, trim_kd = 0.0, trim_dfilt_s = 0.05;
+static rb_real wheel_sp = 0.0, cmd_limit = 50.0, sp_limit = 5.0, tilt_tc_s = 0.5;
+static rb_real trip_tilt = 20.0, trip_wheel = 45.0, arm_tilt = 3.0, arm_wheel = 1.0;
+static rb_real torque_limit = 0.3;
+
+/* Signals: tilt, rate and wheel are measured (read_sensors below); cmd and sp are the loops'
+ * outputs and relay the relay state, all three written by rb_board. */
+static rb_real sig_tilt, sig_rate, sig_wheel, sig_cmd, sig_sp, sig_relay;
+
+static const rb_param params[] = {
+    /* name            unit           min    max   variable       writable */
+    {"tilt_kp",       "rev/s/deg",    0.0,  10.0, &tilt_kp,       1},
+    {"tilt_ki",       "rev/s/deg/s",  0.0, 100.0, &tilt_ki,       1},
+    {"tilt_kd",       "rev/deg",      0.0,   1.0, &tilt_kd,       1},
+    {"tilt_dfilt_s",  "s",            0.0,   0.1, &tilt_dfilt_s,  1},
+    {"trim_kp",       "deg.s/rev",    0.0,   5.0, &trim_kp,       1},
+    {"trim_ki",       "deg/rev",      0.0,   5.0, &trim_ki,       1},
+    {"trim_kd",       "deg.s2/rev",   0.0,   1.0, &trim_kd,       1},
+    {"trim_dfilt_s",  "s",            0.0,   1.0, &trim_dfilt_s,  1},
+    {"wheel_sp",      "rev/s",      -20.0,  20.0, &wheel_sp,      1},
+    {"cmd_limit",     "rev/s",        0.0,  50.0, &cmd_limit,     1},
+    {"sp_limit",      "deg",          0.0,  10.0, &sp_limit,      1},
+    {"tilt_tc_s",     "s",           0.05,   5.0, &tilt_tc_s,     1},  /* tilt filter */
+    {"trip_tilt",     "deg",          1.0,  30.0, &trip_tilt,     1},  /* trips on |tilt| */
+    {"trip_wheel",    "rev/s",        1.0,  60.0, &trip_wheel,    1},
+    {"arm_tilt",      "deg",          0.1,  10.0, &arm_tilt,      1},  /* arm needs |tilt| <= */
+    {"arm_wheel",     "rev/s",        0.1,  20.0, &arm_wheel,     1},
+    {"torque_limit",  "N.m",          0.3,   0.3, &torque_limit,  0},  /* a fact, read-only */
+};
+
+static const rb_signal signals[] = {   /* telemetry order */
+    {"tilt", "deg", &sig_tilt},
+    {"rate", "deg/s", &sig_rate},
+    {"wheel", "rev/s", &sig_wheel},
+    {"cmd", "rev/s", &sig_cmd},
+    {"sp", "deg", &sig_sp},
+    {"relay", "1", &sig_relay},
+};
+
+static const rb_loop loops[] = {
+    /* Outer loop first: its output `sp` is the tilt loop's set-point. Reverse-acting:
+     * e = wheel_sp - wheel. Integrating plant, relay test on the output. */
+    {.name = "trim", .measure = "wheel", .output = "sp",
+     .kp = "trim_kp", .ki = "trim_ki", .kd = "trim_kd",
+     .plant = RB_PLANT_INTEGRATING, .relay = RB_RELAY_OUTPUT, .action = RB_ACTION_REVERSE,
+     .setpoint = "wheel_sp", .setpoint_signal = NULL,
+     .limit = "sp_limit", .dfilt = "trim_dfilt_s", .rate = NULL},
+    /* Inner loop: direct-acting (e = tilt - sp: the wheel must spin up the way the body
+     * falls), open-loop unstable, so its relay test runs on the integral channel with the
+     * loop closed. The gyro gives the derivative directly. */
+    {.name = "tilt", .measure = "tilt", .output = "cmd",
+     .kp = "tilt_kp", .ki = "tilt_ki", .kd = "tilt_kd",
+     .plant = RB_PLANT_UNSTABLE, .relay = RB_RELAY_INTEGRAL, .action = RB_ACTION_DIRECT,
+     .setpoint = "sp", .setpoint_signal = "sp",
+     .limit = "cmd_limit", .dfilt = "tilt_dfilt_s", .rate = "rate"},
+};
+
+static const rb_rig rig = {
+    .board = "balance-board-1", .fw = "0.1.0", .rig = "balance",
+    .rate_hz = (rb_real)LOOP_RATE_HZ, .watchdog_ms = 500,
+    .params = params, .n_params = (uint8_t)(sizeof params / sizeof params[0]),
+    .signals = signals, .n_signals = (uint8_t)(sizeof signals / sizeof signals[0]),
+    .loops = loops, .n_loops = (uint8_t)(sizeof loops / sizeof loops[0]),
+    .command = "cmd", .simulated = 0,
+};
+
+/* The board: several kilobytes, so static, never on the stack. */
+static rb_board board;
+
+/* ------------------------------------------------------------ the port */
+
+/* Kill bytes counted by the receive interrupt, and how many of them rb_poll has acted on.
+ * While they differ, no main-context set_output may switch the motor on, not even one the
+ * interrupt cut into half-way: rb_rx_byte switches the motor off at once, but rb_board
+ * latches the trip only in its next rb_poll. One byte each: read and written atomically. */
+static volatile uint8_t kills_seen, kills_handled;
+
+static size_t port_write(void *ctx, const uint8_t *data, size_t n)
+{
+    (void)ctx;
+    return uart_write_nonblocking(data, n);
+}
+
+static uint32_t port_micros(void *ctx)
+{
+    (void)ctx;
+    return timer_micros();
+}
+
+/* Fill the measured signals: tilt from a complementary filter of the accelerometer's tilt
+ * and the gyro, gyro rate, wheel speed from the encoder's count difference. */
+static void port_read_sensors(void *ctx)
+{
+    static int started;
+    static int32_t last_count;
+    const rb_real dt_s = (rb_real)1.0 / (rb_real)LOOP_RATE_HZ;
+    float ax, az, gyro;
+    int32_t count;
+    rb_real accel_tilt_deg, a;
+
+    (void)ctx;
+    imu_read(&ax, &az, &gyro);
+    count = encoder_count();
+    accel_tilt_deg = (rb_real)(atan2((double)ax, (double)az) * (180.0 / 3.14159265358979));
+    if (!started) {                  /* first sample: take the accelerometer as it is */
+        sig_tilt = accel_tilt_deg;
+        last_count = count;
+        started = 1;
+    } else {                         /* gyro above ~1/(2 pi tilt_tc_s) Hz, accelerometer below */
+        a = tilt_tc_s / (tilt_tc_s + dt_s);
+        sig_tilt = a * (sig_tilt + (rb_real)gyro * dt_s) + ((rb_real)1.0 - a) * accel_tilt_deg;
+    }
+    sig_rate = (rb_real)gyro;
+    /* unsigned difference: right across the counter's wrap */
+    sig_wheel = (rb_real)(int32_t)((uint32_t)count - (uint32_t)last_count)
+                / (rb_real)ENCODER_COUNTS_PER_REV / dt_s;
+    last_count = count;
+}
+
+/* Called at the end of every rb_step, and with enabled == 0 at once on a kill (from the
+ * receive interrupt) or a trip. Off means the driver disabled, not just a zero speed. */
+static void port_set_output(void *ctx, rb_real command, int enabled)
+{
+    (void)ctx;
+    if (!enabled) {
+        motor_driver_enable(0);
+        motor_speed_set(0.0f);
+        return;
+    }
+    if (kills_seen != kills_handled) {
+        motor_driver_enable(0);      /* a kill is on its way through rb_poll */
+        return;
+    }
+    motor_speed_set((float)command);
+    motor_driver_enable(1);
+    if (kills_seen != kills_handled)  /* a kill came in between: undo at once */
+        motor_driver_enable(0);
+}
+
+/* Parameters in two flash slots: each write goes to the slot not holding the newest image,
+ * its header last, so a power cut leaves the old image or the new one, never half of one. */
+#define NV_MAGIC 0x52424E56u         /* any constant of your own */
+typedef struct {
+    uint32_t magic, serial;          /* serial: which slot is newer */
+    uint16_t length, crc;            /* crc: rb_crc16 of the image */
+    uint32_t spare;
+} nv_header;
+
+static int nv_slot_read(int slot, nv_header *h)
+{
+    flash_read_slot(slot, 0, (uint8_t *)h, sizeof *h);
+    return h->magic == NV_MAGIC && h->length <= RB_NV_MAX;
+}
+
+static int nv_newest(nv_header *h)   /* slot index, -1 when neither holds a valid image */
+{
+    nv_header h0, h1;
+    int ok0 = nv_slot_read(0, &h0), ok1 = nv_slot_read(1, &h1);
+    if (ok0 && ok1) {
+        /* serial arithmetic: right across the 2^32 wrap */
+        int first = (int32_t)(h1.serial - h0.serial) > 0;
+        *h = first ? h1 : h0;
+        return first;
+    }
+    if (ok0 || ok1) {
+        *h = ok0 ? h0 : h1;
+        return ok0 ? 0 : 1;
+    }
+    return -1;
+}
+
+static size_t port_nv_load(void *ctx, uint8_t *image, size_t cap)
+{
+    nv_header h;
+    int slot;
+    (void)ctx;
+    for (slot = nv_newest(&h); slot >= 0; slot = -1) {
+        if (h.length > cap)
+            return 0;
+        flash_read_slot(slot, sizeof h, image, h.length);
+        if (rb_crc16(image, h.length) == h.crc)
+            return h.length;
+        /* the newest slot is damaged: a real port may try the other slot here */
+    }
+    return 0;
+}
+
+static int port_nv_save(void *ctx, const uint8_t *image, size_t n)
+{
+    nv_header h, newest;
+    int last = nv_newest(&newest);
+    int slot = last == 0 ? 1 : 0;
+    (void)ctx;
+    if (n > RB_NV_MAX)
+        return -1;
+    memset(&h, 0xFF, sizeof h);
+    h.magic = NV_MAGIC;
+    h.serial = last < 0 ? 1u : newest.serial + 1u;
+    h.length = (uint16_t)n;
+    h.crc = rb_crc16(image, n);
+    if (flash_erase_slot(slot) != 0)
+        return -1;
+    if (flash_write_slot(slot, sizeof h, image, n) != 0)
+        return -1;
+    return flash_write_slot(slot, 0, (const uint8_t *)&h, sizeof h) != 0 ? -1 : 0;
+}
+
+static const rb_port port = {
+    .ctx = NULL,
+    .write = port_write,
+    .micros = port_micros,
+    .read_sensors = port_read_sensors,
+    .set_output = port_set_output,
+    .nv_save = port_nv_save,
+    .nv_load = port_nv_load,
+    .body_push = NULL,               /* no disturbance motor on this rig */
+};
+
+/* ------------------------------------------------------------ interrupts */
+
+static volatile uint8_t step_due;
+static volatile uint32_t late_steps;  /* loop periods the main loop was too slow for */
+
+/* UART receive interrupt: hand every byte to rb_board. It only fills a ring, except the
+ * kill byte, which switches the motor off here and now. */
+void uart_rx_isr(void);
+void uart_rx_isr(void)
+{
+    while (uart_rx_ready()) {
+        uint8_t byte = uart_rx_byte();
+        if (byte == RB_KILL_BYTE)
+            kills_seen++;             /* before rb_rx_byte: see port_set_output */
+        rb_rx_byte(&board, byte);
+    }
+}
+
+/* Loop timer interrupt at LOOP_RATE_HZ: only a flag; rb_step runs in the main loop so it can
+ * never run at the same time as rb_poll. */
+void loop_timer_isr(void);
+void loop_timer_isr(void)
+{
+    if (step_due)
+        late_steps++;
+    step_due = 1;
+}
+
+/* ------------------------------------------------------------ main */
+
+int main(void)
+{
+    rb_decl_error err;
+
+    hw_init();
+    motor_driver_enable(0);          /* the board boots with the motor off */
+    uart_init(115200u);              /* receive interrupt still off: rb_board is not ready */
+    err = rb_init(&board, &rig, &port,
+                  hw_reset_was_power_on() ? RB_BOOT_POWER : RB_BOOT_RESET);
+    if (err != RB_DECL_OK) {
+        /* A mistake in the tables above: say which entry on the UART, in plain text (a
+         * person reads this in a serial terminal), and never drive the motor. */
+        const char *why = rb_decl_text(&board);
+        for (;;) {
+            uart_write_nonblocking((const uint8_t *)why, strlen(why));
+            uart_write_nonblocking((const uint8_t *)"\r\n", 2);
+            led_set(1);
+            cpu_sleep_until_interrupt();
+        }
+    }
+    uart_rx_irq_enable();
+    loop_timer_start(1000000u / LOOP_RATE_HZ);
+
+    for (;;) {
+        uint8_t kills;
+        if (step_due) {
+            step_due = 0;
+            rb_step(&board);         /* sensors, safety, loops, motor, telemetry */
+        }
+        kills = kills_seen;          /* every kill counted so far is in rb_board's ring */
+        rb_poll(&board);             /* commands, replies, the kill latched, output sent */
+        kills_handled = kills;
+        led_set(rb_motor_state(&board) == RB_MOTOR_RUNNING);
+        /* Sleep when nothing is due: the timer and UART interrupts wake the core. (Masking
+         * interrupts around the test keeps a flag set just after it from being slept
+         * through; on cores where a masked interrupt does not wake the core, use the core's
+         * own "enable interrupts and sleep" instruction instead.) */
+        irq_disable();
+        if (!step_due)
+            cpu_sleep_until_interrupt();
+        irq_enable();
+    }
+}

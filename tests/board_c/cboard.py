@@ -1,0 +1,282 @@
+"""The C board library (protocol/board-c) driven from Python through ctypes, with the same
+interface as bench.rig.firmware.SimBoard: ``receive``, ``step``, ``output``, ``reboot``,
+``time_s``/``time_us``, ``motor``, ``fault``.
+
+The firmware logic is the C library's; the rig's plant and instruments are the Python
+simulation's (bench.rig.boards), so a ``CBoard`` and a ``SimBoard`` made with the same rig,
+seed and inputs see the same plant and can be compared byte for byte. ``use_c_engine``
+makes every sim:// board of a test a CBoard (monkeypatching bench.rig.simlink.make_board).
+"""
+
+from __future__ import annotations
+
+import ctypes as C
+import math
+from pathlib import Path
+
+import numpy as np
+
+from bench.rig.boards import RigDef, rig_def
+
+from cbuild import built
+
+U32 = 1 << 32
+_DBL_P = C.POINTER(C.c_double)
+
+
+class _Param(C.Structure):
+    _fields_ = [("name", C.c_char_p), ("unit", C.c_char_p), ("min", C.c_double),
+                ("max", C.c_double), ("value", _DBL_P), ("writable", C.c_uint8)]
+
+
+class _Signal(C.Structure):
+    _fields_ = [("name", C.c_char_p), ("unit", C.c_char_p), ("value", _DBL_P)]
+
+
+class _Loop(C.Structure):
+    _fields_ = [("name", C.c_char_p), ("measure", C.c_char_p), ("output", C.c_char_p),
+                ("kp", C.c_char_p), ("ki", C.c_char_p), ("kd", C.c_char_p),
+                ("plant", C.c_int), ("relay", C.c_int), ("action", C.c_int),
+                ("setpoint", C.c_char_p), ("setpoint_signal", C.c_char_p),
+                ("limit", C.c_char_p), ("dfilt", C.c_char_p), ("rate", C.c_char_p)]
+
+
+class _Rig(C.Structure):
+    _fields_ = [("board", C.c_char_p), ("fw", C.c_char_p), ("rig", C.c_char_p),
+                ("rate_hz", C.c_double), ("watchdog_ms", C.c_uint32),
+                ("params", C.POINTER(_Param)), ("n_params", C.c_uint8),
+                ("signals", C.POINTER(_Signal)), ("n_signals", C.c_uint8),
+                ("loops", C.POINTER(_Loop)), ("n_loops", C.c_uint8),
+                ("command", C.c_char_p), ("simulated", C.c_uint8)]
+
+
+_WRITE = C.CFUNCTYPE(C.c_size_t, C.c_void_p, C.POINTER(C.c_uint8), C.c_size_t)
+_MICROS = C.CFUNCTYPE(C.c_uint32, C.c_void_p)
+_READ = C.CFUNCTYPE(None, C.c_void_p)
+_SET_OUT = C.CFUNCTYPE(None, C.c_void_p, C.c_double, C.c_int)
+_NV_SAVE = C.CFUNCTYPE(C.c_int, C.c_void_p, C.POINTER(C.c_uint8), C.c_size_t)
+_NV_LOAD = C.CFUNCTYPE(C.c_size_t, C.c_void_p, C.POINTER(C.c_uint8), C.c_size_t)
+_PUSH = C.CFUNCTYPE(None, C.c_void_p, C.c_double, C.c_double)
+
+
+class _Port(C.Structure):
+    _fields_ = [("ctx", C.c_void_p), ("write", _WRITE), ("micros", _MICROS),
+                ("read_sensors", _READ), ("set_output", _SET_OUT), ("nv_save", _NV_SAVE),
+                ("nv_load", _NV_LOAD), ("body_push", _PUSH)]
+
+
+_LIB = None
+
+
+def lib():
+    """The shared library with argument types set (built on first use)."""
+    global _LIB
+    if _LIB is None:
+        so = C.CDLL(str(built().shared_lib))
+        so.rb_board_size.restype = C.c_size_t
+        so.rb_init.argtypes = [C.c_void_p, C.POINTER(_Rig), C.POINTER(_Port), C.c_int]
+        so.rb_init.restype = C.c_int
+        so.rb_decl_text.argtypes = [C.c_void_p]
+        so.rb_decl_text.restype = C.c_char_p
+        so.rb_rx_block.argtypes = [C.c_void_p, C.c_char_p, C.c_size_t]
+        for name in ("rb_poll", "rb_step"):
+            getattr(so, name).argtypes = [C.c_void_p]
+        for name in ("rb_motor_word", "rb_fault_word", "rb_last_rx_error"):
+            getattr(so, name).argtypes = [C.c_void_p]
+            getattr(so, name).restype = C.c_char_p
+        for name in ("rb_rx_errors", "rb_tx_drops"):
+            getattr(so, name).argtypes = [C.c_void_p]
+            getattr(so, name).restype = C.c_uint32
+        so.rb_trip.argtypes = [C.c_void_p, C.c_char_p]
+        so.rb_crc16.argtypes = [C.c_char_p, C.c_size_t]
+        so.rb_crc16.restype = C.c_uint16
+        so.rb_frame.argtypes = [C.c_char_p, C.c_size_t, C.c_char_p, C.c_size_t]
+        so.rb_frame.restype = C.c_size_t
+        so.rb_format_number.argtypes = [C.c_char_p, C.c_size_t, C.c_double, C.c_int]
+        so.rb_format_number.restype = C.c_size_t
+        so.rb_parse_number.argtypes = [C.c_char_p, C.c_size_t, C.POINTER(C.c_double)]
+        so.rb_parse_number.restype = C.c_int
+        _LIB = so
+    return _LIB
+
+
+def _b(text: str | None) -> bytes | None:
+    return None if text is None else text.encode("ascii")
+
+
+class CBoard:
+    """The C library as a board for ``rig`` on ``plant`` (see the module docstring)."""
+
+    def __init__(self, rig: RigDef, plant, *, state_path: str | None = None,
+                 tx_capacity_bytes: int = 4096, clock_start_us: int = 0,
+                 hand_tilt_deg: float = 0.0, board_name: str | None = None) -> None:
+        if tx_capacity_bytes != 4096:
+            raise ValueError("the C library's transmit buffer is RB_TX_SIZE (4096) bytes")
+        self.lib = lib()
+        self.rig = rig
+        self.plant = plant
+        self.rate_hz = rig.rate_hz
+        self.dt_s = 1.0 / rig.rate_hz
+        self.hand_tilt_deg = hand_tilt_deg
+        self.clock_start_us = int(clock_start_us) % U32
+        self.instruments = rig.make_instruments(self.dt_s)
+        self.state_path = state_path
+        self._nv = b""
+        if state_path is not None and Path(state_path).exists():
+            self._nv = Path(state_path).read_bytes()
+        self._keep = []
+        P = rig.params
+        self._values = (C.c_double * len(P))()
+        self._params = (_Param * len(P))(*[
+            _Param(_b(p.name), _b(p.unit), p.minimum, p.maximum,
+                   C.cast(C.byref(self._values, i * 8), _DBL_P), int(p.writable))
+            for i, p in enumerate(P)])
+        S = rig.signals
+        self._sig = (C.c_double * len(S))()
+        self._sig_index = {s.name: i for i, s in enumerate(S)}
+        self._signals = (_Signal * len(S))(*[
+            _Signal(_b(s.name), _b(s.unit), C.cast(C.byref(self._sig, i * 8), _DBL_P))
+            for i, s in enumerate(S)])
+        loops = []
+        for lp in rig.loops:
+            loops.append(_Loop(
+                _b(lp.name), _b(lp.measure), _b(lp.output), *(_b(g) for g in lp.gains),
+                ("stable", "integrating", "unstable").index(lp.plant),
+                ("output", "integral").index(lp.relay),
+                1 if lp.direct else 0,              # LoopDef.direct: e = sp - y (reverse)
+                _b(lp.setpoint), _b(lp.setpoint_signal), _b(lp.limit), _b(lp.dfilt),
+                _b(lp.rate)))
+        self._loops = (_Loop * len(loops))(*loops)
+        self._rig = _Rig(_b(board_name or rig.board.replace("sim-", "c-")), b"1.0.0",
+                         _b(rig.rig), rig.rate_hz, int(rig.watchdog_ms), self._params,
+                         len(P), self._signals, len(S), self._loops, len(loops),
+                         _b(rig.command), 1)
+        self._port = _Port(None, _WRITE(self._write), _MICROS(self._micros),
+                           _READ(self._read_sensors), _SET_OUT(self._set_output),
+                           _NV_SAVE(self._nv_save), _NV_LOAD(self._nv_load),
+                           _PUSH(self._push) if hasattr(plant, "push") else _PUSH())
+        self._board = C.create_string_buffer(self.lib.rb_board_size())
+        self._out = bytearray()
+        self._room = 0
+        self._pending_si = 0.0
+        self._steps = 0
+        self.boots = 0
+        self._boot("power")
+
+    # ------------------------------------------------------------------ port functions
+
+    def _write(self, ctx, data, n):
+        take = min(n, self._room)
+        if take:
+            self._out += C.string_at(data, take)
+            self._room -= take
+        return take
+
+    def _micros(self, ctx):
+        return self.time_us
+
+    def _read_sensors(self, ctx):
+        values = {p.name: self._values[i] for i, p in enumerate(self.rig.params)}
+        for name, v in self.instruments.read(self.plant.sensors(), values).items():
+            i = self._sig_index.get(name)
+            if i is not None:
+                self._sig[i] = v
+
+    def _set_output(self, ctx, command, enabled):
+        self._pending_si = command * self.rig.command_si if enabled else 0.0
+
+    def _nv_save(self, ctx, data, n):
+        self._nv = C.string_at(data, n)
+        if self.state_path is not None:
+            Path(self.state_path).write_bytes(self._nv)
+        return 0
+
+    def _nv_load(self, ctx, data, cap):
+        n = min(len(self._nv), cap)
+        C.memmove(data, self._nv, n)
+        return n
+
+    def _push(self, ctx, amp, time_s):
+        self.plant.push(amp, time_s)
+
+    # ------------------------------------------------------------------ SimBoard's interface
+
+    @property
+    def time_s(self) -> float:
+        return self._steps * self.dt_s
+
+    @property
+    def time_us(self) -> int:
+        n = self._steps - self._boot_step
+        return (self.clock_start_us + round(n * 1e6 / self.rate_hz)) % U32
+
+    @property
+    def motor(self) -> str:
+        return self.lib.rb_motor_word(self._board).decode()
+
+    @property
+    def fault(self) -> str | None:
+        word = self.lib.rb_fault_word(self._board).decode()
+        return None if word == "none" else word
+
+    @property
+    def rx_err(self) -> int:
+        return self.lib.rb_rx_errors(self._board)
+
+    @property
+    def drops(self) -> int:
+        return self.lib.rb_tx_drops(self._board)
+
+    @property
+    def last_rx_error(self) -> str:
+        return self.lib.rb_last_rx_error(self._board).decode()
+
+    def param(self, name: str) -> float:
+        return self._values[[p.name for p in self.rig.params].index(name)]
+
+    def reboot(self, reason: str = "reset") -> None:
+        self._boot(reason)
+
+    def _boot(self, reason: str) -> None:
+        self.boots += 1
+        self._boot_step = self._steps
+        for i, p in enumerate(self.rig.params):       # a restart runs the C start-up again
+            self._values[i] = p.default
+        self.instruments.reset()
+        self._pending_si = 0.0
+        code = self.lib.rb_init(self._board, C.byref(self._rig), C.byref(self._port),
+                                0 if reason == "power" else 1)
+        if code != 0:
+            raise ValueError(f"rb_init refused the declaration: "
+                             f"{self.lib.rb_decl_text(self._board).decode()}")
+
+    def receive(self, data: bytes) -> None:
+        if data:
+            self.lib.rb_rx_block(self._board, data, len(data))
+            self.lib.rb_poll(self._board)
+
+    def output(self, max_bytes: int | None = None) -> bytes:
+        self._room = (1 << 30) if max_bytes is None else max_bytes
+        self.lib.rb_poll(self._board)                 # flushes the library's buffer
+        self._room = 0
+        data, self._out = bytes(self._out), bytearray()
+        return data
+
+    def step(self, *, firmware: bool = True) -> None:
+        if self.rig.held_upright and self.motor in ("off", "armed"):
+            tr = self.plant.truth()
+            self.plant.set_state(tilt_rad=math.radians(self.hand_tilt_deg), rate_rad_s=0.0,
+                                 wheel_rad_s=tr["wheel_rad_s"] + tr["rate_rad_s"])
+        self.plant.step(self._pending_si)
+        self._steps += 1
+        if firmware:
+            self.lib.rb_step(self._board)
+
+
+def make_c_board(rig: str = "balance", *, drive: str = "speed", num=(1.0,), den=(1.0, 1.0),
+                 delay_s: float = 0.0, seed: int = 0, noise: float = 1.0,
+                 rate_hz: float = 500.0, state_path: str | None = None, **board_kw) -> CBoard:
+    """``bench.rig.firmware.make_board`` with the C library as the firmware."""
+    rd = rig_def(rig, drive=drive, num=num, den=den, delay_s=delay_s, rate_hz=rate_hz)
+    plant = rd.make_plant(np.random.default_rng(seed), noise, rate_hz)
+    return CBoard(rd, plant, state_path=state_path, **board_kw)

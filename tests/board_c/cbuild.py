@@ -1,0 +1,37 @@
+"""Building the C board library for the tests: ``make`` in protocol/board-c, once per run.
+
+``built()`` returns the paths of the shared library (for ctypes), the host simulation and
+its sanitizer build, building them first. A build failure (a warning is an error there)
+fails the tests that need it with make's output.
+"""
+
+from __future__ import annotations
+
+import shutil
+import subprocess
+from dataclasses import dataclass
+from functools import lru_cache
+from pathlib import Path
+
+ROOT = Path(__file__).parents[2]
+BOARD_C = ROOT / "protocol" / "board-c"
+
+
+@dataclass(frozen=True)
+class Built:
+    shared_lib: Path
+    sim: Path
+    sim_sanitized: Path
+
+
+@lru_cache(maxsize=1)
+def built() -> Built:
+    make = shutil.which("make")
+    if make is None or shutil.which("cc") is None:
+        raise RuntimeError("building protocol/board-c needs make and a C compiler (cc)")
+    proc = subprocess.run([make, "-C", str(BOARD_C), "all", "san"], capture_output=True,
+                          text=True, timeout=300)
+    if proc.returncode != 0:
+        raise RuntimeError(f"make -C {BOARD_C} failed:\n{proc.stdout}\n{proc.stderr}")
+    return Built(BOARD_C / "build" / "librb.so", BOARD_C / "build" / "rb-sim",
+                 BOARD_C / "build-san" / "rb-sim")
