@@ -184,8 +184,10 @@ static void port_read_sensors(void *ctx)
     last_count = count;
 }
 
-/* Called at the end of every rb_step, and with enabled == 0 at once on a kill (from the
- * receive interrupt) or a trip. Off means the driver disabled, not just a zero speed. */
+/* Called in every rb_step, with enabled == 0 whenever the motor leaves `running`, and from
+ * the receive interrupt on a kill byte. Off means the driver disabled, not just a zero
+ * speed. The driver calls must each be one register write (or otherwise safe when the
+ * receive interrupt cuts in between them). */
 static void port_set_output(void *ctx, rb_real command, int enabled)
 {
     (void)ctx;
@@ -239,17 +241,13 @@ static int nv_newest(nv_header *h)   /* slot index, -1 when neither holds a vali
 static size_t port_nv_load(void *ctx, uint8_t *image, size_t cap)
 {
     nv_header h;
-    int slot;
+    int slot = nv_newest(&h);
     (void)ctx;
-    for (slot = nv_newest(&h); slot >= 0; slot = -1) {
-        if (h.length > cap)
-            return 0;
-        flash_read_slot(slot, sizeof h, image, h.length);
-        if (rb_crc16(image, h.length) == h.crc)
-            return h.length;
-        /* the newest slot is damaged: a real port may try the other slot here */
-    }
-    return 0;
+    if (slot < 0 || h.length > cap)
+        return 0;                    /* nothing saved yet: rb_board keeps the defaults */
+    flash_read_slot(slot, sizeof h, image, h.length);
+    /* a damaged image reads as none (a port may then try the other slot) */
+    return rb_crc16(image, h.length) == h.crc ? h.length : 0;
 }
 
 static int port_nv_save(void *ctx, const uint8_t *image, size_t n)
@@ -286,7 +284,7 @@ static const rb_port port = {
 /* ------------------------------------------------------------ interrupts */
 
 static volatile uint8_t step_due;
-static volatile uint32_t late_steps;  /* loop periods the main loop was too slow for */
+static volatile uint32_t late_steps;  /* periods the main loop was too slow for: watch it */
 
 /* UART receive interrupt: hand every byte to rb_board. It only fills a ring, except the
  * kill byte, which switches the motor off here and now. */
