@@ -40,8 +40,9 @@ from bench.rig.firmware_modes import TxBuffer
 from bench.rig.firmware_params import NvStore, ParamTable
 from bench.wire import messages as m
 from bench.wire.codec import BoardCodec
+from bench.wire.errors import LocalProtocolError
 from bench.wire.frame import BadFrame, KillByte
-from bench.wire.states import INTERLOCK_CONDITIONS, REFUSALS, next_state
+from bench.wire.states import REFUSALS, next_state
 
 __all__ = ["SimBoard", "make_board", "refusal_text", "FW_VERSION"]
 
@@ -49,6 +50,7 @@ STATUS_HZ = 5.0
 U32 = 1 << 32
 _MESSAGE_ERRORS = {"bad_number": "bad_args", "bad_field": "bad_args",
                    "unknown_verb": "unknown_verb"}
+REPLY_TOO_LONG = "reply would not fit in one line; "
 ERR_TEXT_MAX = 80      # characters of an ``err`` text; the whole reply stays under 193 (§2)
 _ERR_TEXT_SWAP = str.maketrans({"|": "/", "@": "?", "'": None})
 
@@ -80,6 +82,7 @@ class SimBoard(BoardCommands):
         if abs(plant.dt_s - self.dt_s) > 1e-12:
             raise ValueError("the plant must step at the board's loop period")
         self.watchdog_s = rig.watchdog_ms / 1000.0
+        self._watchdog_us = round(rig.watchdog_ms * 1000)
         self.nv = NvStore(rig.rig, rig.params, state_path)
         self.params = ParamTable(rig.params)
         self.instruments = rig.make_instruments(self.dt_s)
@@ -91,6 +94,8 @@ class SimBoard(BoardCommands):
         names = {s.name for s in rig.signals}
         self._trip_params = [(p.name, p.name[5:]) for p in rig.params   # §5.2 trip_<signal>
                              if p.name.startswith("trip_") and p.name[5:] in names]
+        self._arm_params = [(p.name, p.name[4:]) for p in rig.params     # §7.3 arm_<signal>
+                            if p.name.startswith("arm_") and p.name[4:] in names]
         self._steps = 0
         self.boots = 0
         self._boot("power")
@@ -132,6 +137,7 @@ class SimBoard(BoardCommands):
         self.frame = 0
         self.stream_div = 0
         self.last_hb_s: float | None = None
+        self._hb_ref_us = self.time_us        # µs clock at the last heartbeat (or at boot)
         self._last_cmd = None
         self._last_reply = b""
         self._pending_si = 0.0
@@ -147,6 +153,7 @@ class SimBoard(BoardCommands):
                 self._trip("kill")                      # §7.1: at once, mid-line too
             elif kind is m.Heartbeat:
                 self.last_hb_s = self.time_s            # §7.2
+                self._hb_ref_us = self.time_us
             elif kind is BadFrame:
                 self.rx_err += 1
                 self._answer_bad(ev)
@@ -193,7 +200,7 @@ class SimBoard(BoardCommands):
     def _safety(self) -> None:
         if self.motor not in ("armed", "running"):
             return
-        if self.last_hb_s is None or self.time_s - self.last_hb_s > self.watchdog_s:
+        if not self._heartbeat_ok():
             self._trip("watchdog")
             return
         vals = self.params.values
@@ -273,31 +280,42 @@ class SimBoard(BoardCommands):
             self._last_reply = self._encode(
                 m.Err(self._last_cmd.seq, "state", "tripped since this command; ask status"))
 
+    def _since_hb_us(self) -> int:
+        """µs since the last heartbeat (since boot before the first), on the board's 32-bit
+        clock as a board without big integers computes it; held at 2³¹ so it never wraps
+        back to a fresh-looking value (the C library does the same)."""
+        since = (self.time_us - self._hb_ref_us) % U32
+        if since > 1 << 31:
+            self._hb_ref_us = (self.time_us - (1 << 31)) % U32
+            since = 1 << 31
+        return since
+
+    def _heartbeat_ok(self) -> bool:
+        return self.last_hb_s is not None and self._since_hb_us() <= self._watchdog_us
+
     def interlock_reasons(self) -> list[str]:
-        """Conditions that would refuse an ``arm`` now (PROTOCOL.md §7.3), in order."""
+        """Conditions that would refuse an ``arm`` now (PROTOCOL.md §7.3), in order: fault,
+        heartbeat, then ``<signal>`` for every ``arm_<signal>`` parameter in declaration
+        order (|signal| above it), then gains."""
         why = []
         vals = self.params.values
-        for cond in INTERLOCK_CONDITIONS:
-            if cond == "fault" and self.fault is not None:
-                why.append(cond)
-            elif cond == "heartbeat" and (self.last_hb_s is None
-                                          or self.time_s - self.last_hb_s > self.watchdog_s):
-                why.append(cond)
-            elif cond == "gains" and not all(self.params.in_range(g)
-                                             for lp in self.rig.loops for g in lp.gains):
-                why.append(cond)
-            elif f"arm_{cond}" in vals and abs(self.signals[cond]) > vals[f"arm_{cond}"]:
-                why.append(cond)
+        if self.fault is not None:
+            why.append("fault")
+        if not self._heartbeat_ok():
+            why.append("heartbeat")
+        for name, signal in self._arm_params:
+            if abs(self.signals[signal]) > vals[name]:
+                why.append(signal)
+        if not all(self.params.in_range(g) for lp in self.rig.loops for g in lp.gains):
+            why.append("gains")
         return why
 
     def _status_fields(self) -> list[tuple[str, object]]:
-        since = self.time_s - (self.last_hb_s if self.last_hb_s is not None
-                               else self._boot_step * self.dt_s)
         why = self.interlock_reasons()
         return [("mode", self.mode.name), ("loop", self.mode.loop or "-"),
                 ("motor", self.motor), ("fault", self.fault or "none"),
                 ("why", ",".join(why) or "none"), ("drops", self.drops),
-                ("rx_err", self.rx_err), ("hb_ms", min(round(since * 1000), U32 - 1))]
+                ("rx_err", self.rx_err), ("hb_ms", (self._since_hb_us() // 500 + 1) // 2)]
 
     def _busy_gains(self) -> frozenset[str]:
         if self.mode.name in ("relay", "open", "inject"):
@@ -336,7 +354,10 @@ class SimBoard(BoardCommands):
             reply = m.Err(cmd.seq, result[0], refusal_text(result[1]))
         else:
             reply = m.Ok(cmd.seq, tuple(result))
-        data = self._encode(reply)
+        try:
+            data = self._encode(reply)
+        except LocalProtocolError:      # e.g. a `get` of many long names (§2: 200 bytes)
+            data = self._encode(m.Err(cmd.seq, "bad_args", REPLY_TOO_LONG + "ask for fewer"))
         self._last_cmd, self._last_reply = cmd, data
         self.tx.put(data, "reply")
 

@@ -13,9 +13,11 @@ from __future__ import annotations
 import math
 
 from bench.rig.firmware_modes import ModeRefusal, applied_fields, parse_mode
+from bench.rig.firmware_params import board_round
 from bench.wire import messages as m
 from bench.wire.describe import BoardInfo, SignalInfo, parse_version
 from bench.wire.errors import RemoteProtocolError
+from bench.wire.frame import MAX_BODY
 from bench.wire.states import REFUSALS, next_state
 
 __all__ = ["BoardCommands", "FW_VERSION", "STREAM_DIV_MAX"]
@@ -69,6 +71,9 @@ class BoardCommands:
         refusal = self.params.check_set(cmd.values, self._busy_gains())
         if refusal is not None:
             return refusal.code, refusal.text
+        applied = [(name, board_round(v)) for name, v in cmd.values]
+        if len(m.format_body(m.Ok(cmd.seq, tuple(applied)))) > MAX_BODY:
+            return "bad_args", "reply would not fit in one line; set fewer"   # nothing changed
         return self.params.apply(cmd.values)            # §5.5: all at once, between periods
 
     def _on_save(self, cmd):

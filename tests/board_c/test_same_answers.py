@@ -155,3 +155,19 @@ def test_random_traffic_gets_the_same_answers(actions, chunk, seed):
     assert t.differences() == []
     assert t.py.rx_err == t.c.rx_err
     assert t.py.motor == t.c.motor and t.py.fault == t.c.fault
+
+
+def test_a_reply_too_long_for_one_line_is_refused():
+    # PROTOCOL.md §2: 200 bytes per line. A `get` of many long names cannot be answered in
+    # one line; both boards refuse it (bad_args) instead of sending an illegal frame.
+    t = Twin("balance")
+    names = [p.name for p in t.py.rig.params]
+    body = "get 5 " + " ".join(names)
+    while len(body) > 193:
+        names.pop()
+        body = "get 5 " + " ".join(names)
+    t.body(body)
+    t.body("get 6 " + " ".join(names[:5]))
+    assert t.differences() == []
+    replies = [x for x in t.lines("c") if x.startswith(("ok", "err"))]
+    assert replies[0] == "err 5 bad_args" and replies[1].startswith("ok 6 tilt_kp=0.64 ")

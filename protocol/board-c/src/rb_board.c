@@ -585,8 +585,13 @@ void rb_step(rb_board *b)
     if (b->rig == NULL)
         return;
     b->periods++;
-    if (b->hb_seen && since_hb_us(b) > 0x80000000u)
-        b->hb_us = b->port.micros(b->port.ctx) - 0x80000000u;  /* saturate, never wrap */
+    if (since_hb_us(b) > 0x80000000u) {         /* held at 2^31 us: never wraps to fresh */
+        uint32_t ref = b->port.micros(b->port.ctx) - 0x80000000u;
+        if (b->hb_seen)
+            b->hb_us = ref;
+        else
+            b->boot_us = ref;
+    }
     b->port.read_sensors(b->port.ctx);
     safety(b);
     if (b->motor == RB_MOTOR_RUNNING)
