@@ -124,7 +124,10 @@ typedef struct {
     /* Fill the variables of the measured signals (called first in every rb_step). */
     void (*read_sensors)(void *ctx);
     /* Drive the motor: `command` in the command signal's unit; enabled == 0 means motor
-     * power off (called at the end of every rb_step, and at once on a kill or trip). */
+     * power off. Called once in every rb_step (after the loops, before telemetry), with
+     * enabled == 0 whenever the motor leaves `running` (mode off, disarm, a trip, rb_init),
+     * and from rb_rx_byte on a kill byte: so it must be safe to call from the receive
+     * interrupt, and such a call may cut into one from the main context. */
     void (*set_output)(void *ctx, rb_real command, int enabled);
     /* Non-volatile storage of one opaque image of at most RB_NV_MAX bytes. save returns 0
      * on success (write it so a power cut leaves the old image or the new one); load
@@ -137,6 +140,14 @@ typedef struct {
 } rb_port;
 
 /* ------------------------------------------------------------------ the board */
+
+/* ring indices the receive interrupt shares with rb_poll: one byte wide when the ring is
+ * small enough, so an 8-bit core reads them in one access */
+#if RB_RX_RING <= 256
+typedef uint8_t rb_rx_index;
+#else
+typedef uint16_t rb_rx_index;
+#endif
 
 typedef enum { RB_MOTOR_OFF, RB_MOTOR_ARMED, RB_MOTOR_RUNNING, RB_MOTOR_TRIPPED } rb_motor;
 typedef enum { RB_MODE_OFF, RB_MODE_HOLD, RB_MODE_RELAY, RB_MODE_OPEN, RB_MODE_INJECT } rb_mode_kind;
@@ -157,6 +168,12 @@ typedef struct {                /* resolved declaration of one loop (library-int
     uint8_t measure, output, kp, ki, kd, limit, dfilt;
     int8_t setpoint_param, setpoint_sig, setpoint_show, rate, relay_sig;
 } rb_loop_ix;
+
+typedef struct {                /* one outgoing body under construction (library-internal) */
+    char s[RB_MAX_BODY + 1];
+    size_t n;
+    int overflow;
+} rb_line;
 
 typedef struct {                /* the mode in force (§8) */
     rb_mode_kind kind;
@@ -184,9 +201,10 @@ typedef struct rb_board {
     uint8_t hb_seen;
     /* receive: an interrupt-safe ring, then the line assembler */
     volatile uint8_t rx_ring[RB_RX_RING];
-    volatile uint16_t rx_head, rx_tail;
-    volatile uint8_t kill_pending;
-    volatile uint32_t rx_overruns;
+    volatile rb_rx_index rx_head, rx_tail;  /* written by one side each: no lock needed */
+    volatile uint8_t kill_pending;          /* set by the interrupt, cleared by rb_poll */
+    volatile uint8_t rx_lost;               /* bytes the full ring refused (wraps) */
+    uint8_t rx_lost_seen;
     uint8_t line[RB_MAX_LINE];
     uint16_t line_len;
     uint8_t rx_state;
@@ -200,6 +218,8 @@ typedef struct rb_board {
     uint8_t tx[RB_TX_SIZE];
     uint32_t tx_head, tx_used;
     uint8_t nv[RB_NV_MAX];
+    /* bodies being built: here rather than on the stack, which is small on many boards */
+    rb_line out_reply, out_event;
 } rb_board;
 
 /* Check the declaration, load stored parameters, send `ev boot`. Returns RB_DECL_OK or
@@ -217,7 +237,9 @@ void rb_rx_block(rb_board *b, const uint8_t *data, size_t n);
  * push queued output to port.write. Call often from the main context. */
 void rb_poll(rb_board *b);
 /* One loop period: sensors, safety, the loops under the present mode, motor output,
- * telemetry and status. Call at rig->rate_hz, never concurrently with rb_poll. */
+ * telemetry and status. Call at rig->rate_hz, never concurrently with rb_poll. A kill byte
+ * received since the last rb_poll is handled first (the bytes before it in stream order,
+ * then the trip), so the motor cannot come back on between the byte and rb_poll. */
 void rb_step(rb_board *b);
 
 /* Read-only views for your own code (a status LED, a local display, tests). */
@@ -228,7 +250,9 @@ uint32_t rb_rx_errors(const rb_board *b);
 uint32_t rb_tx_drops(const rb_board *b);
 const char *rb_last_rx_error(const rb_board *b);  /* "none" or a §2-§3 error code */
 /* Trip from your own code (a limit switch, an over-current comparator): motor off, the
- * cause latched and reported as `ev trip cause=<cause>` (a name, <= 32 characters). */
+ * cause latched and reported as `ev trip cause=<cause>` (a name, <= 32 characters).
+ * Main context only (like rb_poll and rb_step), not from an interrupt: for a hardware
+ * fault line, cut the driver in hardware and call rb_trip from the main loop. */
 void rb_trip(rb_board *b, const char *cause);
 
 /* Building blocks, exported for tests and for boards that want them. */

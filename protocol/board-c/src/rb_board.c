@@ -251,7 +251,7 @@ rb_decl_error rb_init(rb_board *b, const rb_rig *rig, const rb_port *port,
                       rb_boot_reason reason)
 {
     rb_decl_error err;
-    rb_line l;
+    rb_line *l = &b->out_event;
     int i;
     memset(b, 0, sizeof *b);
     b->rig = rig;
@@ -280,9 +280,9 @@ rb_decl_error rb_init(rb_board *b, const rb_rig *rig, const rb_port *port,
     rb_rx_reset(b);
     b->boot_us = b->port.micros(b->port.ctx);
     b->port.set_output(b->port.ctx, 0, 0);
-    rb_ev_start(b, &l, "boot");
-    rb_ln_kv(&l, "reason", reason == RB_BOOT_POWER ? "power" : "reset");
-    rb_event(b, &l);
+    rb_ev_start(b, l, "boot");
+    rb_ln_kv(l, "reason", reason == RB_BOOT_POWER ? "power" : "reset");
+    rb_event(b, l);
     rb_tx_flush(b);
     return RB_DECL_OK;
 }
@@ -358,7 +358,7 @@ static int overrides_output(const rb_board *b, const rb_mode_run *m)
 void rb_set_mode(rb_board *b, const rb_mode_run *run)
 {
     rb_mode_run next = *run;
-    rb_line l;
+    rb_line *l = &b->out_event;
     if (overrides_output(b, &b->mode) &&
         !(next.loop == b->mode.loop && (next.kind == RB_MODE_OPEN || next.kind == RB_MODE_RELAY)))
         rb_ctl_leave_override(b, b->mode.loop);
@@ -378,27 +378,27 @@ void rb_set_mode(rb_board *b, const rb_mode_run *run)
     if (next.kind == RB_MODE_INJECT && next.at == 2 && b->port.body_push != NULL)
         b->port.body_push(b->port.ctx, next.amp, next.time_s);
     b->mode = next;
-    rb_ev_start(b, &l, "mode");
-    rb_ln_kv(&l, "mode", rb_mode_name(next.kind));
-    rb_ln_kv(&l, "loop", next.loop >= 0 ? b->rig->loops[next.loop].name : "-");
-    rb_event(b, &l);
+    rb_ev_start(b, l, "mode");
+    rb_ln_kv(l, "mode", rb_mode_name(next.kind));
+    rb_ln_kv(l, "loop", next.loop >= 0 ? b->rig->loops[next.loop].name : "-");
+    rb_event(b, l);
 }
 
 void rb_trip_cause(rb_board *b, const char *cause, int has_value, double value)
 {
     if (b->motor != RB_MOTOR_TRIPPED) {            /* the first cause stays latched */
-        rb_line l;
+        rb_line *l = &b->out_event;
         size_t n = strlen(cause);
         if (n >= sizeof b->fault_buf)
             n = sizeof b->fault_buf - 1;
         memcpy(b->fault_buf, cause, n);
         b->fault_buf[n] = '\0';
         b->fault = b->fault_buf;
-        rb_ev_start(b, &l, "trip");
-        rb_ln_kv(&l, "cause", b->fault);
+        rb_ev_start(b, l, "trip");
+        rb_ln_kv(l, "cause", b->fault);
         if (has_value)
-            rb_ln_kv_num(&l, "value", value);
-        rb_event(b, &l);
+            rb_ln_kv_num(l, "value", value);
+        rb_event(b, l);
     }
     rb_happen(b, RB_H_TRIP);
     b->pending_cmd = 0;
@@ -406,12 +406,12 @@ void rb_trip_cause(rb_board *b, const char *cause, int has_value, double value)
     if (b->has_last) {
         /* §4.2: a resend of a command answered before the trip must not report the state
          * from before it; the reply becomes `err <seq> state` */
-        rb_line l;
-        rb_ln_start(&l, "err");
-        rb_ln_u32(&l, b->last_seq);
-        rb_ln_word(&l, "state tripped since this command; ask status");
+        rb_line *l = &b->out_event;
+        rb_ln_start(l, "err");
+        rb_ln_u32(l, b->last_seq);
+        rb_ln_word(l, "state tripped since this command; ask status");
         b->last_line_len = (uint16_t)rb_frame((char *)b->last_line, sizeof b->last_line,
-                                              l.s, l.n);
+                                              l->s, l->n);
     }
 }
 
@@ -497,7 +497,7 @@ size_t rb_interlock(const rb_board *b, char *out, size_t cap)
 
 void rb_status_fields(rb_board *b, rb_line *l)
 {
-    char why[RB_MAX_BODY];
+    char why[96];      /* "fault,heartbeat,<arm_ signals>,gains" */
     uint32_t since = since_hb_us(b);
     rb_ln_kv(l, "mode", rb_mode_name(b->mode.kind));
     rb_ln_kv(l, "loop", b->mode.loop >= 0 ? b->rig->loops[b->mode.loop].name : "-");
@@ -549,11 +549,11 @@ static void run_mode(rb_board *b)
     }
     b->mode.periods++;
     if (b->mode.end_periods && b->mode.periods >= b->mode.end_periods) {
-        rb_line l;
+        rb_line *l = &b->out_event;
         rb_mode_kind kind = b->mode.kind;
-        rb_ev_start(b, &l, "done");
-        rb_ln_kv(&l, "mode", rb_mode_name(kind));
-        rb_event(b, &l);
+        rb_ev_start(b, l, "done");
+        rb_ln_kv(l, "mode", rb_mode_name(kind));
+        rb_event(b, l);
         if (kind == RB_MODE_OPEN) {
             rb_happen(b, RB_H_STOP);
         } else {
@@ -568,15 +568,15 @@ static void run_mode(rb_board *b)
 
 static void telemetry(rb_board *b)
 {
-    rb_line l;
+    rb_line *l = &b->out_event;
     int i;
-    rb_ln_start(&l, "tm");
-    rb_ln_u32(&l, b->frame);
-    rb_ln_u32(&l, b->port.micros(b->port.ctx));
+    rb_ln_start(l, "tm");
+    rb_ln_u32(l, b->frame);
+    rb_ln_u32(l, b->port.micros(b->port.ctx));
     for (i = 0; i < b->rig->n_signals; i++)
-        rb_ln_num(&l, (double)*b->rig->signals[i].value, 6);
+        rb_ln_num(l, (double)*b->rig->signals[i].value, 6);
     b->frame++;                                  /* counts dropped frames too (§6.1) */
-    rb_tx_put(b, &l, RB_TX_TELEMETRY);
+    rb_tx_put(b, l, RB_TX_TELEMETRY);
 }
 
 void rb_step(rb_board *b)
@@ -584,6 +584,8 @@ void rb_step(rb_board *b)
     rb_real cmd;
     if (b->rig == NULL)
         return;
+    if (b->kill_pending)
+        rb_poll(b);                  /* the bytes before the kill, then the trip (§7.1) */
     b->periods++;
     if (since_hb_us(b) > 0x80000000u) {         /* held at 2^31 us: never wraps to fresh */
         uint32_t ref = b->port.micros(b->port.ctx) - 0x80000000u;
@@ -601,14 +603,16 @@ void rb_step(rb_board *b)
     cmd = b->motor == RB_MOTOR_RUNNING ? RB_SIG(b, b->command_sig) : 0;
     b->pending_cmd = cmd;
     b->port.set_output(b->port.ctx, cmd, b->motor == RB_MOTOR_RUNNING);
+    if (b->kill_pending)             /* a kill byte arrived while this period ran */
+        b->port.set_output(b->port.ctx, 0, 0);
     if (b->stream_div && b->periods % b->stream_div == 0)
         telemetry(b);
     if (b->periods % b->status_every == 0) {
-        rb_line l;
-        rb_ln_start(&l, "st");
-        rb_ln_u32(&l, b->port.micros(b->port.ctx));
-        rb_status_fields(b, &l);
-        rb_tx_put(b, &l, RB_TX_STATUS);
+        rb_line *l = &b->out_event;
+        rb_ln_start(l, "st");
+        rb_ln_u32(l, b->port.micros(b->port.ctx));
+        rb_status_fields(b, l);
+        rb_tx_put(b, l, RB_TX_STATUS);
     }
     rb_tx_flush(b);
 }

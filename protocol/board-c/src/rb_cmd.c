@@ -20,7 +20,7 @@ typedef struct {
     rb_tok *t;
     int nt;
     uint16_t seq;
-    rb_line reply;
+    rb_line *reply;         /* the board's out_reply */
     const char *err;        /* error code, NULL: the reply is ok */
     char text[96];          /* err text */
 } rb_ctx;
@@ -115,23 +115,23 @@ static void on_hello(rb_ctx *c)
         refuse(c, "version", "board speaks 1.0", NULL);
         return;
     }
-    rb_ln_kv(&c->reply, "proto", "1.0");
-    rb_ln_kv(&c->reply, "board", r->board);
-    rb_ln_kv(&c->reply, "fw", r->fw);
-    rb_ln_kv(&c->reply, "rig", r->rig);
-    rb_ln_kv_num(&c->reply, "rate_hz", (double)r->rate_hz);
-    rb_ln_kv_u32(&c->reply, "watchdog_ms", r->watchdog_ms);
-    rb_ln_kv_u32(&c->reply, "params", r->n_params);
-    rb_ln_kv_u32(&c->reply, "signals", r->n_signals);
-    rb_ln_kv_u32(&c->reply, "loops", r->n_loops);
+    rb_ln_kv(c->reply, "proto", "1.0");
+    rb_ln_kv(c->reply, "board", r->board);
+    rb_ln_kv(c->reply, "fw", r->fw);
+    rb_ln_kv(c->reply, "rig", r->rig);
+    rb_ln_kv_num(c->reply, "rate_hz", (double)r->rate_hz);
+    rb_ln_kv_u32(c->reply, "watchdog_ms", r->watchdog_ms);
+    rb_ln_kv_u32(c->reply, "params", r->n_params);
+    rb_ln_kv_u32(c->reply, "signals", r->n_signals);
+    rb_ln_kv_u32(c->reply, "loops", r->n_loops);
     if (r->simulated)
-        rb_ln_kv(&c->reply, "sim", "1");
+        rb_ln_kv(c->reply, "sim", "1");
 }
 
 static void on_describe(rb_ctx *c, uint32_t index, char what)
 {
     const rb_rig *r = c->b->rig;
-    rb_line *l = &c->reply;
+    rb_line *l = c->reply;
     char num[8];
     snprintf(num, sizeof num, "%u", (unsigned)index);
     if (what == 'p') {
@@ -209,15 +209,25 @@ static void on_get(rb_ctx *c)
             return;
     for (i = 2; i < c->nt; i++) {
         int p = rb_param_index(c->b, TOKP(c, i), TOKN(c, i));
-        rb_ln_kv_num(&c->reply, c->b->rig->params[p].name, (double)RB_PAR(c->b, p));
+        rb_ln_kv_num(c->reply, c->b->rig->params[p].name, (double)RB_PAR(c->b, p));
     }
 }
 
-static void on_set(rb_ctx *c, const double *values)
+static double token_value(rb_ctx *c, int i)
 {
-    /* atomic (§5.5): every assignment checked, the reply built, then all applied */
+    /* the number of a name=value token the grammar check already accepted */
+    size_t k = key_len(c, i);
+    double v = 0;
+    rb_parse_number(TOKP(c, i) + k + 1, TOKN(c, i) - k - 1, &v);
+    return v;
+}
+
+static void on_set(rb_ctx *c)
+{
+    /* atomic (§5.5): every assignment checked, the reply built, then all applied (the
+     * tokens are read twice rather than kept: less stack on a small board) */
     rb_board *b = c->b;
-    int i, idx[RB_MAX_TOKENS];
+    int i;
     char name[40], lo[24], hi[24], text[96];
     for (i = 2; i < c->nt; i++) {
         size_t k = key_len(c, i);
@@ -231,7 +241,7 @@ static void on_set(rb_ctx *c, const double *values)
             refuse(c, "readonly", "%s is read-only", p->name);
             return;
         }
-        v = rb_board_round(values[i]);
+        v = rb_board_round(token_value(c, i));
         if (!((double)p->min <= v && v <= (double)p->max)) {
             rb_format_number(lo, sizeof lo, (double)p->min, 7);
             rb_format_number(hi, sizeof hi, (double)p->max, 7);
@@ -244,15 +254,16 @@ static void on_set(rb_ctx *c, const double *values)
             refuse(c, "busy", "%s belongs to a loop under test", name);
             return;
         }
-        idx[i] = pi;
-        rb_ln_kv_num(&c->reply, p->name, v);
+        rb_ln_kv_num(c->reply, p->name, v);
     }
-    if (c->reply.overflow) {
+    if (c->reply->overflow) {
         refuse(c, "bad_args", "reply would not fit in one line; set fewer", NULL);
         return;
     }
-    for (i = 2; i < c->nt; i++)
-        *b->rig->params[idx[i]].value = (rb_real)rb_board_round(values[i]);
+    for (i = 2; i < c->nt; i++) {
+        int pi = rb_param_index(b, TOKP(c, i), key_len(c, i));
+        *b->rig->params[pi].value = (rb_real)rb_board_round(token_value(c, i));
+    }
 }
 
 static void on_stream(rb_ctx *c, double rate)
@@ -269,7 +280,7 @@ static void on_stream(rb_ctx *c, double rate)
     }
     if (rate == 0) {
         b->stream_div = 0;
-        rb_ln_kv_u32(&c->reply, "rate_hz", 0);
+        rb_ln_kv_u32(c->reply, "rate_hz", 0);
         return;
     }
     /* the nearest loop rate / n (§6.1); below loop rate / (2^32 - 1) the slowest */
@@ -280,7 +291,7 @@ static void on_stream(rb_ctx *c, double rate)
     hi = ceil(ratio) < 1 ? 1 : ceil(ratio);
     div = fabs(loop_hz / lo - rate) <= fabs(loop_hz / hi - rate) ? lo : hi;
     b->stream_div = (uint32_t)div;
-    rb_ln_kv_num(&c->reply, "rate_hz", loop_hz / div);
+    rb_ln_kv_num(c->reply, "rate_hz", loop_hz / div);
 }
 
 /* mode fields: required keys, optional keys */
@@ -459,30 +470,30 @@ static void on_mode(rb_ctx *c, int kind)
             rb_set_mode(b, &run);
         }
     }
-    rb_ln_kv(&c->reply, "mode", MODE_NAMES[kind]);
+    rb_ln_kv(c->reply, "mode", MODE_NAMES[kind]);
     if (kind >= RB_MODE_RELAY)
-        rb_ln_kv(&c->reply, "loop", b->rig->loops[loop].name);
+        rb_ln_kv(c->reply, "loop", b->rig->loops[loop].name);
     if (kind == RB_MODE_RELAY) {
-        rb_ln_kv_num(&c->reply, "amp", amp);
-        rb_ln_kv_num(&c->reply, "hyst", hyst);
-        rb_ln_kv_num(&c->reply, "bias", bias);
+        rb_ln_kv_num(c->reply, "amp", amp);
+        rb_ln_kv_num(c->reply, "hyst", hyst);
+        rb_ln_kv_num(c->reply, "bias", bias);
         if (has_bound)
-            rb_ln_kv_num(&c->reply, "bound", bound);
+            rb_ln_kv_num(c->reply, "bound", bound);
     } else if (kind == RB_MODE_OPEN) {
-        rb_ln_kv_num(&c->reply, "out", out);
-        rb_ln_kv_num(&c->reply, "time_s", time_s);
+        rb_ln_kv_num(c->reply, "out", out);
+        rb_ln_kv_num(c->reply, "time_s", time_s);
     } else if (kind == RB_MODE_INJECT) {
-        rb_ln_kv(&c->reply, "shape", run.shape_step ? "step" : "pulse");
-        rb_ln_kv(&c->reply, "at", run.at == 0 ? "setpoint" : (run.at == 1 ? "output" : "body"));
-        rb_ln_kv_num(&c->reply, "amp", amp);
-        rb_ln_kv_num(&c->reply, "time_s", time_s);
+        rb_ln_kv(c->reply, "shape", run.shape_step ? "step" : "pulse");
+        rb_ln_kv(c->reply, "at", run.at == 0 ? "setpoint" : (run.at == 1 ? "output" : "body"));
+        rb_ln_kv_num(c->reply, "amp", amp);
+        rb_ln_kv_num(c->reply, "time_s", time_s);
     }
 }
 
 static void on_simple(rb_ctx *c, const char *verb)
 {
     rb_board *b = c->b;
-    char why[RB_MAX_BODY];
+    char why[96];      /* "fault,heartbeat,<arm_ signals>,gains" */
     if (strcmp(verb, "save") == 0) {
         uint16_t crc = 0;
         char hex[5];
@@ -492,8 +503,8 @@ static void on_simple(rb_ctx *c, const char *verb)
             return;
         }
         snprintf(hex, sizeof hex, "%04X", (unsigned)crc);
-        rb_ln_kv_u32(&c->reply, "count", (uint32_t)n);
-        rb_ln_kv(&c->reply, "crc", hex);
+        rb_ln_kv_u32(c->reply, "count", (uint32_t)n);
+        rb_ln_kv(c->reply, "crc", hex);
     } else if (strcmp(verb, "restore") == 0) {
         int n;
         if (b->motor == RB_MOTOR_RUNNING) {
@@ -501,7 +512,7 @@ static void on_simple(rb_ctx *c, const char *verb)
             return;
         }
         n = rb_nv_load_image(b, 1);
-        rb_ln_kv_u32(&c->reply, "count", n < 0 ? 0u : (uint32_t)n);
+        rb_ln_kv_u32(c->reply, "count", n < 0 ? 0u : (uint32_t)n);
     } else if (strcmp(verb, "arm") == 0) {
         if (b->motor == RB_MOTOR_RUNNING) {
             refuse(c, "state", "motor running", NULL);
@@ -512,25 +523,24 @@ static void on_simple(rb_ctx *c, const char *verb)
             return;
         }
         rb_happen(b, RB_H_ARM);
-        rb_ln_kv(&c->reply, "motor", rb_motor_word(b));
+        rb_ln_kv(c->reply, "motor", rb_motor_word(b));
     } else if (strcmp(verb, "disarm") == 0) {
         rb_happen(b, RB_H_DISARM);
-        rb_ln_kv(&c->reply, "motor", rb_motor_word(b));
+        rb_ln_kv(c->reply, "motor", rb_motor_word(b));
     } else if (strcmp(verb, "clear") == 0) {
         int was_tripped = b->motor == RB_MOTOR_TRIPPED;
         rb_happen(b, RB_H_CLEAR);                  /* §7.3: never starts the motor */
         if (was_tripped) {
-            rb_line l;
             b->fault = NULL;
-            rb_ev_start(b, &l, "clear");
-            rb_event(b, &l);
+            rb_ev_start(b, &b->out_event, "clear");
+            rb_event(b, &b->out_event);
         }
-        rb_ln_kv(&c->reply, "motor", rb_motor_word(b));
+        rb_ln_kv(c->reply, "motor", rb_motor_word(b));
     } else if (strcmp(verb, "kill") == 0) {
         rb_trip_cause(b, "kill", 0, 0.0);
-        rb_ln_kv(&c->reply, "motor", rb_motor_word(b));
+        rb_ln_kv(c->reply, "motor", rb_motor_word(b));
     } else {                                        /* status */
-        rb_status_fields(b, &c->reply);
+        rb_status_fields(b, c->reply);
     }
 }
 
@@ -581,22 +591,24 @@ static void bad(rb_ctx *c, const char *code, int reply, const char *text)
     c->b->rx_err++;
     c->b->last_rx_error = code;
     if (reply && all_digits_seq(c, &seq)) {
-        rb_line l;
+        rb_line *l = &c->b->out_reply;
         refuse(c, reply == 2 ? "unknown_verb" : "bad_args", "%s", text);
-        send_err(c->b, seq, c->err, c->text, &l);
-        rb_tx_put(c->b, &l, RB_TX_REPLY);
+        send_err(c->b, seq, c->err, c->text, l);
+        rb_tx_put(c->b, l, RB_TX_REPLY);
     }
 }
 
 void rb_command(rb_board *b, const char *body, size_t n)
 {
     rb_tok toks[RB_MAX_TOKENS];
-    double values[RB_MAX_TOKENS];
+    double rate = 0;
     rb_ctx c;
     uint32_t seq, index = 0;
     int i, kind = 0;
     char verb[12];
-    memset(&c.reply, 0, sizeof c.reply);
+    c.reply = &b->out_reply;
+    c.reply->n = 0;
+    c.reply->overflow = 0;
     c.b = b;
     c.body = body;
     c.t = toks;
@@ -692,7 +704,8 @@ void rb_command(rb_board *b, const char *body, size_t n)
         }
         for (i = 2; i < c.nt; i++) {
             size_t k = key_len(&c, i);
-            if (!rb_parse_number(TOKP(&c, i) + k + 1, TOKN(&c, i) - k - 1, &values[i])) {
+            double v;
+            if (!rb_parse_number(TOKP(&c, i) + k + 1, TOKN(&c, i) - k - 1, &v)) {
                 char text[112], key[40], tok[56];
                 tok_copy(key, sizeof key, TOKP(&c, i), k);
                 tok_copy(tok, sizeof tok, TOKP(&c, i) + k + 1, TOKN(&c, i) - k - 1);
@@ -718,7 +731,7 @@ void rb_command(rb_board *b, const char *body, size_t n)
             bad(&c, "bad_field", 1, "stream takes rate_hz=<number>");
             return;
         }
-        if (!rb_parse_number(v, vn, &values[2])) {
+        if (!rb_parse_number(v, vn, &rate)) {
             char text[96], tok[56];
             tok_copy(tok, sizeof tok, v, vn);
             snprintf(text, sizeof text, "rate_hz %s is not a number", tok);
@@ -740,8 +753,8 @@ void rb_command(rb_board *b, const char *body, size_t n)
         }
         return;
     }
-    rb_ln_start(&c.reply, "ok");
-    rb_ln_u32(&c.reply, c.seq);
+    rb_ln_start(c.reply, "ok");
+    rb_ln_u32(c.reply, c.seq);
     if (strcmp(verb, "hello") == 0)
         on_hello(&c);
     else if (strcmp(verb, "param") == 0)
@@ -753,22 +766,22 @@ void rb_command(rb_board *b, const char *body, size_t n)
     else if (strcmp(verb, "get") == 0)
         on_get(&c);
     else if (strcmp(verb, "set") == 0)
-        on_set(&c, values);
+        on_set(&c);
     else if (strcmp(verb, "mode") == 0)
         on_mode(&c, kind);
     else if (strcmp(verb, "stream") == 0)
-        on_stream(&c, values[2]);
+        on_stream(&c, rate);
     else
         on_simple(&c, verb);
-    if (c.err == NULL && c.reply.overflow)
+    if (c.err == NULL && c.reply->overflow)
         refuse(&c, "bad_args", "reply would not fit in one line; ask for fewer", NULL);
     if (c.err != NULL)
-        send_err(b, c.seq, c.err, c.text, &c.reply);
+        send_err(b, c.seq, c.err, c.text, c.reply);
     memcpy(b->last_body, body, n);
     b->last_body[n] = '\0';
     b->last_seq = c.seq;
     b->has_last = 1;
     b->last_line_len = (uint16_t)rb_frame((char *)b->last_line, sizeof b->last_line,
-                                          c.reply.s, c.reply.n);
-    rb_tx_put(b, &c.reply, RB_TX_REPLY);
+                                          c.reply->s, c.reply->n);
+    rb_tx_put(b, c.reply, RB_TX_REPLY);
 }

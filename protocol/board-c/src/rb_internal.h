@@ -12,12 +12,6 @@ typedef struct {                /* a token of a body: offset and length */
 
 #define RB_MAX_TOKENS 98        /* a 193-byte body has at most 97 tokens */
 
-/* one outgoing body under construction (the frame is added when it is queued) */
-typedef struct {
-    char s[RB_MAX_BODY + 1];
-    size_t n;
-    int overflow;
-} rb_line;
 
 typedef enum { RB_TX_TELEMETRY, RB_TX_STATUS, RB_TX_REPLY, RB_TX_EVENT } rb_tx_kind;
 

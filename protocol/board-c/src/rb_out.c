@@ -106,26 +106,45 @@ double rb_board_round(double v)
     return n ? strtod(tmp, NULL) : v;
 }
 
+static void ring_put(rb_board *b, uint32_t *at, const uint8_t *data, size_t n)
+{
+    size_t i;
+    for (i = 0; i < n; i++) {
+        b->tx[*at] = data[i];
+        *at = *at + 1 == RB_TX_SIZE ? 0 : *at + 1;
+    }
+}
+
 int rb_tx_put(rb_board *b, const rb_line *l, rb_tx_kind kind)
 {
-    char frame[RB_MAX_LINE + 1];
-    size_t n, room, i, at;
-    if (l->overflow)
+    static const char hex[] = "0123456789ABCDEF";
+    uint8_t tail[6];
+    uint16_t crc;
+    size_t n, room, i;
+    uint32_t at;
+    if (l->overflow || l->n == 0)
         return 0;
-    n = rb_frame(frame, sizeof frame, l->s, l->n);
-    if (n == 0)
-        return 0;
+    for (i = 0; i < l->n; i++)
+        if (!rb_body_char((uint8_t)l->s[i]))
+            return 0;
+    n = l->n + 7;                       /* '@' body '|' four hex digits '\n' */
     room = kind == RB_TX_TELEMETRY ? RB_TX_SIZE - RB_TX_SIZE / 4 : RB_TX_SIZE;
     if (b->tx_used + n > room) {
         if (kind != RB_TX_STATUS)
             b->drops++;
         return 0;
     }
+    crc = rb_crc16((const uint8_t *)l->s, l->n);
+    tail[0] = '|';
+    tail[1] = (uint8_t)hex[(crc >> 12) & 15];
+    tail[2] = (uint8_t)hex[(crc >> 8) & 15];
+    tail[3] = (uint8_t)hex[(crc >> 4) & 15];
+    tail[4] = (uint8_t)hex[crc & 15];
+    tail[5] = '\n';
     at = (b->tx_head + b->tx_used) % RB_TX_SIZE;
-    for (i = 0; i < n; i++) {
-        b->tx[at] = (uint8_t)frame[i];
-        at = at + 1 == RB_TX_SIZE ? 0 : at + 1;
-    }
+    ring_put(b, &at, (const uint8_t *)"@", 1);
+    ring_put(b, &at, (const uint8_t *)l->s, l->n);
+    ring_put(b, &at, tail, sizeof tail);
     b->tx_used += (uint32_t)n;
     return 1;
 }

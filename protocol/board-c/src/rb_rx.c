@@ -24,14 +24,14 @@ enum { RX_IDLE, RX_JUNK, RX_FRAME, RX_SKIP };
 
 void rb_rx_byte(rb_board *b, uint8_t byte)
 {
-    uint16_t head = b->rx_head;
-    uint16_t next = (uint16_t)((head + 1u) & (RB_RX_RING - 1u));
+    rb_rx_index head = b->rx_head;
+    rb_rx_index next = (rb_rx_index)((head + 1u) & (RB_RX_RING - 1u));
     if (byte == RB_KILL_BYTE) {
         b->kill_pending = 1;
         b->port.set_output(b->port.ctx, 0, 0);        /* §7.1: at once */
     }
     if (next == b->rx_tail) {
-        b->rx_overruns++;
+        b->rx_lost++;                                 /* counted as an rx error by rb_poll */
         return;
     }
     b->rx_ring[head] = byte;
@@ -193,10 +193,15 @@ static void assemble(rb_board *b, uint8_t c)
 void rb_poll(rb_board *b)
 {
     int saw_kill = 0;
+    uint8_t lost = b->rx_lost;
+    if (lost != b->rx_lost_seen) {                    /* the ring overflowed: a line is lost */
+        rx_error(b, "overrun");
+        b->rx_lost_seen = lost;
+    }
     while (b->rx_tail != b->rx_head) {
-        uint16_t tail = b->rx_tail;
+        rb_rx_index tail = b->rx_tail;
         uint8_t c = b->rx_ring[tail];
-        b->rx_tail = (uint16_t)((tail + 1u) & (RB_RX_RING - 1u));
+        b->rx_tail = (rb_rx_index)((tail + 1u) & (RB_RX_RING - 1u));
         if (c == RB_KILL_BYTE) {
             saw_kill = 1;
             kill_now(b);
