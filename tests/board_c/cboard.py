@@ -21,6 +21,7 @@ from bench.rig.boards import RigDef, rig_def
 from cbuild import built
 
 U32 = 1 << 32
+RX_PIECE = 128
 _DBL_P = C.POINTER(C.c_double)
 
 
@@ -251,9 +252,16 @@ class CBoard:
                              f"{self.lib.rb_decl_text(self._board).decode()}")
 
     def receive(self, data: bytes) -> None:
-        if data:
-            self.lib.rb_rx_block(self._board, data, len(data))
+        """Host bytes in, as a receive interrupt and a main loop that keeps up would take
+        them: pieces smaller than the receive ring (RB_RX_RING, 256), each polled."""
+        for i in range(0, len(data), RX_PIECE):
+            piece = data[i:i + RX_PIECE]
+            self.lib.rb_rx_block(self._board, piece, len(piece))
             self.lib.rb_poll(self._board)
+
+    def receive_unpolled(self, data: bytes) -> None:
+        """Bytes into the receive ring with no rb_poll: a main loop that fell behind."""
+        self.lib.rb_rx_block(self._board, data, len(data))
 
     def output(self, max_bytes: int | None = None) -> bytes:
         self._room = (1 << 30) if max_bytes is None else max_bytes
