@@ -12,3 +12,19 @@ def thread_errors(monkeypatch):
     monkeypatch.setattr(threading, "excepthook", lambda args: seen.append(args))
     yield seen
     assert not seen, [f"{a.thread.name}: {a.exc_value!r}" for a in seen]
+
+
+# RIGBENCH_TEST_BOARD=c: every sim:// board of the run is the C board library (protocol/
+# board-c) on the same Python plants, so host-level tests prove the host cannot tell the
+# two apart (tests/board_c/test_same_host_tests.py runs a set of modules this way).
+if __import__("os").environ.get("RIGBENCH_TEST_BOARD") == "c":
+    import sys
+    from pathlib import Path
+
+    sys.path.insert(0, str(Path(__file__).parent / "board_c"))
+
+    @pytest.fixture(autouse=True)
+    def _c_board_engine(monkeypatch):
+        from cboard import make_c_board
+
+        monkeypatch.setattr("bench.rig.simlink.make_board", make_c_board)

@@ -13,6 +13,7 @@ from __future__ import annotations
 import ctypes as C
 import math
 from pathlib import Path
+from types import SimpleNamespace
 
 import numpy as np
 
@@ -231,6 +232,17 @@ class CBoard:
     @property
     def last_rx_error(self) -> str:
         return self.lib.rb_last_rx_error(self._board).decode()
+
+    @property
+    def signals(self) -> dict[str, float]:
+        """The signal variables now (a copy, as SimBoard.signals is read by tests)."""
+        return {s.name: self._sig[i] for i, s in enumerate(self.rig.signals)}
+
+    @property
+    def params(self) -> SimpleNamespace:
+        """``params.values``: the parameter variables now (a copy)."""
+        return SimpleNamespace(values={p.name: self._values[i]
+                                       for i, p in enumerate(self.rig.params)})
 
     def param(self, name: str) -> float:
         return self._values[[p.name for p in self.rig.params].index(name)]
