@@ -1,8 +1,9 @@
 """Building the C board library for the tests: ``make`` in protocol/board-c, once per run.
 
 ``built()`` returns the paths of the shared library (for ctypes), the host simulation and
-its sanitizer build, building them first. A build failure (a warning is an error there)
-fails the tests that need it with make's output.
+its sanitizer build, building them first (and compiling examples/mcu_skeleton.c). A build
+failure (a warning is an error there) fails the tests that need it with make's output; a
+machine without make or a C compiler skips them.
 """
 
 from __future__ import annotations
@@ -28,9 +29,13 @@ class Built:
 def built() -> Built:
     make = shutil.which("make")
     if make is None or shutil.which("cc") is None:
-        raise RuntimeError("building protocol/board-c needs make and a C compiler (cc)")
-    proc = subprocess.run([make, "-C", str(BOARD_C), "all", "san"], capture_output=True,
-                          text=True, timeout=300)
+        # only on a machine without a compiler; CI builds with make before the tests run
+        # (.ci/run), so there these tests always run
+        import pytest
+
+        pytest.skip("the C board library's tests need make and a C compiler (cc)")
+    proc = subprocess.run([make, "-C", str(BOARD_C), "all", "san", "check-skeleton"],
+                          capture_output=True, text=True, timeout=300)
     if proc.returncode != 0:
         raise RuntimeError(f"make -C {BOARD_C} failed:\n{proc.stdout}\n{proc.stderr}")
     return Built(BOARD_C / "build" / "librb.so", BOARD_C / "build" / "rb-sim",

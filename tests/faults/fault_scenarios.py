@@ -68,6 +68,10 @@ def _finish(out: Outcome, link: Link, sim: SimLink, tap: BoardTap, t0: float) ->
     out.accepted_wrong = acc.wrong + tap.ambiguous
     out.telemetry_lost = tap.sent - acc.rows
     out.host_counted_lost = h.lost_frames
+    _, block = link.read_since(0)
+    if len(block):                     # lost there, no gap can show it
+        first, last = int(block.frame[0]), int(block.frame[-1])
+        out.unseen_ends = sum(f < first or f > last for f, _ in tap.telemetry)
     out.resends = h.resends
     for e in link.events_since(0)[1]:
         kind = e.kind if e.source == "link" else (

@@ -135,6 +135,7 @@ class Outcome:
     damage: str = "none"               # what the fault does to lines (DAMAGE)
     telemetry_lost: int = 0            # sent but not accepted
     host_counted_lost: int = 0         # telemetry the host counted missing (frame gaps)
+    unseen_ends: int = 0               # sent before the first or after the last accepted
     host_events: list = field(default_factory=list)   # link happenings and board trips seen
     resends: int = 0
     motor_end: str = ""                # the board's own motor state at the end
