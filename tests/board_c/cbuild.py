@@ -20,9 +20,9 @@ BOARD_C = ROOT / "protocol" / "board-c"
 
 @dataclass(frozen=True)
 class Built:
-    shared_lib: Path
+    shared_lib: Path          # built with UndefinedBehaviorSanitizer: UB aborts the run
     sim: Path
-    sim_sanitized: Path
+    sim_sanitized: Path       # AddressSanitizer + UndefinedBehaviorSanitizer
 
 
 @lru_cache(maxsize=1)
@@ -38,5 +38,5 @@ def built() -> Built:
                           capture_output=True, text=True, timeout=300)
     if proc.returncode != 0:
         raise RuntimeError(f"make -C {BOARD_C} failed:\n{proc.stdout}\n{proc.stderr}")
-    return Built(BOARD_C / "build" / "librb.so", BOARD_C / "build" / "rb-sim",
+    return Built(BOARD_C / "build-san" / "librb.so", BOARD_C / "build" / "rb-sim",
                  BOARD_C / "build-san" / "rb-sim")

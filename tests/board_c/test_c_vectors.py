@@ -159,3 +159,9 @@ def test_a_full_receive_ring_loses_a_line_counts_it_and_still_takes_the_kill():
     t.c.lib.rb_poll(t.c._board)
     assert t.c.motor == "tripped" and t.c.fault == "kill"   # ... is latched though lost
     assert t.c.rx_err >= 1 and t.c.last_rx_error in ("overrun", "truncated", "crc")
+
+
+@pytest.mark.skipif(not Path("/proc/self/maps").exists(), reason="Linux /proc only")
+def test_the_library_under_test_runs_with_the_undefined_behaviour_sanitizer():
+    lib()
+    assert "libubsan" in Path("/proc/self/maps").read_text()
