@@ -9,9 +9,9 @@ or starts a thread: time is the count of loop periods (``time_s``), so a board i
 deterministic for a given plant seed and input.
 
 What it implements (PROTOCOL.md section beside the code):
-- §4 every command gets exactly one reply; a command repeated with the sequence number of
-  the last answered one gets that reply again and is not acted on (§4.2). A repeated
-  number with a different command is taken as a new command (a new host session may
+- §4 every command gets exactly one reply; a command repeated with the sequence number and
+  the body text of the last answered one gets that reply again and is not acted on (§4.2).
+  A repeated number with another body is taken as a new command (a new host session may
   restart its numbering). Every ``err`` text passes through ``refusal_text`` (the one
   place that makes it legal in a frame body, §2).
 - §5 discovery from the rig's declaration (bench.rig.boards); atomic ``set``; ``save`` /
@@ -139,6 +139,7 @@ class SimBoard(BoardCommands):
         self.last_hb_s: float | None = None
         self._hb_ref_us = self.time_us        # µs clock at the last heartbeat (or at boot)
         self._last_cmd = None
+        self._last_body = ""
         self._last_reply = b""
         self._pending_si = 0.0
         self._event("boot", reason=reason)
@@ -147,7 +148,7 @@ class SimBoard(BoardCommands):
 
     def receive(self, data: bytes) -> None:
         """Host → board bytes; commands are answered and the kill byte acted on in order."""
-        for ev in self.codec.receive(data):
+        for ev, body in self.codec.receive_with_bodies(data):
             kind = type(ev)
             if kind is KillByte:
                 self._trip("kill")                      # §7.1: at once, mid-line too
@@ -158,7 +159,7 @@ class SimBoard(BoardCommands):
                 self.rx_err += 1
                 self._answer_bad(ev)
             else:
-                self._command(ev)
+                self._command(ev, body)
 
     def output(self, max_bytes: int | None = None) -> bytes:
         """Drain up to ``max_bytes`` (all by default) of the transmit buffer."""
@@ -344,8 +345,12 @@ class SimBoard(BoardCommands):
         self.tx.put(self._encode(m.Err(int(tokens[1]), reply_code, refusal_text(ev.detail))),
                     "reply")
 
-    def _command(self, cmd: m.Command) -> None:
-        if cmd == self._last_cmd:                     # §4.2: resend, do not act again
+    def _command(self, cmd: m.Command, body: str | None = None) -> None:
+        """Answer one command. ``body``: its text as sent; None (a caller with only the
+        parsed command) compares the canonical text instead."""
+        body = m.format_body(cmd) if body is None else body
+        if self._last_cmd is not None and cmd.seq == self._last_cmd.seq \
+                and body == self._last_body:        # §4.2: resend, do not act again
             self.tx.put(self._last_reply, "reply")
             return
         handler = getattr(self, "_on_" + cmd.VERB)
@@ -358,7 +363,7 @@ class SimBoard(BoardCommands):
             data = self._encode(reply)
         except LocalProtocolError:      # e.g. a `get` of many long names (§2: 200 bytes)
             data = self._encode(m.Err(cmd.seq, "bad_args", REPLY_TOO_LONG + "ask for fewer"))
-        self._last_cmd, self._last_reply = cmd, data
+        self._last_cmd, self._last_body, self._last_reply = cmd, body, data
         self.tx.put(data, "reply")
 
 

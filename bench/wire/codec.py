@@ -84,5 +84,24 @@ class BoardCodec(_Codec):
 
     _parse = staticmethod(parse_host_body)
 
+    def receive_with_bodies(self, data: bytes) -> list:
+        """As ``receive``, each event paired with the body text it was read from (None for
+        frame errors and the kill byte): a board knows a resend by its sequence number and
+        its body as sent (PROTOCOL.md §4.2), not by what the body means."""
+        out = []
+        for ev in self._frames.feed(data):
+            if type(ev) is Body:
+                try:
+                    out.append((self._parse(ev.text), ev.text))
+                    self.good_frames += 1
+                except RemoteProtocolError as exc:
+                    self.bad_frames += 1
+                    out.append((BadFrame(exc.code, exc.detail, ev.text[:32].encode()), None))
+            else:
+                if type(ev) is BadFrame:
+                    self.bad_frames += 1
+                out.append((ev, None))
+        return out
+
 
 __all__ = ["HostCodec", "BoardCodec", "BadFrame", "KillByte", "KILL"]

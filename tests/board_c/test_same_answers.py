@@ -171,3 +171,20 @@ def test_a_reply_too_long_for_one_line_is_refused():
     assert t.differences() == []
     replies = [x for x in t.lines("c") if x.startswith(("ok", "err"))]
     assert replies[0] == "err 5 bad_args" and replies[1].startswith("ok 6 tilt_kp=0.64 ")
+
+
+def test_a_resend_is_known_by_its_body_as_sent():
+    # PROTOCOL.md §4.2: the same sequence number and the same body is a resend (answered
+    # again, not acted on: after a trip it gets `err state`); the same number with another
+    # body, even one meaning the same values, is a new command
+    t = Twin("plant")
+    t.body("set 5 main_sp=1")
+    t.body("set 5 main_sp=1")                   # resend
+    t.send(b"\x18")                             # kill byte: tripped since set 5
+    t.body("set 5 main_sp=1")                   # resend after the trip: err state
+    t.body("set 5 main_sp=1.0")                 # same number, other text: a new command
+    t.body("set 5 main_sp=1.0")                 # and its resend
+    assert t.differences() == []
+    replies = [x for x in t.lines("c") if x.startswith(("ok", "err"))]
+    assert replies == ["ok 5 main_sp=1", "ok 5 main_sp=1", "err 5 state",
+                       "ok 5 main_sp=1", "ok 5 main_sp=1"]
