@@ -12,6 +12,7 @@ import ctypes as C
 import json
 import os
 import subprocess
+import threading
 import time
 from pathlib import Path
 
@@ -165,3 +166,70 @@ def test_a_full_receive_ring_loses_a_line_counts_it_and_still_takes_the_kill():
 def test_the_library_under_test_runs_with_the_undefined_behaviour_sanitizer():
     lib()
     assert "libubsan" in Path("/proc/self/maps").read_text()
+
+
+def _random_commands(rng, n: int) -> list[str]:
+    names = ["main_kp", "main_ki", "main_kd", "main_dfilt_s", "main_sp", "u_limit", "trip_y",
+             "nope", "y"]
+    nums = ["0", "1", "-1", "0.5", "1e3", "-2.5e-3", "999999", "1e-300", "abc", "12345678901"]
+    out = []
+    for seq in range(1, n + 1):
+        verb = rng.choice(["hello", "param", "signal", "loop", "get", "set", "save", "restore",
+                           "arm", "disarm", "clear", "mode", "stream", "kill", "status"])
+        args: list[str] = []
+        if verb == "hello":
+            args = [str(rng.choice(["1.0", "1.9", "2.0", "0.1"]))]
+        elif verb in ("param", "signal", "loop"):
+            args = [str(rng.integers(0, 12))]
+        elif verb == "get":
+            args = list(dict.fromkeys(rng.choice(names, rng.integers(1, 5))))
+        elif verb == "set":
+            keys = list(dict.fromkeys(rng.choice(names, rng.integers(1, 4))))
+            args = [f"{k}={rng.choice(nums)}" for k in keys]
+        elif verb == "mode":
+            kind = str(rng.choice(["off", "hold", "relay", "open", "inject"]))
+            fields = {"relay": ["loop=main", f"amp={rng.choice(nums)}", "hyst=0.01",
+                                f"bound={rng.choice(nums)}"],
+                      "open": ["loop=main", f"out={rng.choice(nums)}",
+                               f"time_s={rng.choice(['0.01', '1', '20'])}"],
+                      "inject": ["loop=main", f"at={rng.choice(['setpoint', 'output', 'body'])}",
+                                 f"amp={rng.choice(nums)}", "time_s=0.02"]}.get(kind, [])
+            args = [kind, *fields]
+        elif verb == "stream":
+            args = [f"rate_hz={rng.choice(['0', '50', '500', '1e-310', '-1', '7'])}"]
+        out.append(" ".join([verb, str(seq), *args]))
+    return out
+
+
+def test_the_sanitizer_build_answers_every_one_of_many_random_commands():
+    # every command gets exactly one reply (PROTOCOL.md §4), under AddressSanitizer and
+    # UndefinedBehaviorSanitizer, with heartbeats so that modes really run
+    rng = np.random.default_rng(23)
+    commands = _random_commands(rng, 3000)
+    data = bytearray()
+    for i, body in enumerate(commands):
+        if i % 20 == 0:
+            data += encode_frame("hb")
+        data += encode_frame(body)
+    env = dict(os.environ, ASAN_OPTIONS="exitcode=86", UBSAN_OPTIONS="halt_on_error=1:exitcode=87")
+    proc = subprocess.Popen([str(built().sim_sanitized), "--stdio"], stdin=subprocess.PIPE,
+                            stdout=subprocess.PIPE, stderr=subprocess.PIPE, env=env)
+    def feed():                                   # paced like a link, so no reply is
+        for i in range(0, len(data), 4096):        # dropped for want of a reader
+            proc.stdin.write(bytes(data[i:i + 4096]))
+            proc.stdin.flush()
+            time.sleep(0.005)
+        proc.stdin.close()
+
+    writer = threading.Thread(target=feed)
+    writer.start()
+    out = proc.stdout.read()
+    writer.join()
+    err = proc.stderr.read()
+    assert proc.wait(timeout=30) == 0, err.decode(errors="replace")
+    assert b"Sanitizer" not in err and b"runtime error" not in err
+    msgs = HostCodec().receive(out)
+    seqs = [x.seq for x in msgs if isinstance(x, (m.Ok, m.Err))]
+    assert sorted(seqs) == list(range(1, len(commands) + 1))
+    assert any(isinstance(x, m.Event) and x.kind == "mode" and x.get("mode") == "relay"
+               for x in msgs)

@@ -287,8 +287,11 @@ int main(int argc, char **argv)
             ssize_t n = read(h.in_fd, buf, sizeof buf);
             if (n > 0) {
                 ssize_t k;
-                for (k = 0; k < n; k++)
+                for (k = 0; k < n; k++) {     /* poll before the receive ring can fill */
                     rb_rx_byte(&board, buf[k]);
+                    if ((k & 127) == 127)
+                        rb_poll(&board);
+                }
                 rb_poll(&board);
             } else if (n == 0 || (errno != EAGAIN && errno != EINTR && errno != EIO)) {
                 if (use_stdio)
