@@ -153,7 +153,7 @@ class FrameDecoder:
         rest = buf[start:]
         at = rest.rfind(b"@")
         if at > 0:                    # reported as soon as the '@' that ends them arrives
-            out.extend(_bad_prefix(rest[:at]))
+            out.extend(self._bad_prefix(rest[:at]))
             rest = rest[at:]
         if len(rest) >= self.max_line:
             out.append(BadFrame("too_long", f"no LF within {self.max_line} bytes", rest[:32]))
@@ -161,15 +161,33 @@ class FrameDecoder:
             self._skipping = True
         self._buf = rest
 
+    def _segment_error(self, seg: bytes, is_frame: bool) -> BadFrame:
+        """The error of a run of bytes that ended without a good frame: a frame (from its
+        '@') cut short by the next '@', or junk; either one reaching ``max_line`` bytes is
+        ``too_long`` (the byte-by-byte rule of PROTOCOL.md §2)."""
+        if len(seg) >= self.max_line:
+            return BadFrame("too_long", f"no LF within {self.max_line} bytes", seg[:32])
+        if is_frame:
+            return BadFrame("truncated", "a new '@' arrived before the frame ended", seg[:32])
+        return BadFrame("junk", "bytes outside a frame", seg[:32])
+
+    def _bad_prefix(self, prefix: bytes) -> list[BadFrame]:
+        """What was before the last '@' of a line: junk before the first '@', then one error
+        per frame abandoned by the next '@'. The same however the bytes were split."""
+        parts = prefix.split(b"@")
+        out = [self._segment_error(parts[0], False)] if parts[0] else []
+        out += [self._segment_error(b"@" + p, True) for p in parts[1:]]
+        return out
+
     def _line(self, line: bytes, out: list) -> None:
         if not line or line == b"\r":
             return
         at = line.rfind(b"@")
         if at < 0:
-            out.append(BadFrame("junk", "bytes outside a frame", line[:32]))
+            out.append(self._segment_error(line, False))
             return
         if at > 0:
-            out.extend(_bad_prefix(line[:at]))
+            out.extend(self._bad_prefix(line[:at]))
             line = line[at:]
         good = _GOOD_LINE.fullmatch(line)
         if good is not None and len(line) < self.max_line:
@@ -181,19 +199,6 @@ class FrameDecoder:
             out.append(Body(parse_line(line)))
         except RemoteProtocolError as exc:
             out.append(BadFrame(exc.code, exc.detail, line[:32]))
-
-
-def _bad_prefix(prefix: bytes) -> list[BadFrame]:
-    """What was before the last '@' of a line: junk before the first '@', then one frame
-    cut short by each later '@' (PROTOCOL.md §2: an '@' abandons the frame in progress).
-    The errors are the same however the bytes were split into reads."""
-    out = []
-    if not prefix.startswith(b"@"):
-        out.append(BadFrame("junk", "bytes outside a frame", prefix[:32]))
-    for _ in range(prefix.count(b"@")):
-        out.append(BadFrame("truncated", "a new '@' arrived before the frame ended",
-                            prefix[:32]))
-    return out
 
 
 def _first_of(data: bytes, a: bytes, b: bytes) -> int:

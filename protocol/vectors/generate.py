@@ -129,6 +129,22 @@ BAD = [
     ("board", frame("wat 1"), "unknown_verb"),
 ]
 
+# Byte streams and what a receiver counts in them (PROTOCOL.md §2: errors are counted byte
+# by byte, the same however the bytes are split into reads). (raw bytes as written, the
+# frame errors in order, the bodies read, kill bytes seen)
+_ST = frame("status 7")
+STREAMS = [
+    ("xx@abc@" + _ST[1:], ["junk", "truncated"], ["status 7"], 0),
+    ("@status 7|" + "@" + _ST[1:], ["truncated"], ["status 7"], 0),
+    ("\r\n" + _ST.replace("\n", "\r\n"), [], ["status 7"], 0),
+    ("\r\r\n" + _ST, ["junk"], ["status 7"], 0),
+    ("x" * 250 + "\n" + _ST, ["too_long"], ["status 7"], 0),
+    ("@" + "y" * 250 + _ST, ["too_long"], ["status 7"], 0),
+    ("@sta\x18tus 7|0000\n" + _ST, ["junk"], ["status 7"], 1),
+    ("junk\x18" + _ST, [], ["status 7"], 1),
+    ("\n\n" + _ST + "AT\r\n", ["junk"], ["status 7"], 0),
+]
+
 _LOOP_DECL = {"index": 1, "name": "tilt", "measure": "tilt", "output": "cmd",
               "gains": ["tilt_kp", "tilt_ki", "tilt_kd"], "plant": "unstable",
               "relay": "integral"}
@@ -158,7 +174,10 @@ def main() -> None:
     out = {
         "about": "Test vectors for protocol/PROTOCOL.md version 1.0. 'frame' is the exact byte "
         "string (JSON string escapes: \\n = LF, \\r = CR, \\u0018 = kill byte). Good frames decode to 'meaning'; bad ones must be rejected "
-        "with 'error' (PROTOCOL.md §2-§3). direction = who sends it. 'loop_replies' are "
+        "with 'error' (PROTOCOL.md §2-§3). direction = who sends it. 'streams' are byte "
+        "streams ('bytes', same escapes) with the frame errors a receiver counts in them in "
+        "order, the bodies it reads and the kill bytes it sees, however the bytes are split "
+        "into reads. 'loop_replies' are "
         "board replies to `loop` (§5.4) that every codec reads; their fields declare the "
         "loop in 'declares' (optional fields absent: null) or must be refused with 'error'.",
         "crc_check": {"algorithm": "CRC-16/IBM-3740", "poly": "0x1021", "init": "0xFFFF",
@@ -166,6 +185,8 @@ def main() -> None:
                       "input": "123456789", "check": "0x29B1"},
         "good": [{"direction": d, "frame": frame(b), "meaning": m} for d, b, m in GOOD],
         "bad": [{"direction": d, "frame": raw, "error": e} for d, raw, e in BAD],
+        "streams": [{"bytes": raw, "errors": e, "bodies": b, "kills": k}
+                    for raw, e, b, k in STREAMS],
         "loop_replies": [
             {"frame": frame(b), **({"error": r} if isinstance(r, str) else {"declares": r})}
             for b, r in LOOP_REPLIES],

@@ -233,3 +233,24 @@ def test_the_sanitizer_build_answers_every_one_of_many_random_commands():
     assert sorted(seqs) == list(range(1, len(commands) + 1))
     assert any(isinstance(x, m.Event) and x.kind == "mode" and x.get("mode") == "relay"
                for x in msgs)
+
+
+@pytest.mark.parametrize("vec", VECTORS["streams"], ids=lambda v: v["bytes"][:24])
+def test_stream_vectors_whole_and_byte_by_byte(vec):
+    # PROTOCOL.md §2: the same errors however the bytes arrive; the bodies here are all
+    # `status 7`, whose reply shows that the frame after the damage was read
+    data = vec["bytes"].encode("latin-1")
+    for size in (len(data), 1, 5):
+        t = Twin("plant")
+        codes = []
+        for i in range(0, len(data), size):
+            before = t.c.rx_err
+            t.send(data[i:i + size])
+            if t.c.rx_err > before:
+                codes.append(t.c.last_rx_error)
+        assert t.c.rx_err == t.py.rx_err == len(vec["errors"]), size
+        assert codes[-1:] == vec["errors"][-1:], size
+        replies = [x for x in t.lines("c") if x.startswith("ok 7 ")]
+        assert len(replies) == len(vec["bodies"]), size
+        assert t.differences() == [], size
+        assert (t.c.fault == "kill") == (vec["kills"] > 0), size

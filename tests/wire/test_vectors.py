@@ -10,7 +10,7 @@ import pytest
 
 from bench.wire import BoardCodec, HostCodec, LoopInfo, as_dict
 from bench.wire.errors import RemoteProtocolError
-from bench.wire.frame import BadFrame
+from bench.wire.frame import BadFrame, Body, FrameDecoder, KillByte
 
 VECTORS = json.loads((Path(__file__).parents[2] / "protocol" / "vectors" / "frames.json").read_text())
 
@@ -118,3 +118,18 @@ def test_worked_example_frames_carry_real_crcs():
     frames = re.findall(r"@([^|@\n]*)\|([0-9A-F]{4})", session)
     assert len(frames) > 20 and any(b.startswith("ok 22 index=0 name=tilt") for b, _ in frames)
     assert [(b, c) for b, c in frames if crc16(b.encode()) != int(c, 16)] == []
+
+
+@pytest.mark.parametrize("vec", VECTORS["streams"], ids=lambda v: v["bytes"][:24])
+def test_stream_vector_counts_the_same_errors_however_it_is_split(vec):
+    # PROTOCOL.md §2: errors counted byte by byte; every split of the stream must give them
+    data = vec["bytes"].encode("latin-1")
+    splits = [len(data), 1, 2, 3, 7, 64]
+    for size in splits:
+        dec = FrameDecoder()
+        events = []
+        for i in range(0, len(data), size):
+            events += dec.feed(data[i:i + size])
+        assert [e.code for e in events if isinstance(e, BadFrame)] == vec["errors"], size
+        assert [e.text for e in events if isinstance(e, Body)] == vec["bodies"], size
+        assert sum(isinstance(e, KillByte) for e in events) == vec["kills"], size
