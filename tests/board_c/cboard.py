@@ -23,60 +23,65 @@ from cbuild import built
 
 U32 = 1 << 32
 RX_PIECE = 128
-_DBL_P = C.POINTER(C.c_double)
+class _Types:
+    """The ctypes mirror of rb_board.h for one build: ``rb_real`` is double or float."""
+
+    def __init__(self, real) -> None:
+        self.real = real
+        self.real_p = real_p = C.POINTER(real)
+
+        class Param(C.Structure):
+            _fields_ = [("name", C.c_char_p), ("unit", C.c_char_p), ("min", real),
+                        ("max", real), ("value", real_p), ("writable", C.c_uint8)]
+
+        class Signal(C.Structure):
+            _fields_ = [("name", C.c_char_p), ("unit", C.c_char_p), ("value", real_p)]
+
+        class Loop(C.Structure):
+            _fields_ = [("name", C.c_char_p), ("measure", C.c_char_p), ("output", C.c_char_p),
+                        ("kp", C.c_char_p), ("ki", C.c_char_p), ("kd", C.c_char_p),
+                        ("plant", C.c_int), ("relay", C.c_int), ("action", C.c_int),
+                        ("setpoint", C.c_char_p), ("setpoint_signal", C.c_char_p),
+                        ("limit", C.c_char_p), ("dfilt", C.c_char_p), ("rate", C.c_char_p)]
+
+        class Rig(C.Structure):
+            _fields_ = [("board", C.c_char_p), ("fw", C.c_char_p), ("rig", C.c_char_p),
+                        ("rate_hz", real), ("watchdog_ms", C.c_uint32),
+                        ("params", C.POINTER(Param)), ("n_params", C.c_uint8),
+                        ("signals", C.POINTER(Signal)), ("n_signals", C.c_uint8),
+                        ("loops", C.POINTER(Loop)), ("n_loops", C.c_uint8),
+                        ("command", C.c_char_p), ("simulated", C.c_uint8)]
+
+        self.WRITE = C.CFUNCTYPE(C.c_size_t, C.c_void_p, C.POINTER(C.c_uint8), C.c_size_t)
+        self.MICROS = C.CFUNCTYPE(C.c_uint32, C.c_void_p)
+        self.READ = C.CFUNCTYPE(None, C.c_void_p)
+        self.SET_OUT = C.CFUNCTYPE(None, C.c_void_p, real, C.c_int)
+        self.NV_SAVE = C.CFUNCTYPE(C.c_int, C.c_void_p, C.POINTER(C.c_uint8), C.c_size_t)
+        self.NV_LOAD = C.CFUNCTYPE(C.c_size_t, C.c_void_p, C.POINTER(C.c_uint8), C.c_size_t)
+        self.PUSH = C.CFUNCTYPE(None, C.c_void_p, real, real)
+
+        class Port(C.Structure):
+            _fields_ = [("ctx", C.c_void_p), ("write", self.WRITE), ("micros", self.MICROS),
+                        ("read_sensors", self.READ), ("set_output", self.SET_OUT),
+                        ("nv_save", self.NV_SAVE), ("nv_load", self.NV_LOAD),
+                        ("body_push", self.PUSH)]
+
+        self.Param, self.Signal, self.Loop, self.Rig, self.Port = Param, Signal, Loop, Rig, Port
 
 
-class _Param(C.Structure):
-    _fields_ = [("name", C.c_char_p), ("unit", C.c_char_p), ("min", C.c_double),
-                ("max", C.c_double), ("value", _DBL_P), ("writable", C.c_uint8)]
+_REALS = {"double": C.c_double, "float": C.c_float}
+_LIBS: dict[str, tuple] = {}
 
 
-class _Signal(C.Structure):
-    _fields_ = [("name", C.c_char_p), ("unit", C.c_char_p), ("value", _DBL_P)]
-
-
-class _Loop(C.Structure):
-    _fields_ = [("name", C.c_char_p), ("measure", C.c_char_p), ("output", C.c_char_p),
-                ("kp", C.c_char_p), ("ki", C.c_char_p), ("kd", C.c_char_p),
-                ("plant", C.c_int), ("relay", C.c_int), ("action", C.c_int),
-                ("setpoint", C.c_char_p), ("setpoint_signal", C.c_char_p),
-                ("limit", C.c_char_p), ("dfilt", C.c_char_p), ("rate", C.c_char_p)]
-
-
-class _Rig(C.Structure):
-    _fields_ = [("board", C.c_char_p), ("fw", C.c_char_p), ("rig", C.c_char_p),
-                ("rate_hz", C.c_double), ("watchdog_ms", C.c_uint32),
-                ("params", C.POINTER(_Param)), ("n_params", C.c_uint8),
-                ("signals", C.POINTER(_Signal)), ("n_signals", C.c_uint8),
-                ("loops", C.POINTER(_Loop)), ("n_loops", C.c_uint8),
-                ("command", C.c_char_p), ("simulated", C.c_uint8)]
-
-
-_WRITE = C.CFUNCTYPE(C.c_size_t, C.c_void_p, C.POINTER(C.c_uint8), C.c_size_t)
-_MICROS = C.CFUNCTYPE(C.c_uint32, C.c_void_p)
-_READ = C.CFUNCTYPE(None, C.c_void_p)
-_SET_OUT = C.CFUNCTYPE(None, C.c_void_p, C.c_double, C.c_int)
-_NV_SAVE = C.CFUNCTYPE(C.c_int, C.c_void_p, C.POINTER(C.c_uint8), C.c_size_t)
-_NV_LOAD = C.CFUNCTYPE(C.c_size_t, C.c_void_p, C.POINTER(C.c_uint8), C.c_size_t)
-_PUSH = C.CFUNCTYPE(None, C.c_void_p, C.c_double, C.c_double)
-
-
-class _Port(C.Structure):
-    _fields_ = [("ctx", C.c_void_p), ("write", _WRITE), ("micros", _MICROS),
-                ("read_sensors", _READ), ("set_output", _SET_OUT), ("nv_save", _NV_SAVE),
-                ("nv_load", _NV_LOAD), ("body_push", _PUSH)]
-
-
-_LIB = None
-
-
-def lib():
-    """The shared library with argument types set (built on first use)."""
-    global _LIB
-    if _LIB is None:
-        so = C.CDLL(str(built().shared_lib))
+def lib(real: str = "double"):
+    """The shared library of the ``real`` build with argument types set (built on first
+    use), and its ctypes types."""
+    if real not in _LIBS:
+        t = _Types(_REALS[real])
+        path = built().shared_lib if real == "double" else built().shared_lib_float
+        so = C.CDLL(str(path))
         so.rb_board_size.restype = C.c_size_t
-        so.rb_init.argtypes = [C.c_void_p, C.POINTER(_Rig), C.POINTER(_Port), C.c_int]
+        so.rb_init.argtypes = [C.c_void_p, C.POINTER(t.Rig), C.POINTER(t.Port), C.c_int]
         so.rb_init.restype = C.c_int
         so.rb_decl_text.argtypes = [C.c_void_p]
         so.rb_decl_text.restype = C.c_char_p
@@ -98,8 +103,8 @@ def lib():
         so.rb_format_number.restype = C.c_size_t
         so.rb_parse_number.argtypes = [C.c_char_p, C.c_size_t, C.POINTER(C.c_double)]
         so.rb_parse_number.restype = C.c_int
-        _LIB = so
-    return _LIB
+        _LIBS[real] = (so, t)
+    return _LIBS[real][0]
 
 
 def _b(text: str | None) -> bytes | None:
@@ -111,10 +116,13 @@ class CBoard:
 
     def __init__(self, rig: RigDef, plant, *, state_path: str | None = None,
                  tx_capacity_bytes: int = 4096, clock_start_us: int = 0,
-                 hand_tilt_deg: float = 0.0, board_name: str | None = None) -> None:
+                 hand_tilt_deg: float = 0.0, board_name: str | None = None,
+                 real: str = "double") -> None:
         if tx_capacity_bytes != 4096:
             raise ValueError("the C library's transmit buffer is RB_TX_SIZE (4096) bytes")
-        self.lib = lib()
+        self.lib = lib(real)
+        T = _LIBS[real][1]
+        size = C.sizeof(T.real)
         self.rig = rig
         self.plant = plant
         self.rate_hz = rig.rate_hz
@@ -128,35 +136,35 @@ class CBoard:
             self._nv = Path(state_path).read_bytes()
         self._keep = []
         P = rig.params
-        self._values = (C.c_double * len(P))()
-        self._params = (_Param * len(P))(*[
-            _Param(_b(p.name), _b(p.unit), p.minimum, p.maximum,
-                   C.cast(C.byref(self._values, i * 8), _DBL_P), int(p.writable))
+        self._values = (T.real * len(P))()
+        self._params = (T.Param * len(P))(*[
+            T.Param(_b(p.name), _b(p.unit), p.minimum, p.maximum,
+                    C.cast(C.byref(self._values, i * size), T.real_p), int(p.writable))
             for i, p in enumerate(P)])
         S = rig.signals
-        self._sig = (C.c_double * len(S))()
+        self._sig = (T.real * len(S))()
         self._sig_index = {s.name: i for i, s in enumerate(S)}
-        self._signals = (_Signal * len(S))(*[
-            _Signal(_b(s.name), _b(s.unit), C.cast(C.byref(self._sig, i * 8), _DBL_P))
+        self._signals = (T.Signal * len(S))(*[
+            T.Signal(_b(s.name), _b(s.unit), C.cast(C.byref(self._sig, i * size), T.real_p))
             for i, s in enumerate(S)])
         loops = []
         for lp in rig.loops:
-            loops.append(_Loop(
+            loops.append(T.Loop(
                 _b(lp.name), _b(lp.measure), _b(lp.output), *(_b(g) for g in lp.gains),
                 ("stable", "integrating", "unstable").index(lp.plant),
                 ("output", "integral").index(lp.relay),
                 1 if lp.direct else 0,              # LoopDef.direct: e = sp - y (reverse)
                 _b(lp.setpoint), _b(lp.setpoint_signal), _b(lp.limit), _b(lp.dfilt),
                 _b(lp.rate)))
-        self._loops = (_Loop * len(loops))(*loops)
-        self._rig = _Rig(_b(board_name or rig.board.replace("sim-", "c-")), b"1.0.0",
+        self._loops = (T.Loop * len(loops))(*loops)
+        self._rig = T.Rig(_b(board_name or rig.board.replace("sim-", "c-")), b"1.0.0",
                          _b(rig.rig), rig.rate_hz, int(rig.watchdog_ms), self._params,
                          len(P), self._signals, len(S), self._loops, len(loops),
                          _b(rig.command), 1)
-        self._port = _Port(None, _WRITE(self._write), _MICROS(self._micros),
-                           _READ(self._read_sensors), _SET_OUT(self._set_output),
-                           _NV_SAVE(self._nv_save), _NV_LOAD(self._nv_load),
-                           _PUSH(self._push) if hasattr(plant, "push") else _PUSH())
+        self._port = T.Port(None, T.WRITE(self._write), T.MICROS(self._micros),
+                            T.READ(self._read_sensors), T.SET_OUT(self._set_output),
+                            T.NV_SAVE(self._nv_save), T.NV_LOAD(self._nv_load),
+                            T.PUSH(self._push) if hasattr(plant, "push") else T.PUSH())
         self._board = C.create_string_buffer(self.lib.rb_board_size())
         self._out = bytearray()
         self._room = 0

@@ -21,6 +21,7 @@ BOARD_C = ROOT / "protocol" / "board-c"
 @dataclass(frozen=True)
 class Built:
     shared_lib: Path          # built with UndefinedBehaviorSanitizer: UB aborts the run
+    shared_lib_float: Path    # the same with -DRB_REAL=float
     sim: Path
     sim_sanitized: Path       # AddressSanitizer + UndefinedBehaviorSanitizer
 
@@ -38,5 +39,6 @@ def built() -> Built:
                           capture_output=True, text=True, timeout=300)
     if proc.returncode != 0:
         raise RuntimeError(f"make -C {BOARD_C} failed:\n{proc.stdout}\n{proc.stderr}")
-    return Built(BOARD_C / "build-san" / "librb.so", BOARD_C / "build" / "rb-sim",
+    return Built(BOARD_C / "build-san" / "librb.so", BOARD_C / "build-san" / "librb-float.so",
+                 BOARD_C / "build" / "rb-sim",
                  BOARD_C / "build-san" / "rb-sim")

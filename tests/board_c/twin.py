@@ -36,10 +36,11 @@ def normalise(line: bytes) -> str:
 
 class Twin:
     def __init__(self, rig: str = "plant", *, seed: int = 0, noise: float = 1.0,
-                 rate_hz: float = 500.0, **rig_kw) -> None:
+                 rate_hz: float = 500.0, real: str = "double", **rig_kw) -> None:
         rd = rig_def(rig, rate_hz=rate_hz, **rig_kw)
         self.py = SimBoard(rd, rd.make_plant(np.random.default_rng(seed), noise, rate_hz))
-        self.c = CBoard(rd, rd.make_plant(np.random.default_rng(seed), noise, rate_hz))
+        self.c = CBoard(rd, rd.make_plant(np.random.default_rng(seed), noise, rate_hz),
+                        real=real)
         self.out = {"py": bytearray(), "c": bytearray()}
         self.codec = HostCodec()
         self._next_hb = 0.0

@@ -372,7 +372,10 @@ void rb_set_mode(rb_board *b, const rb_mode_run *run)
     if (next.kind == RB_MODE_OPEN || next.kind == RB_MODE_INJECT) {
         /* a timed mode ends after ceil(time_s * rate - 1e-9 * rate) periods (firmware.py:
          * time_s >= end_s - 1e-9) */
-        double n = ceil(((double)next.time_s - 1e-9) * (double)b->rig->rate_hz);
+        double t = (double)next.time_s, n;
+        if (sizeof(rb_real) < sizeof(double))
+            t = rb_board_round(t);   /* a float's 0.2 is 0.200000003: 7 digits, as sent */
+        n = ceil((t - 1e-9) * (double)b->rig->rate_hz);
         next.end_periods = n < 1 ? 1 : (uint32_t)n;
     }
     if (next.kind == RB_MODE_INJECT && next.at == 2 && b->port.body_push != NULL)
