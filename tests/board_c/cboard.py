@@ -11,13 +11,13 @@ makes every sim:// board of a test a CBoard (monkeypatching bench.rig.simlink.ma
 from __future__ import annotations
 
 import ctypes as C
-import math
 from pathlib import Path
 from types import SimpleNamespace
 
 import numpy as np
 
 from bench.rig.boards import RigDef, rig_def
+from bench.rig.firmware import SimBoard
 
 from cbuild import built
 
@@ -211,14 +211,12 @@ class CBoard:
 
     # ------------------------------------------------------------------ SimBoard's interface
 
-    @property
-    def time_s(self) -> float:
-        return self._steps * self.dt_s
-
-    @property
-    def time_us(self) -> int:
-        n = self._steps - self._boot_step
-        return (self.clock_start_us + round(n * 1e6 / self.rate_hz)) % U32
+    # the board clock and the simulated hand are the simulation's, not the firmware's: the
+    # same code as SimBoard's (it reads only _steps, _boot_step, clock_start_us, rate_hz,
+    # plant and hand_tilt_deg)
+    time_s = SimBoard.time_s
+    time_us = SimBoard.time_us
+    _hold_body = SimBoard._hold_body
 
     @property
     def motor(self) -> str:
@@ -292,9 +290,7 @@ class CBoard:
 
     def step(self, *, firmware: bool = True) -> None:
         if self.rig.held_upright and self.motor in ("off", "armed"):
-            tr = self.plant.truth()
-            self.plant.set_state(tilt_rad=math.radians(self.hand_tilt_deg), rate_rad_s=0.0,
-                                 wheel_rad_s=tr["wheel_rad_s"] + tr["rate_rad_s"])
+            self._hold_body()
         self.plant.step(self._pending_si)
         self._steps += 1
         if firmware:
