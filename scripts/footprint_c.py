@@ -154,10 +154,11 @@ def compile_library(cc: str, out_dir: Path, opt: str = "-Os", defines=(),
     return [out_dir / (s.stem + ".o") for s in srcs]
 
 
-def code_size(objects: list[Path], config: str = "", opt: str = "") -> CodeSize:
-    tool = shutil.which("size")
+def code_size(objects: list[Path], config: str = "", opt: str = "", size_tool: str = "size"
+              ) -> CodeSize:
+    tool = shutil.which(size_tool)
     if tool is None:
-        raise RuntimeError("`size` (binutils) not found")
+        raise RuntimeError(f"`{size_tool}` (binutils) not found")
     total = CodeSize(config, opt, 0, 0, 0, 0)
     for obj in objects:
         code = 0
