@@ -100,7 +100,8 @@ def _load_sets(args, link) -> list[GainSet]:
         loop = args.loop or next((n for n, lp in link.loops.items() if lp.plant == "unstable"),
                                  next(iter(link.loops)))
         if loop not in link.loops:
-            raise CommandError(EXIT_USAGE, f"the board has no loop {loop!r}")
+            raise CommandError(EXIT_USAGE, f"the board has no loop {loop!r}; it has: "
+                                           f"{', '.join(link.loops) or 'none'}")
         sets.append(GainSet("current", link.get(*link.loops[loop].gains)))
     return sets
 

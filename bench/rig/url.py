@@ -55,11 +55,14 @@ class SimOptions:
     unplug_after_s: float | None = None
 
 
+_NUMBER_RE = re.compile(r"[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?\Z")
+
+
 def _number(option: str, text: str, lo: float = -math.inf, hi: float = math.inf) -> float:
-    try:
-        value = float(text)
-    except ValueError:
-        raise ValueError(f"sim:// option {option}={text!r} is not a number") from None
+    """A plain decimal number (not ``1_0``, ``nan`` or ``inf``, which float() would take)."""
+    if not _NUMBER_RE.match(text):
+        raise ValueError(f"sim:// option {option}={text!r} is not a number")
+    value = float(text)
     if not math.isfinite(value) or not lo <= value <= hi:
         raise ValueError(f"sim:// option {option}={text!r} must lie in {lo:g}..{hi:g}")
     return value

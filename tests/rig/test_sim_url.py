@@ -50,6 +50,9 @@ def test_documented_urls(url, want):
     ("sim://plant?num=1,2,3&den=1,1", "num"),
     ("sim://plant?delay=-0.1", "delay"),
     ("sim://balance?state=", "state"),
+    ("sim://plant?delay=1_0", "delay"),          # float() takes 1_0; a URL number may not
+    ("sim://balance?noise= 1", "noise"),
+    ("sim://plant?den=1,0x10", "den"),
 ])
 def test_bad_urls_name_the_option(url, named):
     with pytest.raises(ValueError, match=named):
