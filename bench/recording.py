@@ -357,11 +357,14 @@ def load_recording(path: str | Path) -> Recording:
     width = len(columns)
     if len(lines) > 1 and not lines[-1].endswith("\n"):
         raise _find_bad_line(path, lines, width)
-    try:
-        data = np.loadtxt(io.StringIO(text), delimiter=",", skiprows=1, ndmin=2,
-                          dtype=np.float64)
-    except ValueError:
-        raise _find_bad_line(path, lines, width) from None
+    if not any(ln.strip() for ln in lines[1:]):     # a header and no rows (yet)
+        data = np.empty((0, width))
+    else:
+        try:
+            data = np.loadtxt(io.StringIO(text), delimiter=",", skiprows=1, ndmin=2,
+                              dtype=np.float64)
+        except ValueError:
+            raise _find_bad_line(path, lines, width) from None
     if data.size == 0:
         data = np.empty((0, width))
     elif data.shape[1] != width:
