@@ -43,9 +43,11 @@ HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))
 sys.path.insert(0, str(HERE))
 
-import bench  # noqa: E402,F401  (registers sim://)
-from bench.wire import HostCodec  # noqa: E402
-from bench.wire import messages as m  # noqa: E402
+from rigbench.wire import HostCodec  # noqa: E402
+from rigbench.wire import messages as m  # noqa: E402
+from rigbench.link.urls import register_url_handlers  # noqa: E402
+
+register_url_handlers()  # sim:// for serial_for_url
 
 USB_CDC_LINES_S = 20_000.0   # docs/METHODS.md §7: 0.4–1.0 MB/s ≈ 20 000 lines of 48 bytes
 U32 = 1 << 32
@@ -62,8 +64,8 @@ def bench_codec(seconds_of_telemetry: float = 10.0, chunks=(64, 512, 4096),
                 repeats: int = 3) -> dict:
     """Decode the balance board's own output (2 kHz telemetry, status, events); frames per
     CPU second, best of ``repeats``."""
-    from bench.link.ingest import Ingest
-    from bench.rig.firmware import make_board
+    from rigbench.link.ingest import Ingest
+    from rigbench.rig.firmware.board import make_board
     board = make_board("balance", rate_hz=2000.0, seed=1)
     host = HostCodec()
     board.receive(host.encode(m.Heartbeat()) + host.command(m.Stream, 2000.0)[1])
@@ -100,9 +102,9 @@ def bench_codec(seconds_of_telemetry: float = 10.0, chunks=(64, 512, 4096),
 
 def _serve_child(url: str, wake_s: float, q, stop) -> None:
     """Child process: a simulated board on a pty, its µs clock = the monotonic clock."""
-    import bench.rig.pty as pty_mod
-    from bench.rig.simlink import SimLink
-    from bench.rig.url import parse_sim_url
+    import rigbench.rig.pty as pty_mod
+    from rigbench.rig.simlink import SimLink
+    from rigbench.rig.url import parse_sim_url
     pty_mod.PERIOD_WAKE_S = wake_s          # wake every 0.5 ms: no batching of frames
     options = parse_sim_url(url)
     sim = SimLink(options)
@@ -185,7 +187,7 @@ def _tap_ring(link) -> list:
 
 def bench_link_and_kill(seconds: float = 10.0, kills: int = 100) -> dict:
     """{'link': figures, 'kill': figures} from one 2 kHz board process."""
-    from bench.link import Link
+    from rigbench.link import Link
     with PtyBoard() as board:
         with Link.open(board.path) as link:
             seen = _tap_ring(link)
@@ -258,7 +260,7 @@ def bench_solve_ivp(sim_s: float = 2.0, rate: float = 500.0) -> dict:
     rtol 1e-12; solve_ivp (RK45) timed at the loosest tolerance that is as accurate."""
     from scipy.integrate import solve_ivp
 
-    from bench.rig.plants import make_balance
+    from rigbench.rig.plants.catalog import make_balance
     rig = make_balance("speed", np.random.default_rng(0), 0.0, rate)
     dt, n, off = 1.0 / rate, round(sim_s * rate), rig.params.balance_offset_rad
     lo, hi = rig.input_limits
@@ -344,8 +346,8 @@ def ui_figures(seconds: float = 10.0) -> dict:
 def bench_autotune(seeds: int = 1) -> dict:
     import bench_autotune as ba
 
-    from bench.experiments.relay import run_relay
-    from bench.link import Link
+    from rigbench.experiments.relay import run_relay
+    from rigbench.link import Link
     cases = [(name, (f"sim://plant?num={ba._url_coeffs(num)}&den={ba._url_coeffs(den)}"
                      f"&delay={delay:g}"), "main", (num, den, delay, ku, tu))
              for name, (num, den, delay, ku, tu) in ba.PLANTS.items()]
@@ -384,8 +386,8 @@ def bench_startup(repeats: int = 3) -> dict:
     import subprocess
     out = {}
     env = {**os.environ, "PYTHONPATH": str(HERE.parent)}
-    for key, cmd in (("cli", [sys.executable, "-m", "bench.cli", "kill", "--help"]),
-                     ("link_import", [sys.executable, "-c", "import bench.link"])):
+    for key, cmd in (("cli", [sys.executable, "-m", "rigbench.cli", "kill", "--help"]),
+                     ("link_import", [sys.executable, "-c", "import rigbench.link"])):
         walls, cpus = [], []
         for _ in range(repeats):
             r0 = resource.getrusage(resource.RUSAGE_CHILDREN)
@@ -471,7 +473,7 @@ def figures(res: dict) -> list[tuple]:
         st = res["startup"]
         add("startup", "`rigbench kill --help`: wall / CPU", f"{st['cli_wall_s']:.2f} / "
             f"{st['cli_cpu_s']:.2f}", "s")
-        add("startup", "`import bench.link`: wall / CPU", f"{st['link_import_wall_s']:.2f} / "
+        add("startup", "`import rigbench.link`: wall / CPU", f"{st['link_import_wall_s']:.2f} / "
             f"{st['link_import_cpu_s']:.2f}", "s")
     if "autotune" in res:
         for name, r in res["autotune"].items():

@@ -26,10 +26,12 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))   # run from a checkout
 
-import bench  # noqa: E402,F401  (registers sim://)
-from bench.experiments.proposals import propose  # noqa: E402
-from bench.experiments.relay import run_relay  # noqa: E402
-from bench.link import Link  # noqa: E402
+from rigbench.experiments.proposals import propose  # noqa: E402
+from rigbench.experiments.relay import run_relay  # noqa: E402
+from rigbench.link import Link  # noqa: E402
+from rigbench.link.urls import register_url_handlers  # noqa: E402
+
+register_url_handlers()  # sim:// for serial_for_url
 
 # name: (num, den, delay s, exact Ku, exact Tu s) — docs/METHODS.md §3 [calc]
 PLANTS = {

@@ -1,4 +1,4 @@
-"""Print how long bench.tuning.margins takes on loops with long dead times, the cases that
+"""Print how long rigbench.tuning.margins takes on loops with long dead times, the cases that
 once took seconds (a discrete loop with 250 samples of dead time; a continuous plant with
 dead time under a PID with a short derivative filter, whose |C| stays high far above the
 crossover). Not a test: the figures depend on the machine.
@@ -15,8 +15,8 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))   # run from a checkout
 
-from bench.tuning.loop import LoopController, PlantModel  # noqa: E402
-from bench.tuning.margins import margins  # noqa: E402
+from rigbench.tuning.loop import LoopController, PlantModel  # noqa: E402
+from rigbench.tuning.margins import margins  # noqa: E402
 
 FOPDT_1S = PlantModel([1.0], [1.0, 1.0], 1.0)
 CASES = [

@@ -19,7 +19,7 @@ import numpy as np
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))   # run from a checkout
 
-from bench.rig.plants import make_balance, make_plant, make_wheel  # noqa: E402
+from rigbench.rig.plants.catalog import make_balance, make_plant, make_wheel  # noqa: E402
 
 
 def run(plant, sim_s: float, command) -> tuple[float, float]:

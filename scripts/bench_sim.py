@@ -15,10 +15,12 @@ import time
 
 import serial
 
-import bench  # noqa: F401  (registers sim://)
-from bench.rig.firmware import make_board
-from bench.wire import HostCodec
-from bench.wire import messages as m
+from rigbench.rig.firmware.board import make_board
+from rigbench.wire import HostCodec
+from rigbench.wire import messages as m
+from rigbench.link.urls import register_url_handlers  # noqa: E402
+
+register_url_handlers()  # sim:// for serial_for_url
 
 
 def relay_run(rate_hz: float, seconds: float = 60.0) -> dict:

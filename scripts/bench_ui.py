@@ -22,14 +22,14 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from bench.ui.app import RigApp  # noqa: E402
-from bench.ui.live import LiveScreen  # noqa: E402
+from rigbench.ui.app import RigApp  # noqa: E402
+from rigbench.ui.screens.live import LiveScreen  # noqa: E402
 
 
 def start_pty_board(rate_hz: float) -> tuple[subprocess.Popen, str]:
     link = Path(tempfile.mkdtemp()) / "rig"
     proc = subprocess.Popen(
-        [sys.executable, "-m", "bench.cli", "sim", f"sim://balance?rate={rate_hz:g}",
+        [sys.executable, "-m", "rigbench.cli", "sim", f"sim://balance?rate={rate_hz:g}",
          "--link", str(link)], stdout=subprocess.PIPE, stderr=subprocess.PIPE,
         cwd=Path(__file__).resolve().parents[1])
     for _ in range(200):

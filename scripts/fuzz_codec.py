@@ -1,4 +1,4 @@
-"""Coverage-guided fuzzing of the line codec (bench/wire) with atheris, if it is installed.
+"""Coverage-guided fuzzing of the line codec (bench/rigbench/wire) with atheris, if it is installed.
 
 atheris is a fuzzing tool, not a rigbench dependency: ``pip install atheris`` to use this.
 Each input is cut into chunks (the cut points come from the input too) and fed to a
@@ -27,9 +27,9 @@ except ImportError:
           "not a rigbench dependency). Nothing was fuzzed.")
     sys.exit(0)
 
-with atheris.instrument_imports(include=["bench.wire"]):
-    from bench.wire import BoardCodec, HostCodec, LocalProtocolError
-    from bench.wire.frame import MAX_LINE, BadFrame, KillByte
+with atheris.instrument_imports(include=["rigbench.wire"]):
+    from rigbench.wire import BoardCodec, HostCodec, LocalProtocolError
+    from rigbench.wire.frame import MAX_LINE, BadFrame, KillByte
 
 
 def seed_corpus(folder: Path) -> int:

@@ -1,11 +1,11 @@
 """What a simulated board of a given rig declares in discovery (PROTOCOL.md §5), built from
-its declaration in bench/rig/boards.py without opening a port: for tests of profiles and
+its declaration in bench/rigbench/rig/firmware/boards.py without opening a port: for tests of profiles and
 sequences checked against a board."""
 
 from __future__ import annotations
 
-from bench.rig.boards import rig_def
-from bench.wire.describe import BoardInfo, ParamInfo
+from rigbench.rig.firmware.boards import rig_def
+from rigbench.wire.describe import BoardInfo, ParamInfo
 
 
 def declared(rig: str):

@@ -5,6 +5,11 @@ import threading
 
 import pytest
 
+from rigbench.link.urls import register_url_handlers
+
+# Tests open sim:// and replay:// ports with serial.serial_for_url directly too.
+register_url_handlers()
+
 
 @pytest.fixture
 def thread_errors(monkeypatch):
@@ -27,4 +32,4 @@ if __import__("os").environ.get("RIGBENCH_TEST_BOARD") == "c":
     def _c_board_engine(monkeypatch):
         from cboard import make_c_board
 
-        monkeypatch.setattr("bench.rig.simlink.make_board", make_c_board)
+        monkeypatch.setattr("rigbench.rig.simlink.make_board", make_c_board)

@@ -1,5 +1,5 @@
 """The rigbench command line: subcommands on the simulated board, exit codes, one-line
-errors. Exit codes and messages are checked against the table in bench/cli.py."""
+errors. Exit codes and messages are checked against the table in bench/rigbench/cli.py."""
 
 import json
 import subprocess
@@ -9,8 +9,8 @@ from types import SimpleNamespace
 
 import pytest
 
-from bench import cli
-from bench.recording import load_recording
+from rigbench import cli
+from rigbench.recordings.recording import load_recording
 
 ROOT = Path(__file__).parents[1]
 VSIM = "sim://balance?clock=virtual"
@@ -53,7 +53,7 @@ def test_missing_port_exits_3_with_one_line(port, capsys):
 
 
 def test_missing_port_in_a_real_process_has_no_traceback():
-    proc = subprocess.run([sys.executable, "-m", "bench.cli", "info", "--port", "/dev/ttyNOPE9"],
+    proc = subprocess.run([sys.executable, "-m", "rigbench.cli", "info", "--port", "/dev/ttyNOPE9"],
                           cwd=ROOT, capture_output=True, text=True, timeout=60)
     assert proc.returncode == 3
     assert proc.stderr.count("\n") == 1 and "rigbench ports" in proc.stderr
@@ -70,7 +70,7 @@ def test_usage_errors_exit_2_with_one_line(capsys):
 def test_plain_rigbench_runs_the_default_command(capsys, monkeypatch):
     import importlib
 
-    module = importlib.import_module(f"bench.commands.{cli.DEFAULT_COMMAND}")
+    module = importlib.import_module(f"rigbench.commands.{cli.DEFAULT_COMMAND}")
     seen = []
     monkeypatch.setattr(module, "run", lambda args: seen.append(args.port) or 0)
     code, _, err = run([], capsys)
@@ -78,7 +78,7 @@ def test_plain_rigbench_runs_the_default_command(capsys, monkeypatch):
 
 
 def test_board_refusal_exits_4(capsys, monkeypatch):
-    from bench.link import BoardRefused
+    from rigbench.link import BoardRefused
 
     def refuse(args):
         raise BoardRefused("range", "tilt_kp 0..10", "set")
@@ -166,7 +166,7 @@ def test_ports_lists_descriptions_or_says_none(capsys, monkeypatch):
 def test_options_before_any_command_go_to_the_default_command(capsys, monkeypatch):
     import importlib
 
-    module = importlib.import_module(f"bench.commands.{cli.DEFAULT_COMMAND}")
+    module = importlib.import_module(f"rigbench.commands.{cli.DEFAULT_COMMAND}")
     seen = []
     monkeypatch.setattr(module, "run", lambda args: seen.append(args.port) or 0)
     code, _, err = run(["--port", "sim://wheel"], capsys)

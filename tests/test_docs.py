@@ -47,7 +47,7 @@ def test_readme_examples_parse_with_the_real_command_line():
     # the argument parser (common practice, no source).
     import shlex
 
-    from bench.cli import build_parser
+    from rigbench.cli import build_parser
 
     parser = build_parser()
     examples = list(_documented_commands())

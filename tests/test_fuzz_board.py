@@ -15,11 +15,11 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from bench.rig.firmware import make_board
-from bench.rig.firmware_modes import MODE_KEYS
-from bench.wire import BoardCodec, HostCodec, LocalProtocolError
-from bench.wire import messages as m
-from bench.wire.codec import KILL
+from rigbench.rig.firmware.board import make_board
+from rigbench.rig.firmware.modes import MODE_KEYS
+from rigbench.wire import BoardCodec, HostCodec, LocalProtocolError
+from rigbench.wire import messages as m
+from rigbench.wire.codec import KILL
 
 # PROTOCOL.md §4.3: the codes a board may answer with.
 ERROR_CODES = {"unknown_verb", "bad_args", "unknown_name", "range", "readonly", "interlock",

@@ -1,4 +1,4 @@
-"""Fuzzing the recording reader (bench.recording.load_recording): recordings are files people
+"""Fuzzing the recording reader (rigbench.recordings.recording.load_recording): recordings are files people
 keep and pass on, and replay:// reads them as a board. A real recording (CSV and YAML
 sidecar made by Recorder on the simulated board) is damaged at random — bytes changed,
 lines dropped, doubled or cut, text spliced in — and read back: the reader returns a
@@ -12,9 +12,8 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-import bench  # noqa: F401  (sim:// handler)
-from bench.link import Link
-from bench.recording import Recorder, RecordingError, load_recording, sidecar_path
+from rigbench.link import Link
+from rigbench.recordings.recording import Recorder, RecordingError, load_recording, sidecar_path
 
 
 @pytest.fixture(scope="module")

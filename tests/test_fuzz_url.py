@@ -1,4 +1,4 @@
-"""Fuzzing the ``sim://`` URL option parser (bench/rig/url.py) beyond the alphabet of
+"""Fuzzing the ``sim://`` URL option parser (bench/rigbench/rig/url.py) beyond the alphabet of
 tests/rig/test_sim_url.py: any text at all, options built from the documented keys with
 good, edge and junk values, values that are not strings, and the same URLs opened through
 pyserial. The parser may only raise ValueError (pyserial turns it into SerialException);
@@ -13,8 +13,7 @@ import serial
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-import bench  # noqa: F401  (registers sim://)
-from bench.rig.url import SimOptions, format_sim_url, parse_sim_url
+from rigbench.rig.url import SimOptions, format_sim_url, parse_sim_url
 
 _RIGS = st.sampled_from(["balance", "wheel", "plant", "", "Balance", "plant/", "wheel:1"])
 

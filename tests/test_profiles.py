@@ -13,10 +13,11 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from bench import atomic
-from bench.profiles import (
-    Profile, Provenance, SchemaError, Setting, check_against_board, diff_profiles, dump_profile,
-    format_diff, load_profile, load_profile_text, same_value, save_profile,
+from rigbench.base import atomic
+from rigbench.profiles.diff import diff_profiles, format_diff, same_value
+from rigbench.profiles.model import (
+    Profile, Provenance, SchemaError, Setting, check_against_board, dump_profile, load_profile,
+    load_profile_text, save_profile,
 )
 
 sys.path.insert(0, str(Path(__file__).parent))

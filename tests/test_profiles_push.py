@@ -11,11 +11,10 @@ from pathlib import Path
 import crcmod.predefined
 import pytest
 
-import bench  # noqa: F401  (registers sim://)
-from bench.cli import main
-from bench.link import Link
-from bench.profile_push import PushRefused, image_crc, push_profile
-from bench.profiles import dump_profile, load_profile, profile_from_board, save_profile
+from rigbench.cli import main
+from rigbench.link import Link
+from rigbench.profiles.push import PushRefused, image_crc, push_profile
+from rigbench.profiles.model import dump_profile, load_profile, profile_from_board, save_profile
 
 ROOT = Path(__file__).parents[1]
 URL = "sim://balance?clock=virtual"

@@ -11,9 +11,9 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from bench.profiles import load_profile_text
-from bench.sequence_file import load_sequence_text
-from bench.yamlload import SchemaError, load_yaml, load_yaml_text
+from rigbench.profiles.model import load_profile_text
+from rigbench.sequences.file import load_sequence_text
+from rigbench.base.yamlload import SchemaError, load_yaml, load_yaml_text
 
 ROOT = Path(__file__).parents[1]
 # FUZZ_EXAMPLES=5000 for a longer search than the default run

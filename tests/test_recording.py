@@ -12,9 +12,8 @@ import numpy as np
 import pytest
 import yaml
 
-import bench  # noqa: F401  (sim:// handler)
-from bench.link import Link
-from bench.recording import Recorder, RecordingError, load_recording, sidecar_path
+from rigbench.link import Link
+from rigbench.recordings.recording import Recorder, RecordingError, load_recording, sidecar_path
 
 ROOT = Path(__file__).parents[1]
 
@@ -63,8 +62,8 @@ def test_refuses_to_overwrite_and_non_csv_names(tmp_path, sim_link):
 
 CHILD = r"""
 import sys, bench
-from bench.link import Link
-from bench.recording import Recorder
+from rigbench.link import Link
+from rigbench.recordings.recording import Recorder
 link = Link.open("sim://balance")
 link.stream(250)
 rec = Recorder(sys.argv[1], link, flush_s=0.2, poll_s=0.05).start()

@@ -5,14 +5,13 @@ refused, looping runs on without a restart, and the URL options are parsed stric
 import numpy as np
 import pytest
 
-import bench  # noqa: F401  (registers sim:// and replay://)
-from bench.cli import main
-from bench.handlers.protocol_replay import ReplayOptions, parse_replay_url
-from bench.handlers.replay_board import ReplayBoard
-from bench.link import BoardRefused, Link, LinkError
-from bench.recording import Recorder, load_recording
-from bench.wire import HostCodec
-from bench.wire import messages as m
+from rigbench.cli import main
+from rigbench.handlers.protocol_replay import ReplayOptions, parse_replay_url
+from rigbench.rig.replay import ReplayBoard
+from rigbench.link import BoardRefused, Link, LinkError
+from rigbench.recordings.recording import Recorder, load_recording
+from rigbench.wire import HostCodec
+from rigbench.wire import messages as m
 
 
 @pytest.fixture(scope="module")

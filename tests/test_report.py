@@ -12,10 +12,9 @@ import numpy as np
 import pytest
 import yaml
 
-import bench  # noqa: F401  (registers sim://)
-from bench.cli import main
-from bench.recording import load_recording
-from bench.report import PlotsUnavailable, make_report
+from rigbench.cli import main
+from rigbench.recordings.recording import load_recording
+from rigbench.reports.report import PlotsUnavailable, make_report
 
 pytest.importorskip("matplotlib")
 

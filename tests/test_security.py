@@ -19,14 +19,13 @@ from pathlib import Path
 import pytest
 import yaml
 
-import bench  # noqa: F401  (sim:// handler)
-from bench.cli import main
-from bench.link import Link
-from bench.profiles import load_profile, load_profile_text
-from bench.recording import RecordingError, load_recording
-from bench.sequence_file import load_sequence, load_sequence_text
-from bench.sequence_run import run_sequence
-from bench.yamlload import SchemaError, StrictLoader, load_yaml_text
+from rigbench.cli import main
+from rigbench.link import Link
+from rigbench.profiles.model import load_profile, load_profile_text
+from rigbench.recordings.recording import RecordingError, load_recording
+from rigbench.sequences.file import load_sequence, load_sequence_text
+from rigbench.sequences.run import run_sequence
+from rigbench.base.yamlload import SchemaError, StrictLoader, load_yaml_text
 
 ROOT = Path(__file__).parents[1]
 SOURCES = sorted((ROOT / "bench").rglob("*.py"))
@@ -122,7 +121,7 @@ PAYLOADS = [
     "!!python/object/new:subprocess.Popen [['touch', '{marker}']]",
     "!!python/name:os.system",
     "!!python/module:os",
-    "!!python/object:bench.profiles.Profile {{}}",
+    "!!python/object:rigbench.profiles.model.Profile {{}}",
     "!!binary aGVsbG8=",
 ]
 
@@ -317,7 +316,7 @@ def test_no_module_opens_a_server_socket():
 def test_rigbench_sim_pty_is_owner_only_and_no_process_listens(tmp_path):
     env = {**os.environ, "PYTHONPATH": str(ROOT)}
     # what `rigbench sim wheel` runs, without the start-up cost of the whole CLI
-    code = "from bench.rig.pty import run_sim_server; raise SystemExit(run_sim_server('wheel'))"
+    code = "from rigbench.rig.pty import run_sim_server; raise SystemExit(run_sim_server('wheel'))"
     server = subprocess.Popen([sys.executable, "-c", code], cwd=tmp_path,
                               stdout=subprocess.PIPE, stderr=subprocess.PIPE, text=True, env=env)
     try:

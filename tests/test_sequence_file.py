@@ -9,10 +9,10 @@ from pathlib import Path
 
 import pytest
 
-from bench.sequence_file import (
+from rigbench.sequences.file import (
     STEP_KINDS, SchemaError, expand, load_sequence, load_sequence_text, project_folder,
 )
-from bench.sequence_steps import (
+from rigbench.sequences.steps import (
     METRICS, CheckStep, describe_step, Guards, PushStep, RecordStep, RelayStep, RepeatStep, SetStep, SweepStep,
     WaitStep,
 )

@@ -7,8 +7,8 @@ from pathlib import Path
 
 import pytest
 
-from bench.sequence_check import check_sequence_against_board
-from bench.sequence_file import load_sequence, load_sequence_text
+from rigbench.sequences.check import check_sequence_against_board
+from rigbench.sequences.file import load_sequence, load_sequence_text
 
 sys.path.insert(0, str(Path(__file__).parent))
 from board_decl import declared  # noqa: E402

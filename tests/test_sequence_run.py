@@ -10,13 +10,12 @@ import numpy as np
 import pytest
 import yaml
 
-import bench  # noqa: F401  (registers sim://)
-from bench.cli import main
-from bench.link import Link
-from bench.recording import load_recording
-from bench.sequence_file import load_sequence
-from bench.sequence_run import run_sequence
-from bench.tuning.relay import rising_switches
+from rigbench.cli import main
+from rigbench.link import Link
+from rigbench.recordings.recording import load_recording
+from rigbench.sequences.file import load_sequence
+from rigbench.sequences.run import run_sequence
+from rigbench.tuning.relay import rising_switches
 
 ROOT = Path(__file__).parents[1]
 DEMO = ROOT / "sequences" / "demo-balance-check.yaml"

@@ -7,9 +7,8 @@ from pathlib import Path
 
 import yaml
 
-import bench  # noqa: F401  (registers sim://)
-from bench.cli import main
-from bench.rig.wheel import WheelParams
+from rigbench.cli import main
+from rigbench.rig.plants.wheel import WheelParams
 
 DEMO = Path(__file__).parents[1] / "sequences" / "demo-wheel-relay.yaml"
 

@@ -1,11 +1,11 @@
 """The C board library (protocol/board-c) driven from Python through ctypes, with the same
-interface as bench.rig.firmware.SimBoard: ``receive``, ``step``, ``output``, ``reboot``,
+interface as rigbench.rig.firmware.board.SimBoard: ``receive``, ``step``, ``output``, ``reboot``,
 ``time_s``/``time_us``, ``motor``, ``fault``.
 
 The firmware logic is the C library's; the rig's plant and instruments are the Python
-simulation's (bench.rig.boards), so a ``CBoard`` and a ``SimBoard`` made with the same rig,
+simulation's (rigbench.rig.firmware.boards), so a ``CBoard`` and a ``SimBoard`` made with the same rig,
 seed and inputs see the same plant and can be compared byte for byte. ``use_c_engine``
-makes every sim:// board of a test a CBoard (monkeypatching bench.rig.simlink.make_board).
+makes every sim:// board of a test a CBoard (monkeypatching rigbench.rig.simlink.make_board).
 """
 
 from __future__ import annotations
@@ -16,8 +16,8 @@ from types import SimpleNamespace
 
 import numpy as np
 
-from bench.rig.boards import RigDef, rig_def
-from bench.rig.firmware import SimBoard
+from rigbench.rig.firmware.boards import RigDef, rig_def
+from rigbench.rig.firmware.board import SimBoard
 
 from cbuild import built
 
@@ -300,7 +300,7 @@ class CBoard:
 def make_c_board(rig: str = "balance", *, drive: str = "speed", num=(1.0,), den=(1.0, 1.0),
                  delay_s: float = 0.0, seed: int = 0, noise: float = 1.0,
                  rate_hz: float = 500.0, state_path: str | None = None, **board_kw) -> CBoard:
-    """``bench.rig.firmware.make_board`` with the C library as the firmware."""
+    """``rigbench.rig.firmware.board.make_board`` with the C library as the firmware."""
     rd = rig_def(rig, drive=drive, num=num, den=den, delay_s=delay_s, rate_hz=rate_hz)
     plant = rd.make_plant(np.random.default_rng(seed), noise, rate_hz)
     return CBoard(rd, plant, state_path=state_path, **board_kw)

@@ -3,7 +3,7 @@ proves a run with RIGBENCH_TEST_BOARD=c really talks to the C board library."""
 
 import os
 
-from bench.link.link import Link
+from rigbench.link.link import Link
 
 
 def test_sim_boards_of_this_run_are_the_c_library():

@@ -23,10 +23,10 @@ import pytest
 import serial
 import yaml
 
-from bench.link.link import Link
-from bench.rig.boards import rig_def
-from bench.wire import HostCodec
-from bench.wire import messages as m
+from rigbench.link.link import Link
+from rigbench.rig.firmware.boards import rig_def
+from rigbench.wire import HostCodec
+from rigbench.wire import messages as m
 from cbuild import built
 
 pytestmark = pytest.mark.skipif(not hasattr(os, "openpty"), reason="needs POSIX ptys")
@@ -46,7 +46,7 @@ class Board:
                 cmd += ["--state", str(state)]
         else:
             url = PY_URL + (f"&state={state}" if state is not None else "")
-            cmd = [sys.executable, "-m", "bench", "sim", url]
+            cmd = [sys.executable, "-m", "rigbench", "sim", url]
         env = dict(os.environ, ASAN_OPTIONS="abort_on_error=0:exitcode=86",
                    UBSAN_OPTIONS="print_stacktrace=1:halt_on_error=1:exitcode=87")
         self.proc = subprocess.Popen(cmd, stdout=subprocess.PIPE, stderr=subprocess.PIPE,
@@ -82,7 +82,7 @@ def board(kind):
 
 
 def rigbench(*args: str, timeout: float = 120.0) -> subprocess.CompletedProcess:
-    return subprocess.run([sys.executable, "-m", "bench", *args], capture_output=True,
+    return subprocess.run([sys.executable, "-m", "rigbench", *args], capture_output=True,
                           text=True, timeout=timeout)
 
 

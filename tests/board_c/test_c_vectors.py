@@ -22,11 +22,11 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from bench.wire import HostCodec
-from bench.wire import messages as m
-from bench.wire.frame import encode_frame
-from bench.wire.messages import format_number, parse_number
-from bench.wire.errors import RemoteProtocolError
+from rigbench.wire import HostCodec
+from rigbench.wire import messages as m
+from rigbench.wire.frame import encode_frame
+from rigbench.wire.messages import format_number, parse_number
+from rigbench.wire.errors import RemoteProtocolError
 from cboard import lib
 from cbuild import built
 from twin import Twin, normalise

@@ -12,7 +12,7 @@ import pytest
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from bench.wire.frame import encode_frame
+from rigbench.wire.frame import encode_frame
 
 from twin import Twin
 

@@ -13,10 +13,10 @@ from __future__ import annotations
 
 import numpy as np
 
-from bench.rig.boards import rig_def
-from bench.rig.firmware import SimBoard
-from bench.wire import HostCodec
-from bench.wire.frame import encode_frame
+from rigbench.rig.firmware.boards import rig_def
+from rigbench.rig.firmware.board import SimBoard
+from rigbench.wire import HostCodec
+from rigbench.wire.frame import encode_frame
 
 from cboard import CBoard
 

@@ -3,8 +3,7 @@ per test, with the board object at hand (``link.port.board``) for the true plant
 
 import pytest
 
-import bench  # noqa: F401  (registers sim://)
-from bench.link import Link
+from rigbench.link import Link
 
 
 def _opener():

@@ -6,10 +6,10 @@ import math
 import numpy as np
 import pytest
 
-from bench.experiments.proposals import propose
-from bench.experiments.relay import run_relay
-from bench.experiments.sweep import gain_set, run_sweep
-from bench.tuning.rules import ULTIMATE_RULES
+from rigbench.experiments.proposals import propose
+from rigbench.experiments.relay import run_relay
+from rigbench.experiments.sweep import gain_set, run_sweep
+from rigbench.tuning.rules import ULTIMATE_RULES
 
 _cache = {}
 

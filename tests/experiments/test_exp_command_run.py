@@ -7,9 +7,9 @@ import sys
 
 import pytest
 
-from bench.cli import CommandError
-from bench.commands._progress import experiment_run
-from bench.experiments.runner import ArmRefused, Progress
+from rigbench.commands._common import CommandError
+from rigbench.commands._progress import experiment_run
+from rigbench.experiments.runner import ArmRefused, Progress
 
 
 def _terminal(monkeypatch):

@@ -5,7 +5,7 @@ from pathlib import Path
 
 import pytest
 
-from bench.cli import main
+from rigbench.cli import main
 
 ROOT = Path(__file__).resolve().parents[2]
 PLANT = "sim://plant?num=1&den=1,2,1&delay=0.5&clock=virtual&seed=1"
@@ -89,8 +89,8 @@ def test_sweep_fall_exits_5_and_bad_gains_exit_2(capsys):
 def test_progress_bar_draws_only_on_a_terminal():
     import io
 
-    from bench.commands._progress import ProgressBar
-    from bench.experiments.runner import Progress
+    from rigbench.commands._progress import ProgressBar
+    from rigbench.experiments.runner import Progress
 
     p = Progress("relay tilt", "relay", 3.5, 60.0, 0.5, cycles=2, cycles_needed=4,
                  estimate={"period_s": 0.24, "amplitude": 0.35})

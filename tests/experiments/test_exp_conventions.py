@@ -1,4 +1,4 @@
-"""What the host reads about a loop (bench.experiments.conventions): the loop's declared
+"""What the host reads about a loop (rigbench.experiments.conventions): the loop's declared
 optional fields (PROTOCOL.md §5.4) when the board sends them, even when the names follow
 none of the conventions; the naming conventions only for what it leaves out; a loud error
 when a declaration names something the board lacks."""
@@ -10,10 +10,10 @@ from types import SimpleNamespace
 
 import pytest
 
-from bench.experiments.balancefit import lqr_board_gains
-from bench.experiments.conventions import BoardView, loop_signals
-from bench.tuning.balance import BalanceModel
-from bench.wire.describe import LOOP_OPTIONAL, LoopInfo, ParamInfo, SignalInfo
+from rigbench.experiments.balancefit import lqr_board_gains
+from rigbench.experiments.conventions import BoardView, loop_signals
+from rigbench.tuning.balance import BalanceModel
+from rigbench.wire.describe import LOOP_OPTIONAL, LoopInfo, ParamInfo, SignalInfo
 
 sys.path.insert(0, str(Path(__file__).parents[1]))
 from board_decl import declared  # noqa: E402

@@ -6,8 +6,8 @@ import control
 import numpy as np
 import pytest
 
-from bench.experiments.pointmodel import fit_process_model
-from bench.tuning.point import FrequencyPoint
+from rigbench.experiments.pointmodel import fit_process_model
+from rigbench.tuning.point import FrequencyPoint
 
 
 def _points(num, den, delay, omegas):

@@ -1,4 +1,4 @@
-"""Which loop the host offers first (bench.experiments.conventions.primary_loop): the
+"""Which loop the host offers first (rigbench.experiments.conventions.primary_loop): the
 innermost loop of a cascade, from the loops' declarations (PROTOCOL.md §5.4 ``setpoint=``)
 or the naming conventions when a board leaves them out.
 
@@ -8,8 +8,8 @@ from memory)."""
 
 from dataclasses import replace
 
-from bench.experiments.conventions import primary_loop
-from bench.wire.describe import LoopInfo
+from rigbench.experiments.conventions import primary_loop
+from rigbench.wire.describe import LoopInfo
 
 
 def _units(link) -> dict:
@@ -90,7 +90,7 @@ def test_no_loops_and_a_declaration_loop_fall_back():
 
 
 def test_tune_without_a_loop_names_the_inner_loop_and_runs_nothing(capsys):
-    from bench.cli import main
+    from rigbench.cli import main
 
     # two loops: a relay test moves the motor, so tune asks rather than picks
     assert main(["tune", "--port", "sim://balance?clock=virtual"]) == 2

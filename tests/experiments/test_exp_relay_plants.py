@@ -8,8 +8,8 @@ import control
 import numpy as np
 import pytest
 
-from bench.experiments.proposals import propose
-from bench.experiments.relay import run_relay
+from rigbench.experiments.proposals import propose
+from rigbench.experiments.relay import run_relay
 
 # docs/METHODS.md §3 plants: url num, den, dead time; exact Ku, Tu [calc, python-control];
 # describing-function errors of an ideal relay on these plants, period and Ku [calc]

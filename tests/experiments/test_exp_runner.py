@@ -5,8 +5,8 @@ import threading
 
 import pytest
 
-from bench.experiments.relay import run_relay
-from bench.experiments.runner import ArmRefused, Experiment, Guards, guard_limits
+from rigbench.experiments.relay import run_relay
+from rigbench.experiments.runner import ArmRefused, Experiment, Guards, guard_limits
 
 
 def _motor_output_off(link):
@@ -127,7 +127,7 @@ def test_stale_telemetry_kills(open_sim):
 def test_guard_limits_follow_the_trip_parameters(open_sim):
     link = open_sim("sim://balance")
     # PROTOCOL.md §5.2: trip_<signal> parameters name the limits; the board's are 20° and
-    # 45 rev/s (bench.rig.boards), the guards half of that here
+    # 45 rev/s (rigbench.rig.firmware.boards), the guards half of that here
     lim = guard_limits(link, Guards(trip_fraction=0.5, limits={"rate": 300.0}))
     assert lim == {"tilt": 10.0, "wheel": 22.5, "rate": 300.0}
     with pytest.raises(ValueError):
@@ -141,7 +141,7 @@ def test_results_dir_records_csv_and_sidecar(open_sim, tmp_path):
         exp.wait(1.0)
     res = exp.result
     assert res.stopped_by == "done" and res.recording == tmp_path / "hold-a-while.csv"
-    from bench.recording import load_recording
+    from rigbench.recordings.recording import load_recording
     rec = load_recording(res.recording)  # DESIGN.md Decision 5: CSV + YAML sidecar
     assert len(rec) == pytest.approx(len(res.t_s), abs=5)
     assert link.status().motor == "off"

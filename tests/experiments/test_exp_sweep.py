@@ -4,7 +4,7 @@ import control
 import numpy as np
 import pytest
 
-from bench.experiments.sweep import GainSet, gain_set, run_sweep
+from rigbench.experiments.sweep import GainSet, gain_set, run_sweep
 
 
 def test_setpoint_step_iae_matches_python_control(open_sim):

@@ -31,13 +31,12 @@ import serial
 from fault_ports import MODEM_PROBE, ShapedPort
 from fault_truth import BoardTap, Outcome, StateLog, compare, note_recording
 
-import bench  # noqa: F401  (registers sim://)
-from bench.experiments.runner import Experiment, Guards
-from bench.link import BoardRefused, Link, LinkError, LinkLost, LinkTimeout
-from bench.recording import Recorder, load_recording
-from bench.rig.pty import serve_pty
-from bench.rig.simlink import SimLink
-from bench.rig.url import parse_sim_url
+from rigbench.experiments.runner import Experiment, Guards
+from rigbench.link import BoardRefused, Link, LinkError, LinkLost, LinkTimeout
+from rigbench.recordings.recording import Recorder, load_recording
+from rigbench.rig.pty import serve_pty
+from rigbench.rig.simlink import SimLink
+from rigbench.rig.url import parse_sim_url
 
 ROOT = Path(__file__).resolve().parents[2]
 SIM = "sim://balance?clock=virtual&seed={seed}"
@@ -349,7 +348,7 @@ def heartbeat_every(period_s: float, *, seconds: float = 3.0, seed: int = 19) ->
 
 _HOST = """
 import sys, time
-from bench.link import Link
+from rigbench.link import Link
 link = Link.open(sys.argv[1])
 link.arm()
 link.mode("hold")

@@ -13,11 +13,11 @@ from pathlib import Path
 
 import numpy as np
 
-from bench.link import BoardStatus, Link
-from bench.link.timebase import U32
-from bench.recording import load_recording
-from bench.wire import HostCodec
-from bench.wire import messages as m
+from rigbench.link import BoardStatus, Link
+from rigbench.link.timebase import U32
+from rigbench.recordings.recording import load_recording
+from rigbench.wire import HostCodec
+from rigbench.wire import messages as m
 
 
 class BoardTap:

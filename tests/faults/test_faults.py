@@ -14,11 +14,11 @@ from fault_scenarios import (
 )
 from fault_truth import CRC_PASS, BoardTap, compare, wrong_allowed
 
-from bench.link import Link
-from bench.rig.simlink import SimLink
-from bench.rig.url import parse_sim_url
-from bench.wire import HostCodec
-from bench.wire import messages as m
+from rigbench.link import Link
+from rigbench.rig.simlink import SimLink
+from rigbench.rig.url import parse_sim_url
+from rigbench.wire import HostCodec
+from rigbench.wire import messages as m
 
 
 def _never_wrong_and_off(out):

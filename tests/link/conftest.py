@@ -5,7 +5,7 @@ exception)."""
 import pytest
 from fake_board import FakeBoard, FakePort
 
-from bench.link import Link
+from rigbench.link import Link
 
 
 @pytest.fixture

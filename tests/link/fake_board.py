@@ -25,11 +25,11 @@ import tty
 
 import serial
 
-from bench.wire.codec import BoardCodec
-from bench.wire.crc import crc16
-from bench.wire.describe import BoardInfo, LoopInfo, ParamInfo, SignalInfo, format_value
-from bench.wire.frame import BadFrame, KillByte
-from bench.wire.messages import (
+from rigbench.wire.codec import BoardCodec
+from rigbench.wire.crc import crc16
+from rigbench.wire.describe import BoardInfo, LoopInfo, ParamInfo, SignalInfo, format_value
+from rigbench.wire.frame import BadFrame, KillByte
+from rigbench.wire.messages import (
     Arm, Clear, DescribeLoop, DescribeParam, DescribeSignal, Disarm, Err, Event, Get,
     Heartbeat, Hello, Kill, Mode, Ok, Restore, Save, Set, Status, StatusRequest, Stream,
     Telemetry,

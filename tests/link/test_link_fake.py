@@ -9,11 +9,11 @@ import threading
 import pytest
 from fake_board import LOOPS, PARAMS, SIGNALS, FakeBoard, FakePort
 
-from bench.link import (
+from rigbench.link import (
     BoardRefused, IncompatibleBoard, Link, LinkLost, LinkTimeout,
 )
-from bench.wire import KILL
-from bench.wire.messages import Arm, Get, Set
+from rigbench.wire import KILL
+from rigbench.wire.messages import Arm, Get, Set
 
 
 def frames_of(port, verb):

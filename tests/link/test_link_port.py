@@ -9,8 +9,8 @@ import pytest
 import serial
 from fake_board import PtyBoard, SocketBoard
 
-from bench.link import Link, LinkError, LinkLost
-from bench.link.errors import open_error
+from rigbench.link import Link, LinkError, LinkLost
+from rigbench.link.errors import open_error
 
 
 @pytest.fixture

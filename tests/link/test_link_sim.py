@@ -4,8 +4,7 @@ PROTOCOL.md (§5 discovery, §6 telemetry and status, §7 kill and watchdog)."""
 
 import pytest
 
-import bench  # noqa: F401  (registers the sim:// handler)
-from bench.link import Link, LinkLost
+from rigbench.link import Link, LinkLost
 
 SIM = "sim://balance?clock=virtual"
 

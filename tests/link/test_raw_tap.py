@@ -1,4 +1,4 @@
-"""The link's raw tap (bench/link/rawtap.py) gives whole lines however the port cuts the
+"""The link's raw tap (bench/rigbench/link/rawtap.py) gives whole lines however the port cuts the
 bytes: the console never shows a frame start and its rest as two lines. Over-long lines are
 cut at 200 bytes and marked; a kill byte ends an unfinished line.
 
@@ -9,8 +9,8 @@ import itertools
 
 from fake_board import FakePort
 
-from bench.link import Link
-from bench.link.rawtap import RawTap
+from rigbench.link import Link
+from rigbench.link.rawtap import RawTap
 
 
 class ChoppyPort(FakePort):

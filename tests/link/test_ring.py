@@ -3,7 +3,7 @@
 import numpy as np
 import pytest
 
-from bench.link.ring import CursorLog, TelemetryRing
+from rigbench.link.ring import CursorLog, TelemetryRing
 
 
 def rows(start, n, nsig=2):

@@ -6,7 +6,7 @@ microsecond clock and frame counter, wrapping): common practice, no source.
 
 import pytest
 
-from bench.link.timebase import U32, BoardClock, ClockMap, FrameCounter
+from rigbench.link.timebase import U32, BoardClock, ClockMap, FrameCounter
 
 
 def test_board_clock_unwraps_across_the_32_bit_wrap():

@@ -9,8 +9,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from bench.wire import HostCodec
-from bench.wire import messages as m
+from rigbench.wire import HostCodec
+from rigbench.wire import messages as m
 
 
 class Host:

@@ -11,9 +11,9 @@ import control as ct
 import numpy as np
 import pytest
 
-from bench.rig.firmware import make_board
-from bench.rig.firmware_control import Pid
-from bench.wire import messages as m
+from rigbench.rig.firmware.board import make_board
+from rigbench.rig.firmware.control import Pid
+from rigbench.wire import messages as m
 
 sys.path.insert(0, str(Path(__file__).parent))
 from sim_host import Host  # noqa: E402

@@ -10,15 +10,15 @@ from pathlib import Path
 import crcmod.predefined
 import pytest
 
-from bench.rig.firmware import make_board
-from bench.wire import messages as m
-from bench.wire.describe import BoardInfo, LoopInfo, ParamInfo, SignalInfo
+from rigbench.rig.firmware.board import make_board
+from rigbench.wire import messages as m
+from rigbench.wire.describe import BoardInfo, LoopInfo, ParamInfo, SignalInfo
 
 sys.path.insert(0, str(Path(__file__).parent))
 from sim_host import Host  # noqa: E402
 
 # CRC-16/IBM-3740 ("crc-ccitt-false" in crcmod): G. Cook, Catalogue of parametrised CRC
-# algorithms; independent of bench.wire.crc.
+# algorithms; independent of rigbench.wire.crc.
 CRC = crcmod.predefined.mkCrcFun("crc-ccitt-false")
 
 
@@ -235,8 +235,8 @@ def test_loop_replies_declare_the_optional_fields_and_fit_a_line():
     # the longest sequence number) is the figure the spec quotes.
     import re
 
-    from bench.rig.boards import rig_def
-    from bench.wire import HostCodec
+    from rigbench.rig.firmware.boards import rig_def
+    from rigbench.wire import HostCodec
 
     longest = 0
     for rig, kw in (("balance", {}), ("balance", {"drive": "torque"}), ("wheel", {}),
@@ -258,8 +258,8 @@ def test_loop_replies_declare_the_optional_fields_and_fit_a_line():
 
 def test_declared_action_is_the_sign_the_firmware_computes():
     # PROTOCOL.md §5.4: direct: e = measure − setpoint; reverse: e = setpoint − measure.
-    # Checked against the error the board's own PID forms (bench.rig.firmware_control).
-    from bench.rig.firmware_control import LoopEngine
+    # Checked against the error the board's own PID forms (rigbench.rig.firmware.control).
+    from rigbench.rig.firmware.control import LoopEngine
 
     for rig, kw in (("balance", {}), ("wheel", {}), ("plant", {})):
         board = make_board(rig, **kw)

@@ -1,6 +1,6 @@
 """Safety behaviour of the simulated board (PROTOCOL.md §7): watchdog, kill byte, the
 motor-off interlock and its reasons, clear never restarts, trip limits, relay bound, and
-the state table of bench.wire.states as seen from the host.
+the state table of rigbench.wire.states as seen from the host.
 
 The torque-drive balance rig is used where "motor off" must be seen physically: with a
 torque drive, a zero command is zero motor torque (plant truth).
@@ -11,9 +11,9 @@ from pathlib import Path
 
 import pytest
 
-from bench.rig.firmware import make_board
-from bench.wire import messages as m
-from bench.wire.crc import crc16
+from rigbench.rig.firmware.board import make_board
+from rigbench.wire import messages as m
+from rigbench.wire.crc import crc16
 
 sys.path.insert(0, str(Path(__file__).parent))
 from sim_host import Host  # noqa: E402

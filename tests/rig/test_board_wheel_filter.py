@@ -9,8 +9,8 @@ import numpy as np
 import pytest
 from scipy import signal
 
-from bench.rig.firmware import make_board
-from bench.wire import messages as m
+from rigbench.rig.firmware.board import make_board
+from rigbench.wire import messages as m
 
 sys.path.insert(0, str(Path(__file__).parent))
 from sim_host import Host  # noqa: E402

@@ -10,7 +10,7 @@ import pytest
 import scipy.integrate
 import scipy.signal
 
-from bench.rig.plants import BalanceParams, BalanceRig, ComplementaryFilter, Plant, make_balance
+from rigbench.rig.plants.catalog import BalanceParams, BalanceRig, ComplementaryFilter, Plant, make_balance
 
 DEMO = BalanceParams()
 # friction off, so the frictionless model of docs/METHODS.md §4 applies exactly

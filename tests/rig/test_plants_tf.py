@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from bench.rig.plants import Plant, TransferFunctionPlant, make_plant
+from rigbench.rig.plants.catalog import Plant, TransferFunctionPlant, make_plant
 
 
 def run_plant(plant: TransferFunctionPlant, u: np.ndarray) -> np.ndarray:

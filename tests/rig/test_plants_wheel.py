@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 import scipy.signal
 
-from bench.rig.plants import Plant, WheelParams, WheelRig, make_wheel
+from rigbench.rig.plants.catalog import Plant, WheelParams, WheelRig, make_wheel
 
 DEMO = WheelParams()
 LINEAR = replace(DEMO, coulomb_friction_Nm=0.0)

@@ -7,10 +7,9 @@ import threading
 import pytest
 import serial
 
-import bench  # noqa: F401  (registers the sim:// handler)
-from bench.rig.clock import ClockStalled, VirtualClock
-from bench.wire import HostCodec
-from bench.wire import messages as m
+from rigbench.rig.clock import ClockStalled, VirtualClock
+from rigbench.wire import HostCodec
+from rigbench.wire import messages as m
 
 
 class PortHost:

@@ -13,11 +13,11 @@ from pathlib import Path
 import pytest
 import serial
 
-from bench.rig.pty import run_sim_server, serve_pty
-from bench.rig.simlink import SimLink
-from bench.rig.url import parse_sim_url
-from bench.wire import HostCodec
-from bench.wire import messages as m
+from rigbench.rig.pty import run_sim_server, serve_pty
+from rigbench.rig.simlink import SimLink
+from rigbench.rig.url import parse_sim_url
+from rigbench.wire import HostCodec
+from rigbench.wire import messages as m
 
 pytestmark = pytest.mark.skipif(not hasattr(os, "openpty"), reason="needs POSIX ptys")
 
@@ -100,7 +100,7 @@ def test_virtual_clock_is_refused_on_a_pty():
 
 def test_command_line_front_prints_path_links_and_stops_on_ctrl_c(tmp_path):
     link = tmp_path / "board"
-    code = ("from bench.rig.pty import run_sim_server; "
+    code = ("from rigbench.rig.pty import run_sim_server; "
             f"raise SystemExit(run_sim_server('wheel', {str(link)!r}))")
     proc = subprocess.Popen([sys.executable, "-c", code], cwd=ROOT, stdout=subprocess.PIPE,
                             stderr=subprocess.PIPE, text=True,

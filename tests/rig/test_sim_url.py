@@ -5,7 +5,7 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from bench.rig.url import SimOptions, format_sim_url, parse_sim_url
+from rigbench.rig.url import SimOptions, format_sim_url, parse_sim_url
 
 
 @pytest.mark.parametrize("url,want", [

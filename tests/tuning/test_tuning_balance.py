@@ -12,12 +12,12 @@ import pytest
 sys.path.insert(0, str(Path(__file__).parent))
 from balance_sim import prbs, simulate_balance  # noqa: E402
 
-from bench.tuning.balance import (BalanceModel, design_lqr, design_pole_placement,  # noqa: E402
+from rigbench.tuning.balance import (BalanceModel, design_lqr, design_pole_placement,  # noqa: E402
                                   fit_balance_model)
-from bench.tuning.balance_design import lqr_matrices  # noqa: E402
-from bench.tuning.loop import LoopController  # noqa: E402
-from bench.tuning.margins import margins  # noqa: E402
-from bench.units import gain_from_si, gain_to_si  # noqa: E402
+from rigbench.tuning.balance_design import lqr_matrices  # noqa: E402
+from rigbench.tuning.loop import LoopController  # noqa: E402
+from rigbench.tuning.margins import margins  # noqa: E402
+from rigbench.base.units import gain_from_si, gain_to_si  # noqa: E402
 
 DEG, REV = math.pi / 180, 2 * math.pi
 # Invented demo rig of docs/METHODS.md §6 (demo numbers): Jp 0.012, Jw 8e-4, mgl ≈ 1.0 N·m/rad

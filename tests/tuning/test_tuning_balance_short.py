@@ -10,8 +10,8 @@ import pytest
 sys.path.insert(0, str(Path(__file__).parent))
 from balance_sim import prbs, simulate_balance  # noqa: E402
 
-from bench.tuning.balance import BalanceFitError, fit_balance_model  # noqa: E402
-from bench.units import gain_to_si  # noqa: E402
+from rigbench.tuning.balance import BalanceFitError, fit_balance_model  # noqa: E402
+from rigbench.base.units import gain_to_si  # noqa: E402
 
 DEG, REV, DT = math.pi / 180, 2 * math.pi, 0.002
 # the invented demo rig of docs/METHODS.md §6 (demo numbers), as in test_tuning_balance.py

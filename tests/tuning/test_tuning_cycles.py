@@ -1,4 +1,4 @@
-"""Convergence of relay cycles (bench.tuning.cycles): drift against noise and resolution,
+"""Convergence of relay cycles (rigbench.tuning.cycles): drift against noise and resolution,
 on hand-computed series and on simulated relay tests checked against the plant."""
 
 import math
@@ -11,8 +11,8 @@ import pytest
 sys.path.insert(0, str(Path(__file__).parent))
 from relay_sim import simulate_relay  # noqa: E402
 
-from bench.tuning.cycles import check_cycles, settled_cycles  # noqa: E402
-from bench.tuning.relay import RelayTracker, analyse_relay  # noqa: E402
+from rigbench.tuning.cycles import check_cycles, settled_cycles  # noqa: E402
+from rigbench.tuning.relay import RelayTracker, analyse_relay  # noqa: E402
 
 
 def test_a_steady_trend_is_drift_whatever_the_tolerance_of_noise():

@@ -8,19 +8,19 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[2]
 
-FORBIDDEN = ("control", "serial", "textual", "matplotlib", "bench.link", "bench.ui",
-             "bench.rig")
+FORBIDDEN = ("control", "serial", "textual", "matplotlib", "rigbench.link", "rigbench.ui",
+             "rigbench.rig")
 
 
 def test_tuning_imports_no_upper_layer_or_test_library():
-    # bench/__init__ registers pyserial URL handlers (its own choice), so compare against
+    # bench/rigbench/__init__ registers pyserial URL handlers (its own choice), so compare against
     # what importing the bare package already loaded.
     code = (
         "import sys\n"
         "import bench\n"
         "before = set(sys.modules)\n"
-        "import bench.units, bench.tuning.relay, bench.tuning.rules, bench.tuning.loop\n"
-        "import bench.tuning.margins, bench.tuning.balance, bench.tuning.metrics\n"
+        "import rigbench.base.units, rigbench.tuning.relay, rigbench.tuning.rules, rigbench.tuning.loop\n"
+        "import rigbench.tuning.margins, rigbench.tuning.balance, rigbench.tuning.metrics\n"
         "new = set(sys.modules) - before\n"
         f"bad = [m for m in new if any(m == f or m.startswith(f + '.') for f in {FORBIDDEN!r})]\n"
         "print(sorted(bad))\n"
@@ -31,7 +31,7 @@ def test_tuning_imports_no_upper_layer_or_test_library():
 
 
 def test_tuning_sources_import_nothing_forbidden():
-    files = [ROOT / "bench" / "units.py", *sorted((ROOT / "bench" / "tuning").glob("*.py"))]
+    files = [ROOT / "bench" / "rigbench" / "base" / "units.py", *sorted((ROOT / "bench" / "rigbench" / "tuning").glob("*.py"))]
     for path in files:
         tree = ast.parse(path.read_text())
         for node in ast.walk(tree):
@@ -46,8 +46,8 @@ def test_tuning_sources_import_nothing_forbidden():
 
 
 def test_proposals_serialise_to_json():
-    from bench.tuning.balance import BalanceModel, design_lqr, design_pole_placement
-    from bench.tuning.rules import propose_from_ultimate
+    from rigbench.tuning.balance import BalanceModel, design_lqr, design_pole_placement
+    from rigbench.tuning.rules import propose_from_ultimate
 
     model = BalanceModel(a=8.84, c_prime=0.0625, offset_rad=0.0, tau_e_s=0.008,
                          delay_samples=1, dt_s=0.002)

@@ -6,9 +6,9 @@ import control
 import numpy as np
 import pytest
 
-from bench.tuning.loop import (LoopController, PlantModel, discretise_plant, loop_transfer,
+from rigbench.tuning.loop import (LoopController, PlantModel, discretise_plant, loop_transfer,
                                simulate_disturbance)
-from bench.tuning.margins import margins
+from rigbench.tuning.margins import margins
 
 LAG3 = PlantModel([1.0], [1.0, 3.0, 3.0, 1.0])
 G3 = control.tf([1.0], [1.0, 3.0, 3.0, 1.0])
@@ -24,7 +24,7 @@ def pid_tf(kp, ki, kd, tf=0.0):
 
 
 def pid_z(kp, ki, kd, tf, h):
-    """The discrete PID stated in bench.tuning.loop, built in python-control."""
+    """The discrete PID stated in rigbench.tuning.loop, built in python-control."""
     c = control.tf([kp], [1.0], h)
     if ki:
         c = c + control.tf([ki * h, 0.0], [1.0, -1.0], h)

@@ -8,8 +8,8 @@ import control
 import numpy as np
 import pytest
 
-from bench.tuning.loop import LoopController, PlantModel, loop_transfer
-from bench.tuning.margins import ROOTS_MAX_DEGREE, margins
+from rigbench.tuning.loop import LoopController, PlantModel, loop_transfer
+from rigbench.tuning.margins import ROOTS_MAX_DEGREE, margins
 
 pytestmark = pytest.mark.filterwarnings("ignore:stability_margins:UserWarning")
 

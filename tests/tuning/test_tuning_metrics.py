@@ -6,7 +6,7 @@ import control
 import numpy as np
 import pytest
 
-from bench.tuning.metrics import (DisturbanceMetrics, disturbance_metrics, step_metrics,
+from rigbench.tuning.metrics import (DisturbanceMetrics, disturbance_metrics, step_metrics,
                                   summarise)
 
 

@@ -11,7 +11,7 @@ import pytest
 sys.path.insert(0, str(Path(__file__).parent))
 from relay_sim import simulate_relay  # noqa: E402
 
-from bench.tuning.relay import RelayTracker, analyse_relay, fundamental_ratio  # noqa: E402
+from rigbench.tuning.relay import RelayTracker, analyse_relay, fundamental_ratio  # noqa: E402
 
 # The three plants of docs/METHODS.md §3: (num, den, dead time s)
 PLANTS = {

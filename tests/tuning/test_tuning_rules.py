@@ -8,8 +8,8 @@ import numpy as np
 import pytest
 from scipy.optimize import brentq
 
-from bench.tuning.point import FrequencyPoint
-from bench.tuning.rules import (AMIGO_KAPPA_RANGE, ULTIMATE_RULES, IdealPid, ParallelPid,
+from rigbench.tuning.point import FrequencyPoint
+from rigbench.tuning.rules import (AMIGO_KAPPA_RANGE, ULTIMATE_RULES, IdealPid, ParallelPid,
                                 phase_margin_design, propose_from_point,
                                 propose_from_ultimate, rule_from_ultimate)
 

@@ -5,7 +5,7 @@ import math
 import numpy as np
 import pytest
 
-from bench.units import UNITS, from_si, gain_from_si, gain_to_si, to_si
+from rigbench.base.units import UNITS, from_si, gain_from_si, gain_to_si, to_si
 
 
 @pytest.mark.parametrize("unit, value, si", [

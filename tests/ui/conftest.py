@@ -10,7 +10,7 @@ import pytest
 from textual import events
 from textual.keys import REPLACED_KEYS, _character_to_key, _get_unicode_name_from_key
 
-from bench.ui.app import RigApp
+from rigbench.ui.app import RigApp
 
 SIM = "sim://balance?clock=virtual"
 SIZE = (130, 42)

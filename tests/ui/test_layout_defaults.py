@@ -1,5 +1,5 @@
 """What the screens offer first and how they fit: the loop offered first is the innermost
-loop of a cascade (bench.experiments.conventions.primary_loop); the colour theme named on the
+loop of a cascade (rigbench.experiments.conventions.primary_loop); the colour theme named on the
 command line holds; at 80x24 and 140x42 every screen keeps the kill keys, the motor state
 and the link alarm in view and nothing pushes a screen into scrolling.
 
@@ -14,14 +14,14 @@ from rich.console import Console
 from textual.color import Color
 from textual.widgets import Select
 
-from bench.cli import build_parser
-from bench.commands import ui as ui_command
-from bench.ui.app import RigApp
-from bench.ui.experiments import ExperimentsScreen
-from bench.ui.gains import GainsScreen
-from bench.ui.linkview import health_lines
-from bench.ui.safety import SafetyBar
-from bench.ui.theme import BENCH_DARK, BENCH_LIGHT
+from rigbench.cli import build_parser
+from rigbench.commands import ui as ui_command
+from rigbench.ui.app import RigApp
+from rigbench.ui.screens.experiments import ExperimentsScreen
+from rigbench.ui.screens.gains import GainsScreen
+from rigbench.ui.screens.link import health_lines
+from rigbench.ui.safety import SafetyBar
+from rigbench.ui.theme import BENCH_DARK, BENCH_LIGHT
 
 from conftest import SIM, connected, press, wait_for
 

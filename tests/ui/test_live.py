@@ -10,8 +10,8 @@ import asyncio
 
 import numpy as np
 
-from bench.ui.live import LiveScreen
-from bench.ui.plot import LinePlot
+from rigbench.ui.screens.live import LiveScreen
+from rigbench.ui.widgets.plot import LinePlot
 
 from conftest import SIM, SIZE, connected, press, wait_for
 

@@ -9,7 +9,7 @@ import asyncio
 import numpy as np
 from textual.app import App
 
-from bench.ui.plot import GUTTER, LinePlot, Scale, braille_bits, braille_text, column_spans
+from rigbench.ui.widgets.plot import GUTTER, LinePlot, Scale, braille_bits, braille_text, column_spans
 
 WIDTH, HEIGHT = 40, 6  # plot cells: 32 x 6 -> 64 sub-columns, 24 dot rows
 PLOT_W = WIDTH - GUTTER

@@ -10,9 +10,9 @@ import asyncio
 import pytest
 from textual.widgets import Input
 
-from bench.ui.app import RigApp
-from bench.ui.dialogs import ConfirmDialog, PromptDialog
-from bench.ui.safety import SafetyBar
+from rigbench.ui.app import RigApp
+from rigbench.ui.widgets.dialogs import ConfirmDialog, PromptDialog
+from rigbench.ui.safety import SafetyBar
 
 from conftest import SIM, SIZE, connected, press, wait_for
 

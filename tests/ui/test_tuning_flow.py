@@ -10,9 +10,10 @@ import asyncio
 
 from textual.widgets import DataTable, Static
 
-from bench import profiles
-from bench.ui.dialogs import ConfirmDialog, PromptDialog
-from bench.ui.safety import SafetyBar
+from rigbench.profiles import diff as profile_diff
+from rigbench.profiles import model as profiles
+from rigbench.ui.widgets.dialogs import ConfirmDialog, PromptDialog
+from rigbench.ui.safety import SafetyBar
 
 from conftest import SIZE, connected, press, wait_for
 
@@ -65,7 +66,7 @@ def test_relay_then_push_a_proposal(make_app):
                                   str(gains.query_one("#gains-note", Static).content))
             on_board = app.link.get(*best.gains)
             for name, value in best.gains.items():
-                assert profiles.same_value(on_board[name], value, digits=6), name
+                assert profile_diff.same_value(on_board[name], value, digits=6), name
             assert gains.pending == {}
     asyncio.run(go())
 
@@ -99,8 +100,8 @@ def test_edit_outside_the_range_is_refused_in_words(make_app):
 
 def test_every_palette_entry_names_an_action_that_exists():
     # common practice, no source: a palette entry whose action is missing fails silently
-    from bench.ui.app import RigApp
-    from bench.ui.commands import ACTIONS
+    from rigbench.ui.app import RigApp
+    from rigbench.ui.palette import ACTIONS
 
     for title, _, mode, action in ACTIONS:
         if mode is not None:

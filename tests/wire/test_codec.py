@@ -5,9 +5,9 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from bench.wire import BoardCodec, HostCodec, KillByte, LocalProtocolError, encode_frame
-from bench.wire import messages as m
-from bench.wire.frame import MAX_LINE, BadFrame, FrameDecoder, KILL_BYTE
+from rigbench.wire import BoardCodec, HostCodec, KillByte, LocalProtocolError, encode_frame
+from rigbench.wire import messages as m
+from rigbench.wire.frame import MAX_LINE, BadFrame, FrameDecoder, KILL_BYTE
 
 
 def test_kill_byte_mid_line_is_seen_and_discards_the_partial_frame():
@@ -145,7 +145,7 @@ _tm_text = st.lists(
 @given(st.one_of(_tm_text, st.text(alphabet="tm 0123456789.-+eE", max_size=40)))
 def test_fast_telemetry_path_agrees_with_the_token_parser(text):
     # The fast path must accept exactly what the general parser accepts, with equal results.
-    from bench.wire.errors import RemoteProtocolError
+    from rigbench.wire.errors import RemoteProtocolError
 
     def outcome(parse):
         try:

@@ -4,7 +4,7 @@ import crcmod.predefined
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from bench.wire.crc import CRC_CHECK, crc16, crc16_bitwise
+from rigbench.wire.crc import CRC_CHECK, crc16, crc16_bitwise
 
 
 def test_check_value_from_catalogue():

@@ -8,10 +8,10 @@ import pytest
 from hypothesis import given, settings
 from hypothesis import strategies as st
 
-from bench.wire import BoardCodec, HostCodec, LoopInfo
-from bench.wire import messages as m
-from bench.wire.describe import ACTIONS, LOOP_OPTIONAL
-from bench.wire.errors import LocalProtocolError, RemoteProtocolError
+from rigbench.wire import BoardCodec, HostCodec, LoopInfo
+from rigbench.wire import messages as m
+from rigbench.wire.describe import ACTIONS, LOOP_OPTIONAL
+from rigbench.wire.errors import LocalProtocolError, RemoteProtocolError
 
 BARE = LoopInfo(0, "pos", "angle", "drive", ("pos_p", "pos_i", "pos_d"), "stable", "output")
 NAMES = st.from_regex(r"[a-z][a-z0-9_]{0,7}", fullmatch=True)   # all five fit a line

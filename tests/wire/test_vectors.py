@@ -8,9 +8,9 @@ from pathlib import Path
 
 import pytest
 
-from bench.wire import BoardCodec, HostCodec, LoopInfo, as_dict
-from bench.wire.errors import RemoteProtocolError
-from bench.wire.frame import BadFrame, Body, FrameDecoder, KillByte
+from rigbench.wire import BoardCodec, HostCodec, LoopInfo, as_dict
+from rigbench.wire.errors import RemoteProtocolError
+from rigbench.wire.frame import BadFrame, Body, FrameDecoder, KillByte
 
 VECTORS = json.loads((Path(__file__).parents[2] / "protocol" / "vectors" / "frames.json").read_text())
 
@@ -84,7 +84,7 @@ def test_bad_frame_does_not_hide_next_good_frame():
 
 def test_crc_check_block_matches_catalogue():
     # G. Cook, Catalogue of parametrised CRC algorithms: CRC-16/IBM-3740 check 0x29B1.
-    from bench.wire import crc16
+    from rigbench.wire import crc16
 
     block = VECTORS["crc_check"]
     assert crc16(block["input"].encode()) == int(block["check"], 16) == 0x29B1
@@ -111,7 +111,7 @@ def test_worked_example_frames_carry_real_crcs():
     # PROTOCOL.md §9 says its CRCs are real; the refused-frames example is meant to be bad.
     import re
 
-    from bench.wire import crc16
+    from rigbench.wire import crc16
 
     spec = (Path(__file__).parents[2] / "protocol" / "PROTOCOL.md").read_text()
     session = spec[spec.index("## 9. Worked examples"):spec.index("### Refused and unreadable")]

@@ -7,7 +7,7 @@
  *   rigbench info --port /dev/pts/7
  *
  * The board declares the same parameters, signals and loop as rigbench's simulated
- * `plant` board (bench/rig/boards.py): loop `main`, r/y/u, and drives K e^-sL/(T s+1)^n
+ * `plant` board (bench/rigbench/rig/firmware/boards.py): loop `main`, r/y/u, and drives K e^-sL/(T s+1)^n
  * (host/plant_lag.c). Options:
  *   --stdio            serve on stdin/stdout instead of a pty
  *   --rate HZ          loop rate (500)          --watchdog-ms MS   heartbeat timeout (500)

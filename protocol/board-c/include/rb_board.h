@@ -9,7 +9,7 @@
  * the modes off / hold / relay / open / inject (§8) and a PID per loop in parallel form
  * with derivative on the measurement through a first-order filter, output limits and
  * clamping anti-windup -- the same behaviour as rigbench's simulated board
- * (bench/rig/firmware*.py), checked against it frame by frame in tests/board_c/.
+ * (bench/rigbench/rig/firmware/board*.py), checked against it frame by frame in tests/board_c/.
  *
  * What you write (see PORTING.md): an rb_rig declaring your parameters, signals and loops,
  * and an rb_port of a few functions: write bytes, a microsecond clock, read sensors, set

@@ -1,7 +1,7 @@
 /*
  * rb_board.c -- the board: declaration check, boot, the loop period, the motor-off
  * interlock and its state table (PROTOCOL.md §7.3), trips, modes and stored parameters.
- * Follows bench/rig/firmware.py step for step so both boards answer alike.
+ * Follows bench/rigbench/rig/firmware/board.py step for step so both boards answer alike.
  */
 #include "rb_internal.h"
 
@@ -298,7 +298,7 @@ static const char *const MOTOR_WORDS[] = {"off", "armed", "running", "tripped"};
 
 static int transition(rb_motor s, rb_happening h, rb_motor *next)
 {
-    /* bench/wire/states.py TRANSITIONS; returns 0 when refused */
+    /* bench/rigbench/wire/states.py TRANSITIONS; returns 0 when refused */
     switch (h) {
     case RB_H_ARM:
         if (s == RB_MOTOR_OFF || s == RB_MOTOR_ARMED) { *next = RB_MOTOR_ARMED; return 1; }

@@ -1,7 +1,7 @@
 /*
  * rb_cmd.c -- host commands (PROTOCOL.md §4-§8): the grammar of a body, the handler of each
- * verb, and the one reply every command gets. Follows bench/wire/messages.py
- * (parse_host_body), bench/rig/firmware.py (_answer_bad, _command) and
+ * verb, and the one reply every command gets. Follows bench/rigbench/wire/messages.py
+ * (parse_host_body), bench/rigbench/rig/firmware/board.py (_answer_bad, _command) and
  * firmware_commands.py / firmware_modes.py, so both boards give the same answers.
  */
 #include "rb_internal.h"

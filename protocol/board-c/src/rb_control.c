@@ -13,7 +13,7 @@
  * Relay (§8.1): the state r flips to +1 when e > hyst and to -1 when e < -hyst.
  * relay=output: u = bias + amp*r; relay=integral: bias + amp*r is added to e_i only.
  * Leaving an output override (relay=output, open) for closed loop is bumpless.
- * Same arithmetic, in the same order, as bench/rig/firmware_control.py.
+ * Same arithmetic, in the same order, as bench/rigbench/rig/firmware/control.py.
  */
 #include "rb_internal.h"
 

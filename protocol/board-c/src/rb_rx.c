@@ -9,7 +9,7 @@
  * - an '@' inside a frame abandons it (`truncated`) and starts a new one;
  * - a frame reaching 200 bytes without "\n" is `too_long`; the rest of it is skipped up to
  *   the next '@' or "\n";
- * - at "\n" the line is checked in the order of bench/wire/frame.py parse_line: optional
+ * - at "\n" the line is checked in the order of bench/rigbench/wire/frame.py parse_line: optional
  *   "\r", the last '|', four hex digits (`crc`), body characters (`bad_char`), an empty
  *   body (`truncated`), then the CRC (`crc`).
  * The kill byte 0x18 acts at once in rb_rx_byte (motor off) and, in stream order, in

@@ -56,7 +56,7 @@ size_t rb_frame(char *out, size_t cap, const char *body, size_t n)
 size_t rb_format_number(char *out, size_t cap, double value, int digits)
 {
     /* "%.*g", then the exponent without '+' and leading zeros ("1e-07" -> "1e-7"), and
-     * "-0" -> "0": the shortest text the grammar of §3 accepts (as bench/wire writes it). */
+     * "-0" -> "0": the shortest text the grammar of §3 accepts (as bench/rigbench/wire writes it). */
     char tmp[40];
     char *e;
     int n;

@@ -1,0 +1,70 @@
+"""Helpers shared by the subcommand modules: the ``--port`` and ``--json`` options, opening
+a link with the right errors, JSON output.
+
+Must not import Textual or rigbench.ui.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import math
+import sys
+from dataclasses import asdict, is_dataclass
+
+from rigbench.link import Link
+
+DEFAULT_PORT = "sim://balance"
+
+
+class CommandError(Exception):
+    """An expected failure of a command: ``message`` (one line) and an exit ``code``."""
+
+    def __init__(self, code: int, message: str) -> None:
+        super().__init__(message)
+        self.code = code
+
+
+def add_port_option(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--port", default=DEFAULT_PORT, metavar="URL",
+                        help="device path (/dev/ttyACM0, COM3), pyserial URL or sim://... "
+                             f"(default {DEFAULT_PORT}, the simulated balance rig)")
+    parser.add_argument("--baud", type=int, default=115200, metavar="N",
+                        help="baud rate of a UART port (default 115200; USB CDC ignores it)")
+
+
+def add_json_option(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("--json", action="store_true",
+                        help="print one JSON object for scripts instead of text")
+
+
+def open_link(args, **kwargs) -> Link:
+    """Open ``args.port`` and handshake (LinkError on failure: exit code 3)."""
+    return Link.open(args.port, baudrate=getattr(args, "baud", 115200), **kwargs)
+
+
+def plain(obj):
+    """Dataclasses, tuples and non-finite floats as JSON-friendly values."""
+    if is_dataclass(obj) and not isinstance(obj, type):
+        return plain(asdict(obj))
+    if isinstance(obj, dict):
+        return {str(k): plain(v) for k, v in obj.items()}
+    if isinstance(obj, (list, tuple)):
+        return [plain(v) for v in obj]
+    if isinstance(obj, float) and not math.isfinite(obj):
+        return None
+    return obj
+
+
+def print_json(obj) -> None:
+    json.dump(plain(obj), sys.stdout, indent=2)
+    sys.stdout.write("\n")
+
+
+def table(rows: list[list[str]], *, indent: str = "  ") -> str:
+    """Left-aligned columns, two spaces apart."""
+    if not rows:
+        return ""
+    widths = [max(len(r[i]) for r in rows) for i in range(len(rows[0]))]
+    return "\n".join(indent + "  ".join(c.ljust(w) for c, w in zip(r, widths)).rstrip()
+                     for r in rows)

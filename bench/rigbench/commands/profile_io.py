@@ -1,0 +1,58 @@
+"""Shared pieces of the profile commands (push, pull, diff): opening the link, and turning
+their errors (bad file, refused profile, board refusal, link failure) into one line on
+stderr, or one JSON object with ``--json``, and the exit code (bench/rigbench/cli.py).
+
+Must not import textual or rigbench.ui.
+"""
+
+from __future__ import annotations
+
+import json
+import sys
+from contextlib import contextmanager
+
+from rigbench.base.stops import EXIT_CHECK, EXIT_LINK, EXIT_OK, EXIT_REFUSED, EXIT_USAGE  # noqa: F401
+from rigbench.commands._common import add_json_option as add_json  # noqa: F401
+from rigbench.commands._common import add_port_option as add_port  # noqa: F401
+from rigbench.link import BoardRefused, Link, LinkError
+from rigbench.profiles.push import PushRefused
+from rigbench.base.yamlload import SchemaError
+
+
+@contextmanager
+def open_link(url: str):
+    link = Link.open(url)
+    try:
+        yield link
+    finally:
+        link.close()
+
+
+def problem_dict(p) -> dict:
+    return {"field": p.field, "message": p.message, "line": p.line, "severity": p.severity}
+
+
+def fail(args, code: int, message: str, **extra) -> int:
+    """Report a failure as one line on stderr (or a JSON object on stdout); return ``code``."""
+    if getattr(args, "json", False):
+        print(json.dumps({"ok": False, "error": message, "exit": code, **extra}))
+    else:
+        print(f"rigbench {args.command}: {message}", file=sys.stderr)
+    return code
+
+
+def guarded(args, body) -> int:
+    """Run ``body()`` and map the errors the profile commands share to exit codes."""
+    try:
+        return body()
+    except SchemaError as exc:
+        return fail(args, EXIT_USAGE, str(exc))
+    except PushRefused as exc:
+        return fail(args, EXIT_REFUSED, str(exc),
+                    refused=[problem_dict(p) for p in exc.problems])
+    except BoardRefused as exc:
+        return fail(args, EXIT_REFUSED, str(exc), code=exc.code, text=exc.text)
+    except LinkError as exc:
+        return fail(args, EXIT_LINK, str(exc))
+    except (FileExistsError, IsADirectoryError, PermissionError) as exc:
+        return fail(args, EXIT_USAGE, f"{exc.filename}: {exc.strerror}")

@@ -1,0 +1,97 @@
+"""``rigbench watch``: stream telemetry to the terminal as aligned columns, or record it to
+a CSV file (with its YAML sidecar, rigbench.recordings.recording) for a number of seconds or until Ctrl-C.
+
+Must not import Textual or rigbench.ui.
+"""
+
+from __future__ import annotations
+
+import math
+
+from rigbench.base.stops import EXIT_USAGE  # noqa: F401
+from rigbench.commands._common import CommandError
+from rigbench.recordings.recording import Recorder, RecordingError
+
+from rigbench.commands._common import add_port_option, open_link
+
+
+def add_parser(subparsers):
+    p = subparsers.add_parser("watch", help="stream telemetry to the terminal or a CSV file",
+                              description=__doc__.split("\n\n")[0])
+    add_port_option(p)
+    p.add_argument("--seconds", type=float, default=None, metavar="N",
+                   help="how long to watch, in the board's time (default: until Ctrl-C)")
+    p.add_argument("--csv", default=None, metavar="FILE",
+                   help="record to FILE (.csv) and FILE's .yaml sidecar instead of printing")
+    p.add_argument("--rate", type=float, default=None, metavar="HZ",
+                   help="telemetry rate to ask the board for (default 20 on the terminal, "
+                        "100 for a recording)")
+    p.add_argument("--every", type=float, default=0.2, metavar="S",
+                   help="seconds between printed lines (default 0.2)")
+    p.add_argument("--force", action="store_true", help="overwrite an existing FILE")
+    return p
+
+
+def _cell(value: float, width: int) -> str:
+    if not math.isfinite(value):
+        return "-".rjust(width)
+    return f"{value:{width}.5g}"
+
+
+def _lines(link, every_s: float, seconds: float | None):
+    """Header, then one line per ``every_s`` of link time with the newest row."""
+    names = ["time [s]"] + [f"{s.name} [{s.unit}]" for s in link.signals]
+    width = max(11, *(len(n) for n in names))
+    yield "  ".join(n.rjust(width) for n in names)
+    t0 = link.now()
+    while seconds is None or link.now() - t0 < seconds - 1e-9:
+        link.sleep(every_s if seconds is None else min(every_s, seconds - (link.now() - t0)))
+        snap = link.snapshot(rows=1)
+        if len(snap):
+            cells = [_cell(link.now() - t0, width)] + [_cell(v, width) for v in snap.values[0]]
+            yield "  ".join(cells)
+
+
+def run(args) -> int:
+    if args.seconds is not None and args.seconds <= 0:
+        raise CommandError(EXIT_USAGE, "--seconds must be positive")
+    if args.every <= 0:
+        raise CommandError(EXIT_USAGE, "--every must be positive")
+    with open_link(args) as link:
+        if args.csv:
+            rate = args.rate if args.rate is not None else 100.0
+            try:
+                recorder = Recorder(args.csv, link, overwrite=args.force,
+                                    notes=[f"rigbench watch --rate {rate:g}"])
+            except RecordingError as exc:
+                raise CommandError(EXIT_USAGE, str(exc)) from None
+            actual = link.stream(rate)
+            recorder.start()
+            try:
+                t0 = link.now()
+                try:
+                    while args.seconds is None or link.now() - t0 < args.seconds - 1e-9:
+                        left = 1.0 if args.seconds is None else args.seconds - (link.now() - t0)
+                        link.sleep(min(1.0, left))
+                except KeyboardInterrupt:
+                    pass
+            finally:
+                recorder.close()
+            print(f"recorded {recorder.rows} rows at {actual:g} Hz to {recorder.path} "
+                  f"(sidecar {recorder.sidecar})")
+        else:
+            link.stream(args.rate if args.rate is not None else 20.0)
+            try:
+                for line in _lines(link, args.every, args.seconds):
+                    print(line, flush=True)
+            except KeyboardInterrupt:
+                pass
+        _stop_stream(link)
+    return 0
+
+
+def _stop_stream(link) -> None:
+    try:
+        link.stream(0)
+    except Exception:  # noqa: BLE001 - a board that went away already stopped streaming
+        pass

@@ -1,0 +1,15 @@
+"""Experiments on a live board: the guarded runner, relay autotune, gain proposals with
+predicted margins, and disturbance sweeps. Modules:
+
+- runner:      Experiment (arm through the interlock, modes, guards, recording, safe end)
+- guards:      Guards, guard limits, Progress, ExperimentResult, stop reasons
+- relay:       run_relay -> RelayRun (automatic amplitude, convergence, exact point)
+- pointmodel:  low-order models fitted to measured frequency-response points
+- balancefit:  balance-model fit and LQR gains for an unstable balance loop
+- proposals:   propose(run) -> ProposalSet (rules, designs, margins, ranking)
+- sweep:       run_sweep -> SweepResult (disturbance metrics per gain set)
+- conventions: what the host reads from a board's declarations by naming convention
+
+Pure Python/numpy/scipy on top of rigbench.link, rigbench.tuning and rigbench.recordings.recording.
+Must not import: textual, rigbench.ui, rigbench.commands, control.
+"""

@@ -1,0 +1,360 @@
+"""Gain profiles: one loop's gain set (plus limits) in a YAML file people keep.
+
+The schema is documented in profiles/README.md. ``load_profile`` reads a file strictly
+(unknown keys and bad values raise ``SchemaError`` with file, line and field),
+``save_profile`` writes one atomically, ``check_against_board`` compares a profile with what
+a board declares (parameters, units, ranges, access, loops) before anything is sent,
+``profile_from_board`` reads a board's current values into a profile, ``diff_profiles``
+compares two profiles setting by setting. Values are in the board's declared units.
+
+Must not import textual, rigbench.ui, rigbench.commands or control.
+"""
+
+from __future__ import annotations
+
+import datetime as _dt
+import re
+from dataclasses import dataclass, field, replace
+from pathlib import Path
+from typing import Iterable, Mapping
+
+from rigbench.base.atomic import write_text_atomic
+from rigbench.wire.describe import LoopInfo, ParamInfo, format_value
+from rigbench.wire.messages import NAME_RE, WORD_RE
+from rigbench.base.yamlload import Cursor, MapCursor, SchemaError, load_yaml, load_yaml_text, near_hint
+
+__all__ = ["PROFILE_VERSION", "SOURCES", "PREDICTED_KEYS", "Setting", "Provenance", "Profile",
+           "Problem", "SchemaError", "load_profile", "load_profile_text",
+           "dump_profile", "save_profile", "check_against_board", "profile_from_board",
+           "read_values"]
+
+PROFILE_VERSION = 1
+SOURCES = ("rule", "design", "manual", "pulled", "sweep")
+PREDICTED_KEYS = ("gain_margin_db", "gain_margin_lower_db", "phase_margin_deg",
+                  "target_phase_margin_deg", "delay_margin_s", "ms", "crossover_rad_s")
+_TOP_REQUIRED = ("profile", "name", "rig", "loop", "gains", "provenance")
+_TOP_OPTIONAL = ("board", "limits", "notes", "demo")
+_NAME, _WORD = NAME_RE.pattern, WORD_RE.pattern  # protocol tokens (PROTOCOL.md §3)
+_METHOD = r"[a-z0-9][a-z0-9._-]{0,63}"
+
+
+@dataclass(frozen=True)
+class Setting:
+    """One board parameter's value in the board's declared unit."""
+
+    name: str
+    value: float
+    unit: str
+    line: int | None = field(default=None, compare=False)
+
+
+@dataclass(frozen=True)
+class Provenance:
+    """Where the numbers came from: ``source`` (one of SOURCES), ISO ``date``, and optionally
+    ``method`` (rule or design id), ``experiment`` (a recording path), ``predicted`` margins
+    (keys from PREDICTED_KEYS) and ``sweep`` metrics (name -> number)."""
+
+    source: str
+    date: str
+    method: str | None = None
+    experiment: str | None = None
+    predicted: dict[str, float] = field(default_factory=dict)
+    sweep: dict[str, float] = field(default_factory=dict)
+
+
+@dataclass(frozen=True)
+class Profile:
+    name: str
+    rig: str
+    loop: str
+    gains: dict[str, Setting]
+    provenance: Provenance
+    limits: dict[str, Setting] = field(default_factory=dict)
+    board: str | None = None
+    notes: str | None = None
+    demo: bool = False
+    path: str | None = field(default=None, compare=False)
+
+    def settings(self) -> dict[str, Setting]:
+        """Gains then limits, in file order: everything a push sends."""
+        return {**self.gains, **self.limits}
+
+    def values(self) -> dict[str, float]:
+        return {n: s.value for n, s in self.settings().items()}
+
+    def where(self, name: str) -> str:
+        return f"{'gains' if name in self.gains else 'limits'}.{name}"
+
+
+# --------------------------------------------------------------------------- reading
+
+
+def load_profile(path: str | Path) -> Profile:
+    """Read a profile file; any problem raises SchemaError (``FILE:LINE: field: message``)."""
+    return _read(load_yaml(path), str(path))
+
+
+def load_profile_text(text: str, path: str = "<text>") -> Profile:
+    return _read(load_yaml_text(text, path), path)
+
+
+def _read(root: Cursor, path: str) -> Profile:
+    root.expect_mapping()
+    if "profile" in root.value:  # check the format version before complaining about keys
+        version_c = MapCursor(root)["profile"]
+        if version_c.integer(minimum=1) != PROFILE_VERSION:
+            raise version_c.error(f"format version {version_c.value} is not one this "
+                                  f"rigbench reads ({PROFILE_VERSION})")
+    m = root.mapping(_TOP_REQUIRED, _TOP_OPTIONAL)
+    gains = _settings(m["gains"], min_items=1)
+    limits = _settings(m["limits"], min_items=0) if "limits" in m else {}
+    for name, s in limits.items():
+        if name in gains:
+            raise m["limits"].error(f"{name!r} is also given under gains (line {gains[name].line})",
+                                    line=s.line, field=f"limits.{name}")
+    return Profile(
+        name=m["name"].text(pattern=r"[^\n\r]{1,80}", what="one line of at most 80 characters"),
+        rig=m["rig"].text(pattern=_WORD, what="a rig kind (letters, digits, - _ .)"),
+        loop=m["loop"].text(pattern=_NAME, what="a loop name"),
+        gains=gains,
+        limits=limits,
+        provenance=_provenance(m["provenance"]),
+        board=m["board"].text(pattern=_WORD, what="a board id") if "board" in m else None,
+        notes=m["notes"].text(max_len=20000) if "notes" in m else None,
+        demo=m["demo"].boolean() if "demo" in m else False,
+        path=path,
+    )
+
+
+def _settings(cur: Cursor, *, min_items: int) -> dict[str, Setting]:
+    entries = cur.entries()
+    if len(entries) < min_items:
+        raise cur.error(f"needs at least {min_items} parameter(s)")
+    out = {}
+    for name, c in entries:
+        if not NAME_RE.match(name):
+            raise c.error(f"{name!r} is not a parameter name (lower case, digits, _; "
+                          "at most 32 characters)", line=cur.key_line(name))
+        m = c.mapping(("value", "unit"))
+        unit_c = m["unit"]
+        if isinstance(unit_c.value, int) and not isinstance(unit_c.value, bool):
+            unit_c.value = str(unit_c.value)  # `unit: 1` (dimensionless) reads as text
+        unit = unit_c.text(pattern=_WORD, what="a unit word such as deg, rev/s/deg or 1")
+        out[name] = Setting(name, m["value"].number(), unit, line=c.line)
+    return out
+
+
+def _provenance(cur: Cursor) -> Provenance:
+    m = cur.mapping(("source", "date"), ("method", "experiment", "predicted", "sweep"))
+    date_c = m["date"]
+    date = date_c.text()
+    try:
+        (_dt.datetime if "T" in date or " " in date else _dt.date).fromisoformat(date)
+    except ValueError:
+        raise date_c.error(f"{date!r} is not an ISO date (2025-03-14) or date-time") from None
+    predicted = {}
+    if "predicted" in m:
+        pm = m["predicted"].mapping(optional=PREDICTED_KEYS)
+        predicted = {k: pm[k].number() for k in m["predicted"].value}
+    sweep = {}
+    if "sweep" in m:
+        for name, c in m["sweep"].entries():
+            if not NAME_RE.match(name):
+                raise c.error(f"{name!r} is not a metric name", line=m["sweep"].key_line(name))
+            sweep[name] = c.number()
+    return Provenance(
+        source=m["source"].choice(SOURCES), date=date,
+        method=m["method"].text(pattern=_METHOD, what="a rule or design id such as "
+                                "amigo-pid") if "method" in m else None,
+        experiment=m["experiment"].text(max_len=500) if "experiment" in m else None,
+        predicted=predicted, sweep=sweep)
+
+
+# --------------------------------------------------------------------------- writing
+
+
+def _scalar(value) -> str:
+    if isinstance(value, bool):
+        return "true" if value else "false"
+    if isinstance(value, (int, float)):
+        return repr(float(value)) if isinstance(value, float) else str(value)
+    text = str(value)
+    if re.fullmatch(r"[A-Za-z0-9_][A-Za-z0-9_./+^-]*( [A-Za-z0-9_./+^()-]+)*", text):
+        try:
+            if load_yaml_text(f"k: {text}\n").value["k"] == text:
+                return text
+        except SchemaError:
+            pass
+    return _quote(text)
+
+
+def _quote(text: str) -> str:
+    """A YAML double-quoted scalar; anything not printable is written as an escape."""
+    out = []
+    for ch in text:
+        if ch in '"\\':
+            out.append("\\" + ch)
+        elif ch.isprintable():
+            out.append(ch)
+        else:
+            code = ord(ch)
+            out.append(f"\\x{code:02x}" if code < 0x100 else
+                       f"\\u{code:04x}" if code < 0x10000 else f"\\U{code:08x}")
+    return '"' + "".join(out) + '"'
+
+
+def _block(text: str, indent: str = "  ") -> str:
+    """A literal block when the text reads back exactly; otherwise a quoted string."""
+    lines = text.split("\n")
+    body = lines[:-1] if text.endswith("\n") else lines
+    ok = (text.strip() and not text.endswith("\n\n") and not body[0][:1].isspace()
+          and all(ln.isprintable() and ln == ln.rstrip() for ln in body))
+    if not ok:
+        return " " + _quote(text)
+    chomp = "" if text.endswith("\n") else "-"
+    return f" |{chomp}\n" + "\n".join(indent + ln if ln else "" for ln in body)
+
+
+def dump_profile(profile: Profile) -> str:
+    """The YAML text of a profile (checked by reading it back before it is returned)."""
+    p, pv = profile, profile.provenance
+    out = [f"# rigbench gain profile, format {PROFILE_VERSION} (schema: profiles/README.md)",
+           f"profile: {PROFILE_VERSION}", f"name: {_scalar(p.name)}", f"rig: {_scalar(p.rig)}"]
+    if p.board is not None:
+        out.append(f"board: {_scalar(p.board)}")
+    out.append(f"loop: {_scalar(p.loop)}")
+    if p.demo:
+        out.append("demo: true")
+    for section, items in (("gains", p.gains), ("limits", p.limits)):
+        if items or section == "gains":
+            out.append(f"{section}:")
+            out += [f"  {n}: {{value: {_scalar(s.value)}, unit: {_scalar(s.unit)}}}"
+                    for n, s in items.items()]
+    out += ["provenance:", f"  source: {_scalar(pv.source)}", f"  date: {_scalar(pv.date)}"]
+    for key in ("method", "experiment"):
+        if getattr(pv, key) is not None:
+            out.append(f"  {key}: {_scalar(getattr(pv, key))}")
+    for key in ("predicted", "sweep"):
+        if getattr(pv, key):
+            out.append(f"  {key}:")
+            out += [f"    {k}: {_scalar(v)}" for k, v in getattr(pv, key).items()]
+    if p.notes is not None:
+        out.append("notes:" + _block(p.notes))
+    text = "\n".join(out) + "\n"
+    back = load_profile_text(text, p.path or "<profile>")
+    if back != replace(profile, path=back.path):
+        raise ValueError("profile does not survive writing and reading back")  # a bug here
+    return text
+
+
+def save_profile(profile: Profile, path: str | Path) -> Path:
+    """Write ``profile`` to ``path`` atomically (the old file stays whole if anything fails)."""
+    return write_text_atomic(path, dump_profile(profile))
+
+
+# --------------------------------------------------------------------------- the board
+
+
+@dataclass(frozen=True)
+class Problem:
+    """Something in a profile that does not fit the board; ``severity`` error or warning."""
+
+    field: str
+    message: str
+    line: int | None = None
+    severity: str = "error"
+
+    def format(self, path: str | None = None) -> str:
+        where = f"{path}:{self.line}: " if path and self.line else (f"{path}: " if path else "")
+        return f"{where}{self.field}: {self.message}"
+
+
+def check_against_board(profile: Profile, params: Mapping[str, ParamInfo],
+                        loops: Mapping[str, LoopInfo], *, info=None) -> list[Problem]:
+    """Everything in ``profile`` the board would refuse or that does not match it.
+
+    ``info`` (a BoardInfo), when given, is checked for the rig kind (error) and board id
+    (warning). Nothing is sent; this runs before any ``set``.
+    """
+    out: list[Problem] = []
+    if info is not None:
+        if info.rig != profile.rig:
+            out.append(Problem("rig", f"profile is for a {profile.rig!r} rig; the board is a "
+                                      f"{info.rig!r} rig"))
+        if profile.board is not None and info.board != profile.board:
+            out.append(Problem("board", f"profile was made on board {profile.board!r}; this is "
+                                        f"{info.board!r}", severity="warning"))
+    loop = loops.get(profile.loop)
+    if loop is None:
+        out.append(Problem("loop", f"the board has no loop {profile.loop!r}; it has: "
+                                   f"{', '.join(loops) or 'none'}"))
+    else:
+        missing = [g for g in loop.gains if g not in profile.gains]
+        if missing:
+            out.append(Problem("gains", f"loop {loop.name!r} has gains "
+                                        f"{', '.join(loop.gains)}; the profile lacks "
+                                        f"{', '.join(missing)}"))
+    for name, s in profile.settings().items():
+        where = profile.where(name)
+        p = params.get(name)
+        if p is None:
+            out.append(Problem(where, f"the board has no parameter {name!r}"
+                                      f"{near_hint(name, params)}", s.line))
+            continue
+        if s.unit != p.unit:
+            out.append(Problem(where, f"unit {s.unit!r} differs from the board's {p.unit!r}",
+                               s.line))
+        if not p.writable:
+            out.append(Problem(where, "the parameter is read-only on this board", s.line))
+        if not p.admits(s.value):
+            out.append(Problem(where, f"{format_value(s.value)} is outside the board's range "
+                                      f"{format_value(p.minimum)}..{format_value(p.maximum)} "
+                                      f"{p.unit}", s.line))
+    return out
+
+
+def read_values(link, names: Iterable[str]) -> dict[str, float]:
+    """Current values of ``names`` from ``link.get`` as floats; a missing one is an error."""
+    names = list(names)
+    got = link.get(*names) if names else {}
+    missing = [n for n in names if not isinstance(got.get(n), (int, float))]
+    if missing:
+        raise ValueError(f"the board did not give a number for {', '.join(missing)}")
+    return {n: float(got[n]) for n in names}
+
+
+def profile_from_board(link, loop: str, *, name: str | None = None, extra: Iterable[str] = (),
+                       limits: Iterable[str] | None = None,
+                       limit_prefixes: tuple[str, ...] = ("trip_", "arm_"),
+                       source: str = "pulled", date: str | None = None,
+                       notes: str | None = None) -> Profile:
+    """The board's current values of ``loop``'s gains (plus ``extra`` parameters) as a profile.
+
+    Limits are ``limits`` when given, else the writable parameters whose names start with
+    ``limit_prefixes`` (the protocol gives ``trip_`` and ``arm_`` their meaning, §5.2).
+    """
+    loops, params, info = link.loops, link.params, link.info
+    if loop not in loops:
+        raise ValueError(f"the board has no loop {loop!r}; it has: {', '.join(loops) or 'none'}")
+    gain_names = list(dict.fromkeys([*loops[loop].gains, *extra]))
+    if limits is None:
+        limit_names = [n for n, p in params.items() if p.writable and n not in gain_names
+                       and n.startswith(tuple(limit_prefixes))]
+    else:
+        limit_names = [n for n in dict.fromkeys(limits) if n not in gain_names]
+    unknown = [n for n in gain_names + limit_names if n not in params]
+    if unknown:
+        raise ValueError(f"the board has no parameter {', '.join(unknown)}")
+    values = read_values(link, gain_names + limit_names)
+
+    def setting(n):
+        return Setting(n, values[n], params[n].unit)
+
+    return Profile(
+        name=name or f"{loop} gains read from {info.board}", rig=info.rig, board=info.board,
+        loop=loop, gains={n: setting(n) for n in gain_names},
+        limits={n: setting(n) for n in limit_names},
+        provenance=Provenance(source=source,
+                              date=date or _dt.date.today().isoformat()),
+        notes=notes if notes is not None else
+        f"Read from board {info.board} (firmware {info.firmware}).")

@@ -1,0 +1,67 @@
+"""Help: every key of the UI, read from the bindings themselves so the list cannot drift,
+and a few lines on the safety bar and the kill.
+
+Must not import: rigbench.link, rigbench.rig, rigbench.tuning, serial, rigbench.ui.app.
+"""
+
+from __future__ import annotations
+
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import VerticalScroll
+from textual.widgets import Static
+
+from rigbench.ui.safety import BenchScreen
+from rigbench.ui.state import KILL_KEYS_TEXT
+
+ABOUT = f"""\
+Kill: {KILL_KEYS_TEXT}, on every screen, in every dialog, while typing in any field. It sends \
+the kill bytes to the board at once; the bar then shows the board's answer (motor tripped, \
+cause kill). A software kill is not an emergency stop: keep the hardware cut-off within reach.
+
+The bar at the bottom of every screen shows the link (port, frames per second, errors), \
+SIMULATED for a simulated board, the motor (off, armed, running, tripped and why), and why \
+arming would be refused now. It turns red when the link is lost or telemetry stops.
+
+Arming always asks first. Clearing a fault never starts the motor: it leaves it off.
+ctrl+p opens the command palette: every action below can be found there by name.
+"""
+
+
+def key_text(binding: Binding) -> str:
+    keys = [k.strip() for k in binding.key.split(",")]
+    names = {"question_mark": "?", "space": "space", "escape": "esc", "enter": "enter"}
+    return " / ".join(names.get(k, k) for k in keys)
+
+
+def binding_rows(bindings) -> list[tuple[str, str]]:
+    """(keys, what) for each binding with a description; same action merged."""
+    rows: dict[str, list] = {}
+    for b in bindings:
+        if not isinstance(b, Binding):
+            b = Binding(*b)
+        what = b.description or b.action
+        rows.setdefault(what, []).append(key_text(b))
+    return [(" / ".join(keys), what) for what, keys in rows.items()]
+
+
+class HelpScreen(BenchScreen):
+    """Keys of the App and of each screen."""
+
+    SUB_TITLE = "Help and keys"
+
+    def compose_body(self) -> ComposeResult:
+        with VerticalScroll(id="help-body"):
+            yield Static(ABOUT, id="help-about", markup=False)
+            yield Static("", id="help-keys", markup=False)
+
+    def on_mount(self) -> None:
+        lines = ["Everywhere"]
+        lines += [f"  {keys:<22} {what}" for keys, what in binding_rows(self.app.BINDINGS)]
+        lines += ["  ctrl+p                 command palette", "  ctrl+q                 quit"]
+        for mode, screen_cls in self.app.MODES.items():
+            rows = binding_rows(getattr(screen_cls, "BINDINGS", []))
+            if rows and screen_cls is not type(self):
+                lines += ["", f"{screen_cls.SUB_TITLE} ({mode})"]
+                lines += [f"  {keys:<22} {what}" for keys, what in rows]
+        self.query_one("#help-keys", Static).update("\n".join(lines))
