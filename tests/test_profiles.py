@@ -100,10 +100,61 @@ def test_same_name_under_gains_and_limits_is_refused():
 
 
 def test_newer_format_version_is_refused_first():
-    text = "profile: 2\nname: x\nfuture_key: 1\n"
+    text = "profile: 3\nname: x\nfuture_key: 1\n"
     with pytest.raises(SchemaError) as e:
         load_profile_text(text, "v.yaml")
-    assert str(e.value) == "v.yaml:1: profile: format version 2 is not one this rigbench reads (1)"
+    assert str(e.value) == ("v.yaml:1: profile: format version 3 is not one this rigbench "
+                            "reads (1, 2)")
+
+
+def _two_loop_text() -> str:
+    """The demo start set with the trim loop's gains added, units as the board declares."""
+    params, loops, _, _ = declared("balance")
+    trim = {"trim_kp": 0.2, "trim_ki": 0.05, "trim_kd": 0.0}
+    assert set(trim) == set(loops["trim"].gains)
+    lines = "".join(f"  {g}: {{value: {v}, unit: {params[g].unit}}}\n" for g, v in trim.items())
+    text = (ROOT / "profiles" / "demo-balance-start.yaml").read_text()
+    text = text.replace("profile: 1", "profile: 2").replace("loop: tilt", "loops: [tilt, trim]")
+    return text.replace("limits:\n", lines + "limits:\n")
+
+
+def test_a_cascade_set_is_format_2_and_needs_every_gain_of_every_loop():
+    params, loops, _, info = declared("balance")
+    prof = load_profile_text(_two_loop_text(), "two.yaml")
+    assert prof.loops == ("tilt", "trim") and prof.loop == "tilt" and prof.version == 2
+    assert [p for p in check_against_board(prof, params, loops, info=info)
+            if p.severity == "error"] == []
+    lacking = load_profile_text(_two_loop_text().replace("  trim_kd: {value: 0.0, unit: "
+                                                         f"{params['trim_kd'].unit}}}\n", ""))
+    assert ("gains", "loop 'trim' has gains trim_kp, trim_ki, trim_kd; the profile lacks "
+                     "trim_kd") in [(p.field, p.message) for p in
+                                    check_against_board(lacking, params, loops)]
+    text = dump_profile(prof)
+    assert load_profile_text(text, "two.yaml") == prof and "loops: [tilt, trim]" in text
+    # a one-loop profile is still written as format 1, which older readers take
+    one = dataclasses.replace(prof, loops=())
+    assert one.loops == ("tilt",) and "profile: 1\n" in dump_profile(one)
+
+
+def test_format_2_names_its_loops_in_a_list():
+    text = _two_loop_text().replace("loops: [tilt, trim]", "loops: tilt")
+    with pytest.raises(SchemaError, match="loops: expected a list"):
+        load_profile_text(text, "v.yaml")
+    text = _two_loop_text().replace("loops: [tilt, trim]", "loops: [tilt, tilt]")
+    with pytest.raises(SchemaError, match="named twice"):
+        load_profile_text(text, "v.yaml")
+    text = _two_loop_text().replace("loops: [tilt, trim]", "loop: tilt")
+    with pytest.raises(SchemaError, match="loops"):
+        load_profile_text(text, "v.yaml")
+
+
+def test_every_readme_example_loads_and_fits_the_demo_board():
+    params, loops, _, info = declared("balance")
+    blocks = re.findall(r"```yaml\n(.*?)```", (ROOT / "profiles" / "README.md").read_text(), re.S)
+    assert len(blocks) >= 2
+    for block in blocks:
+        prof = load_profile_text(block, "profiles/README.md")
+        assert check_against_board(prof, params, loops, info=info) == [], prof.name
 
 
 def test_readme_example_loads():

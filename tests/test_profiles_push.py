@@ -228,3 +228,27 @@ def test_diff_command_against_the_board(tmp_path, capsys):
                  "--json"]) == 0
     out = json.loads(capsys.readouterr().out)
     assert {r["change"] for r in out["rows"]} == {"only_a", "only_b"}
+
+
+def test_a_cascade_set_pulls_pushes_and_reads_back_as_one(tmp_path, capsys):
+    # the tilt loop and its wheel-speed trim loop run together: one profile, one atomic set
+    port = _state_url(tmp_path)
+    both = tmp_path / "both.yaml"
+    assert main(["pull", "-o", str(both), "--loop", "tilt", "--loop", "trim",
+                 "--port", port]) == 0
+    prof = load_profile(both)
+    assert prof.loops == ("tilt", "trim") and "profile: 2\n" in both.read_text()
+    assert {"tilt_kp", "tilt_ki", "tilt_kd", "trim_kp", "trim_ki", "trim_kd"} <= set(prof.gains)
+    changed = both.read_text().replace(
+        f"trim_ki: {{value: {prof.gains['trim_ki'].value!r}",
+        f"trim_ki: {{value: {prof.gains['trim_ki'].value * 2!r}")
+    assert changed != both.read_text()
+    both.write_text(changed)
+    capsys.readouterr()
+    assert main(["push", str(both), "--port", port, "--persist", "--json"]) == 0
+    out = json.loads(capsys.readouterr().out.strip().splitlines()[-1])
+    assert out["ok"] and out["mismatches"] == [] and out["saved"]["verified"]
+    again = tmp_path / "again.yaml"
+    assert main(["pull", "-o", str(again), "--loop", "tilt", "--loop", "trim",
+                 "--port", port]) == 0
+    assert load_profile(again).values() == pytest.approx(load_profile(both).values())

@@ -79,3 +79,31 @@ def test_gain_sets_from_dicts_profiles_and_bad_input(open_sim):
         run_sweep(link, [{"tilt_kq": 1.0}], loop="tilt")
     with pytest.raises(ValueError):
         run_sweep(link, [{"tilt_kp": 1.0}], kind="ramp")
+
+
+def test_every_set_is_completed_from_one_baseline_not_from_the_set_before(open_sim):
+    # common practice, no source: a comparison is only fair when every set runs with every
+    # other gain equal, so a set that leaves a gain out gets the baseline's value
+    link = open_sim("sim://balance?seed=3")
+    boot = link.get("tilt_kp", "tilt_ki", "tilt_kd", "trim_kp", "trim_ki")
+    cascade = {**{k: boot[k] for k in ("tilt_kp", "tilt_ki", "tilt_kd")},
+               "trim_kp": boot["trim_kp"] * 1.5, "trim_ki": boot["trim_ki"] * 1.5}
+    tilt_only = {k: boot[k] for k in ("tilt_kp", "tilt_ki", "tilt_kd")}
+    sw = run_sweep(link, [("cascade", cascade), ("tilt only", tilt_only)], loop="tilt",
+                   amplitudes=(0.02,), repeats=1, settle_s=1.0)
+    assert sw.stopped_by == "done"
+    second = sw.by_name("tilt only")
+    # what the board applied for the second set: the boot trim gains, not the cascade's
+    assert second.applied["trim_kp"] == pytest.approx(boot["trim_kp"])
+    assert second.applied["trim_ki"] == pytest.approx(boot["trim_ki"])
+    assert second.values["trim_kp"] == pytest.approx(boot["trim_kp"])
+    assert sw.by_name("cascade").applied["trim_kp"] == pytest.approx(boot["trim_kp"] * 1.5)
+    # a declared baseline replaces the board's start values for what a set leaves out
+    # (first the wheel runs down: the interlock arms only with the wheel nearly stopped)
+    assert link.wait_until(lambda: link.last_status is not None
+                           and not link.last_status.why, 20.0)
+    sw = run_sweep(link, [("cascade", cascade), ("tilt only", tilt_only)], loop="tilt",
+                   amplitudes=(0.02,), repeats=1, settle_s=1.0,
+                   baseline={"trim_kp": boot["trim_kp"] * 0.8})
+    assert sw.by_name("tilt only").applied["trim_kp"] == pytest.approx(boot["trim_kp"] * 0.8)
+    assert link.get("trim_kp")["trim_kp"] == pytest.approx(boot["trim_kp"])  # restored

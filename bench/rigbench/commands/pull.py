@@ -1,5 +1,6 @@
-"""``rigbench pull -o PROFILE``: the board's current gains of one loop (and its trip and arm
-limits) written as a gain profile, atomically.
+"""``rigbench pull -o PROFILE``: the board's current gains of one loop, or of several loops
+that run together (``--loop tilt --loop trim``), with its trip and arm limits, written as a
+gain profile, atomically.
 
 Must not import textual or rigbench.ui.
 """
@@ -22,8 +23,9 @@ def add_parser(subparsers):
                               description=__doc__.split("\n\n")[0])
     p.add_argument("-o", "--output", required=True, metavar="PROFILE",
                    help="profile file to write")
-    p.add_argument("--loop", metavar="NAME",
-                   help="loop whose gains to read (needed when the board has several)")
+    p.add_argument("--loop", action="append", default=[], metavar="NAME",
+                   help="loop whose gains to read (needed when the board has several); "
+                        "repeat it for a cascade, the tuned loop first")
     p.add_argument("--param", action="append", default=[], metavar="NAME",
                    help="also include this parameter with the gains (repeatable)")
     p.add_argument("--name", help="the profile's name (default: loop and board)")
@@ -38,26 +40,30 @@ def run(args) -> int:
         if os.path.exists(args.output) and not args.force:
             return fail(args, EXIT_USAGE, f"{args.output} exists; give --force to replace it")
         with open_link(args.port) as link:
-            loop = args.loop
-            if loop is None:
+            chosen = list(dict.fromkeys(args.loop))
+            if not chosen:
                 if len(link.loops) != 1:
                     return fail(args, EXIT_USAGE, "the board has loops "
                                 f"{', '.join(link.loops)}: choose one with --loop")
-                loop = next(iter(link.loops))
-            if loop not in link.loops:
-                return fail(args, EXIT_USAGE, f"the board has no loop {loop!r}; it has: "
-                            f"{', '.join(link.loops)}")
+                chosen = [next(iter(link.loops))]
+            for loop in chosen:
+                if loop not in link.loops:
+                    return fail(args, EXIT_USAGE, f"the board has no loop {loop!r}; it has: "
+                                f"{', '.join(link.loops)}")
+            loop = chosen[0]
             unknown = [n for n in args.param if n not in link.params]
             if unknown:
                 return fail(args, EXIT_USAGE, f"the board has no parameter "
                             f"{', '.join(unknown)}")
-            profile = profile_from_board(link, loop, name=args.name, extra=args.param)
+            profile = profile_from_board(link, loop, also=chosen[1:], name=args.name,
+                                         extra=args.param)
         save_profile(profile, args.output)
         if args.json:
             print(json.dumps({"ok": True, "output": args.output, "loop": loop,
+                              "loops": list(profile.loops),
                               "board": profile.board, "values": profile.values()}))
         else:
-            print(f"wrote {args.output}: loop {loop} of {profile.board}, "
+            print(f"wrote {args.output}: loop {'+'.join(profile.loops)} of {profile.board}, "
                   f"{len(profile.gains)} gains and {len(profile.limits)} limits")
         return EXIT_OK
     return guarded(args, body)

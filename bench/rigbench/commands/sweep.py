@@ -36,6 +36,9 @@ def add_parser(subparsers):
     add_port_option(p)
     p.add_argument("--gains", action="append", default=[], metavar="FILE|name=v,...",
                    help="a gain profile file, or inline values; repeat for more sets")
+    p.add_argument("--baseline", default=None, metavar="PROFILE",
+                   help="values for every parameter a set leaves out (default: the board's "
+                        "values when the sweep starts; never the previous set's)")
     p.add_argument("--loop", default=None, metavar="NAME",
                    help="loop to inject on (default: the loop whose gains the sets change)")
     p.add_argument("--amplitudes", default="0.02,0.04", metavar="A,B,...",
@@ -72,6 +75,20 @@ def parse_inline(text: str) -> GainSet:
     return GainSet(label or body, values)
 
 
+def _checked_profile(text: str, link):
+    try:
+        prof = load_profile(text)
+    except SchemaError as exc:
+        raise CommandError(EXIT_USAGE, str(exc)) from None
+    except OSError as exc:
+        raise CommandError(EXIT_USAGE, f"{text}: {exc.strerror or exc}") from None
+    errors = [pr for pr in check_against_board(prof, link.params, link.loops, info=link.info)
+              if pr.severity == "error"]
+    if errors:
+        raise CommandError(EXIT_USAGE, errors[0].format(text))
+    return prof
+
+
 def _load_sets(args, link) -> list[GainSet]:
     sets = []
     for text in args.gains:
@@ -81,16 +98,7 @@ def _load_sets(args, link) -> list[GainSet]:
             except ValueError as exc:
                 raise CommandError(EXIT_USAGE, str(exc)) from None
             continue
-        try:
-            prof = load_profile(text)
-        except SchemaError as exc:
-            raise CommandError(EXIT_USAGE, str(exc)) from None
-        except OSError as exc:
-            raise CommandError(EXIT_USAGE, f"{text}: {exc.strerror or exc}") from None
-        errors = [pr for pr in check_against_board(prof, link.params, link.loops, info=link.info)
-                  if pr.severity == "error"]
-        if errors:
-            raise CommandError(EXIT_USAGE, errors[0].format(text))
+        prof = _checked_profile(text, link)
         sets.append(GainSet(prof.name, prof.values()))
     if not sets:
         loop = args.loop or next((n for n, lp in link.loops.items() if lp.plant == "unstable"),
@@ -167,11 +175,13 @@ def run(args) -> int:
         out_dir.mkdir(parents=True, exist_ok=True)
     with open_link(args) as link:
         sets = _load_sets(args, link)
+        baseline = _checked_profile(args.baseline, link).values() if args.baseline else None
         with experiment_run() as bar:
             sw = run_sweep(link, sets, loop=args.loop, amplitudes=amplitudes,
                            repeats=args.repeats, kind=args.kind, at=args.at,
                            width_s=args.width, settle_s=args.settle,
-                           rearm_after_fall=args.rearm, progress=bar, results_dir=out_dir)
+                           rearm_after_fall=args.rearm, progress=bar, results_dir=out_dir,
+                           baseline=baseline)
     doc = sweep_document(sw)
     if out_dir is not None:
         (out_dir / "sweep.json").write_text(json.dumps(plain(doc), indent=2) + "\n")

@@ -13,6 +13,12 @@ steps then give the tracking error), else the measure's deviation from its mean 
 ``pre_s`` window (at least ``band_min``). Per gain set: mean and spread per metric, over
 all injections and per amplitude (rigbench.tuning.metrics.summarise).
 
+**Every set is complete.** A parameter that one set states and another leaves out is taken
+from one baseline — ``baseline`` when given (a profile's values, say), else the board's
+values when the sweep starts — never from the set that ran before: a tilt-only set run
+after a cascade set would otherwise inherit the cascade's trim gains. ``SetResult.values``
+records the complete set that ran.
+
 A **fall** (|measure| beyond its guard, or a board trip) kills the motor (runner.py) and
 is recorded for that set; with ``rearm_after_fall`` the fault is cleared and the sweep
 goes on with the next set once the board's interlock would allow arming again (within
@@ -134,7 +140,7 @@ def run_sweep(link, gain_sets, *, loop: str | None = None, amplitudes=(0.02, 0.0
               repeats: int = 3, kind: str = "pulse", at: str = "body", width_s: float = 0.1,
               settle_s: float = 2.0, pre_s: float = 0.5, alternate_sign: bool = True,
               band_noise: float = 3.0, band_min: float = 1e-6, rearm_after_fall: bool = False,
-              rearm_wait_s: float = 10.0,
+              rearm_wait_s: float = 10.0, baseline: Mapping[str, float] | None = None,
               cancel=None, progress=None, results_dir=None,
               guards: Guards | None = None) -> SweepResult:
     """Run the sweep (see the module docstring); returns a SweepResult."""
@@ -159,6 +165,10 @@ def run_sweep(link, gain_sets, *, loop: str | None = None, amplitudes=(0.02, 0.0
     loop = _pick_loop(link, sets, loop)
     ls = loop_signals(link, loop)
     original = link.get(*touched)
+    base = {k: float(original[k]) for k in touched}
+    if baseline is not None:
+        base.update({k: float(v) for k, v in baseline.items() if k in base})
+    sets = [GainSet(s.name, {**base, **s.values}) for s in sets]
     results = [SetResult(s.name, dict(s.values), {}) for s in sets]
     experiments, stop, detail = [], "done", ""
     total = len(sets) * len(amplitudes) * repeats

@@ -1,4 +1,5 @@
-"""Gain profiles: one loop's gain set (plus limits) in a YAML file people keep.
+"""Gain profiles: a gain set of one loop, or of several loops that run together (a cascade),
+plus limits, in a YAML file people keep.
 
 The schema is documented in profiles/README.md. ``load_profile`` reads a file strictly
 (unknown keys and bad values raise ``SchemaError`` with file, line and field),
@@ -28,12 +29,14 @@ __all__ = ["PROFILE_VERSION", "SOURCES", "PREDICTED_KEYS", "Setting", "Provenanc
            "dump_profile", "save_profile", "check_against_board", "profile_from_board",
            "read_values"]
 
-PROFILE_VERSION = 1
+PROFILE_VERSION = 2          # written when a profile holds several loops
+READ_VERSIONS = (1, 2)       # format 1: one loop (``loop:``); 2 adds ``loops:``
 SOURCES = ("rule", "design", "manual", "pulled", "sweep")
 PREDICTED_KEYS = ("gain_margin_db", "gain_margin_lower_db", "phase_margin_deg",
                   "target_phase_margin_deg", "delay_margin_s", "ms", "crossover_rad_s")
-_TOP_REQUIRED = ("profile", "name", "rig", "loop", "gains", "provenance")
+_TOP_REQUIRED = ("profile", "name", "rig", "gains", "provenance")
 _TOP_OPTIONAL = ("board", "limits", "notes", "demo")
+# format 1 names its one loop with ``loop``; format 2 names every loop with ``loops``
 _NAME, _WORD = NAME_RE.pattern, WORD_RE.pattern  # protocol tokens (PROTOCOL.md §3)
 _METHOD = r"[a-z0-9][a-z0-9._-]{0,63}"
 
@@ -64,6 +67,10 @@ class Provenance:
 
 @dataclass(frozen=True)
 class Profile:
+    """A gain set. ``loop`` is the loop the set was made for (the one tuned); ``loops`` every
+    loop whose complete gain set it holds, ``loop`` first — several for a cascade such as a
+    tilt loop with its wheel-speed trim loop, pushed together as one atomic ``set``."""
+
     name: str
     rig: str
     loop: str
@@ -74,6 +81,17 @@ class Profile:
     notes: str | None = None
     demo: bool = False
     path: str | None = field(default=None, compare=False)
+    loops: tuple[str, ...] = ()
+
+    def __post_init__(self):
+        others = self.loops if len(self.loops) > 1 else ()  # replace(loop=...) of a
+        loops = tuple(dict.fromkeys((self.loop, *others)))       # one-loop set renames it
+        object.__setattr__(self, "loops", loops)
+
+    @property
+    def version(self) -> int:
+        """The file format this profile needs: 1 for one loop, 2 for several."""
+        return 1 if len(self.loops) == 1 else 2
 
     def settings(self) -> dict[str, Setting]:
         """Gains then limits, in file order: everything a push sends."""
@@ -100,12 +118,19 @@ def load_profile_text(text: str, path: str = "<text>") -> Profile:
 
 def _read(root: Cursor, path: str) -> Profile:
     root.expect_mapping()
+    version = 1
     if "profile" in root.value:  # check the format version before complaining about keys
         version_c = MapCursor(root)["profile"]
-        if version_c.integer(minimum=1) != PROFILE_VERSION:
+        version = version_c.integer(minimum=1)
+        if version not in READ_VERSIONS:
             raise version_c.error(f"format version {version_c.value} is not one this "
-                                  f"rigbench reads ({PROFILE_VERSION})")
-    m = root.mapping(_TOP_REQUIRED, _TOP_OPTIONAL)
+                                  f"rigbench reads ({', '.join(map(str, READ_VERSIONS))})")
+    loop_key = "loop" if version == 1 else "loops"
+    m = root.mapping((*_TOP_REQUIRED, loop_key), _TOP_OPTIONAL)
+    if version == 1:
+        loops = (m["loop"].text(pattern=_NAME, what="a loop name"),)
+    else:
+        loops = _loop_list(m["loops"])
     gains = _settings(m["gains"], min_items=1)
     limits = _settings(m["limits"], min_items=0) if "limits" in m else {}
     for name, s in limits.items():
@@ -115,7 +140,8 @@ def _read(root: Cursor, path: str) -> Profile:
     return Profile(
         name=m["name"].text(pattern=r"[^\n\r]{1,80}", what="one line of at most 80 characters"),
         rig=m["rig"].text(pattern=_WORD, what="a rig kind (letters, digits, - _ .)"),
-        loop=m["loop"].text(pattern=_NAME, what="a loop name"),
+        loop=loops[0],
+        loops=loops,
         gains=gains,
         limits=limits,
         provenance=_provenance(m["provenance"]),
@@ -124,6 +150,16 @@ def _read(root: Cursor, path: str) -> Profile:
         demo=m["demo"].boolean() if "demo" in m else False,
         path=path,
     )
+
+
+def _loop_list(cur: Cursor) -> tuple[str, ...]:
+    """``loops: [tilt, trim]``: one or more distinct loop names, the tuned loop first."""
+    if not isinstance(cur.value, list) or not cur.value:
+        raise cur.error("expected a list of one or more loop names, e.g. [tilt, trim]")
+    names = [c.text(pattern=_NAME, what="a loop name") for c in cur.items(min_items=1)]
+    if len(set(names)) != len(names):
+        raise cur.error(f"a loop is named twice in {names}")
+    return tuple(names)
 
 
 def _settings(cur: Cursor, *, min_items: int) -> dict[str, Setting]:
@@ -218,11 +254,14 @@ def _block(text: str, indent: str = "  ") -> str:
 def dump_profile(profile: Profile) -> str:
     """The YAML text of a profile (checked by reading it back before it is returned)."""
     p, pv = profile, profile.provenance
-    out = [f"# rigbench gain profile, format {PROFILE_VERSION} (schema: profiles/README.md)",
-           f"profile: {PROFILE_VERSION}", f"name: {_scalar(p.name)}", f"rig: {_scalar(p.rig)}"]
+    out = [f"# rigbench gain profile, format {p.version} (schema: profiles/README.md)",
+           f"profile: {p.version}", f"name: {_scalar(p.name)}", f"rig: {_scalar(p.rig)}"]
     if p.board is not None:
         out.append(f"board: {_scalar(p.board)}")
-    out.append(f"loop: {_scalar(p.loop)}")
+    if p.version == 1:
+        out.append(f"loop: {_scalar(p.loop)}")
+    else:
+        out.append(f"loops: [{', '.join(_scalar(n) for n in p.loops)}]")
     if p.demo:
         out.append("demo: true")
     for section, items in (("gains", p.gains), ("limits", p.limits)):
@@ -284,11 +323,13 @@ def check_against_board(profile: Profile, params: Mapping[str, ParamInfo],
         if profile.board is not None and info.board != profile.board:
             out.append(Problem("board", f"profile was made on board {profile.board!r}; this is "
                                         f"{info.board!r}", severity="warning"))
-    loop = loops.get(profile.loop)
-    if loop is None:
-        out.append(Problem("loop", f"the board has no loop {profile.loop!r}; it has: "
-                                   f"{', '.join(loops) or 'none'}"))
-    else:
+    for name in profile.loops:
+        loop = loops.get(name)
+        where = "loop" if len(profile.loops) == 1 else "loops"
+        if loop is None:
+            out.append(Problem(where, f"the board has no loop {name!r}; it has: "
+                                      f"{', '.join(loops) or 'none'}"))
+            continue
         missing = [g for g in loop.gains if g not in profile.gains]
         if missing:
             out.append(Problem("gains", f"loop {loop.name!r} has gains "
@@ -323,20 +364,25 @@ def read_values(link, names: Iterable[str]) -> dict[str, float]:
     return {n: float(got[n]) for n in names}
 
 
-def profile_from_board(link, loop: str, *, name: str | None = None, extra: Iterable[str] = (),
+def profile_from_board(link, loop: str, *, also: Iterable[str] = (), name: str | None = None,
+                       extra: Iterable[str] = (),
                        limits: Iterable[str] | None = None,
                        limit_prefixes: tuple[str, ...] = ("trip_", "arm_"),
                        source: str = "pulled", date: str | None = None,
                        notes: str | None = None) -> Profile:
     """The board's current values of ``loop``'s gains (plus ``extra`` parameters) as a profile.
 
+    ``also`` names more loops whose gains go into the same set (a cascade: format 2).
     Limits are ``limits`` when given, else the writable parameters whose names start with
     ``limit_prefixes`` (the protocol gives ``trip_`` and ``arm_`` their meaning, §5.2).
     """
     loops, params, info = link.loops, link.params, link.info
-    if loop not in loops:
-        raise ValueError(f"the board has no loop {loop!r}; it has: {', '.join(loops) or 'none'}")
-    gain_names = list(dict.fromkeys([*loops[loop].gains, *extra]))
+    names = tuple(dict.fromkeys((loop, *also)))
+    for n in names:
+        if n not in loops:
+            raise ValueError(f"the board has no loop {n!r}; it has: "
+                             f"{', '.join(loops) or 'none'}")
+    gain_names = list(dict.fromkeys([*(g for n in names for g in loops[n].gains), *extra]))
     if limits is None:
         limit_names = [n for n, p in params.items() if p.writable and n not in gain_names
                        and n.startswith(tuple(limit_prefixes))]
@@ -351,8 +397,8 @@ def profile_from_board(link, loop: str, *, name: str | None = None, extra: Itera
         return Setting(n, values[n], params[n].unit)
 
     return Profile(
-        name=name or f"{loop} gains read from {info.board}", rig=info.rig, board=info.board,
-        loop=loop, gains={n: setting(n) for n in gain_names},
+        name=name or f"{'+'.join(names)} gains read from {info.board}", rig=info.rig,
+        board=info.board, loop=loop, loops=names, gains={n: setting(n) for n in gain_names},
         limits={n: setting(n) for n in limit_names},
         provenance=Provenance(source=source,
                               date=date or _dt.date.today().isoformat()),
