@@ -1,7 +1,5 @@
 """``rigbench diff A B``: two gain profiles side by side; either may be ``board``, the live
 board's current values of the same parameters (read through ``--port``).
-
-Must not import textual or rigbench.ui.
 """
 
 from __future__ import annotations
@@ -13,6 +11,7 @@ from rigbench.commands.profile_io import (
 )
 from rigbench.profiles.diff import diff_profiles, format_diff
 from rigbench.profiles.model import load_profile, profile_from_board
+from rigbench.commands._common import help_text
 
 NAME = "diff"
 BOARD = "board"
@@ -20,7 +19,7 @@ BOARD = "board"
 
 def add_parser(subparsers):
     p = subparsers.add_parser(NAME, help="two profiles (or a profile and the board) side by side",
-                              description=__doc__.split("\n\n")[0])
+                              description=help_text(__doc__))
     p.add_argument("a", metavar="A", help="profile file, or 'board'")
     p.add_argument("b", metavar="B", help="profile file, or 'board'")
     p.add_argument("--changes-only", action="store_true", help="hide unchanged values")

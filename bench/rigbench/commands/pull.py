@@ -1,7 +1,5 @@
 """``rigbench pull -o PROFILE``: the board's current gains of one loop (and its trip and arm
 limits) written as a gain profile, atomically.
-
-Must not import textual or rigbench.ui.
 """
 
 from __future__ import annotations
@@ -13,13 +11,14 @@ from rigbench.commands.profile_io import (
     EXIT_OK, EXIT_USAGE, add_json, add_port, fail, guarded, open_link,
 )
 from rigbench.profiles.model import profile_from_board, save_profile
+from rigbench.commands._common import help_text
 
 NAME = "pull"
 
 
 def add_parser(subparsers):
     p = subparsers.add_parser(NAME, help="the board's gains as a profile",
-                              description=__doc__.split("\n\n")[0])
+                              description=help_text(__doc__))
     p.add_argument("-o", "--output", required=True, metavar="PROFILE",
                    help="profile file to write")
     p.add_argument("--loop", metavar="NAME",

@@ -3,8 +3,6 @@
 
 Refused profiles (unknown parameter, unit or range mismatch, read-only, wrong loop or rig,
 board busy in a relay/open/inject mode) send nothing. Never arms or disarms.
-
-Must not import textual or rigbench.ui.
 """
 
 from __future__ import annotations
@@ -18,13 +16,14 @@ from rigbench.profiles.push import push_profile
 from rigbench.profiles.diff import format_diff
 from rigbench.profiles.model import load_profile
 from rigbench.wire.describe import format_value
+from rigbench.commands._common import help_text
 
 NAME = "push"
 
 
 def add_parser(subparsers):
     p = subparsers.add_parser(NAME, help="check, send, read back (and save) a gain profile",
-                              description=__doc__.split("\n\n")[0])
+                              description=help_text(__doc__))
     p.add_argument("profile", metavar="PROFILE", help="gain profile YAML file")
     add_port(p)
     p.add_argument("--persist", action="store_true",

@@ -1,16 +1,16 @@
 """``rigbench report DIR|RECORDING.csv``: a Markdown summary and PNG plots from a results
-folder (``rigbench run``) or from one recording with its YAML sidecar (rigbench.reports.report).
+folder (``rigbench run``) or from one recording with its YAML sidecar.
+
+The report itself: rigbench.reports.report.
 
 Needs matplotlib (``pip install 'rigbench[plots]'``); without it the command says so and
 exits 2. Exit 2 too for a path that is neither a results folder nor a readable recording.
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations
 
 from rigbench.base.stops import EXIT_OK, EXIT_USAGE  # noqa: F401
-from rigbench.commands._common import CommandError
+from rigbench.commands._common import CommandError, help_text
 
 from rigbench.commands._common import add_json_option, print_json
 
@@ -18,9 +18,9 @@ from rigbench.commands._common import add_json_option, print_json
 def add_parser(subparsers):
     p = subparsers.add_parser("report", help="Markdown summary and PNG plots of a results "
                                              "folder or a recording",
-                              description=__doc__.split("\n\n")[0])
+                              description=help_text(__doc__))
     p.add_argument("path", metavar="DIR|RECORDING.csv",
-                   help="results folder of `rigbench run`, or a recording's CSV file")
+                   help="results folder of rigbench run, or a recording's CSV file")
     p.add_argument("--out", default=None, metavar="DIR",
                    help="where to write summary.md and the PNG files (default: the results "
                         "folder itself, or NAME-report/ beside a recording)")

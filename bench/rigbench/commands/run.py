@@ -9,8 +9,6 @@ folder cannot be used; 3 link; 4 the board refused a command or to arm; 5 a guar
 a step ran over its timeout_s, or the board tripped (motor off); 6 a check failed or a step
 could not produce its result; 130 interrupted. Whatever the outcome, the motor is off at
 the end (rigbench.sequences.run).
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations
@@ -18,7 +16,7 @@ from __future__ import annotations
 import sys
 
 from rigbench.base.stops import exit_code_for, EXIT_CHECK, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_LINK, EXIT_OK, EXIT_REFUSED, EXIT_TRIP, EXIT_USAGE  # noqa: F401
-from rigbench.commands._common import DEFAULT_PORT, CommandError
+from rigbench.commands._common import CommandError, DEFAULT_PORT, help_text
 from rigbench.sequences.file import load_sequence
 from rigbench.sequences.results import summary_dict
 from rigbench.sequences.run import (
@@ -35,7 +33,7 @@ from rigbench.commands._common import add_json_option, print_json
 
 def add_parser(subparsers):
     p = subparsers.add_parser("run", help="run a scripted test sequence and write its results",
-                              description=__doc__.split("\n\n")[0])
+                              description=help_text(__doc__))
     p.add_argument("sequence", metavar="SEQUENCE", help="sequence YAML file")
     p.add_argument("--port", default=None, metavar="URL",
                    help="device path, pyserial URL or sim://... (default: the sequence's "

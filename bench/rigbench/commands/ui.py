@@ -9,12 +9,12 @@ Imports Textual only when the command runs (rigbench.cli must not import it at l
 
 from __future__ import annotations
 
-from rigbench.commands._common import add_port_option
+from rigbench.commands._common import add_port_option, help_text
 
 
 def add_parser(subparsers):
     p = subparsers.add_parser("ui", help="the terminal UI (default when no command is given)",
-                              description=__doc__.split("\n\n")[0])
+                              description=help_text(__doc__))
     add_port_option(p)
     p.add_argument("--stream-hz", type=float, default=250.0, metavar="HZ",
                    help="telemetry rate asked of the board for the live view (default 250; "

@@ -1,7 +1,7 @@
 """``rigbench watch``: stream telemetry to the terminal as aligned columns, or record it to
-a CSV file (with its YAML sidecar, rigbench.recordings.recording) for a number of seconds or until Ctrl-C.
+a CSV recording with its YAML sidecar, for a number of seconds or until Ctrl-C.
 
-Must not import Textual or rigbench.ui.
+The recording's format and its writer: rigbench.recordings.recording.
 """
 
 from __future__ import annotations
@@ -9,7 +9,7 @@ from __future__ import annotations
 import math
 
 from rigbench.base.stops import EXIT_USAGE  # noqa: F401
-from rigbench.commands._common import CommandError
+from rigbench.commands._common import CommandError, help_text
 from rigbench.recordings.recording import Recorder, RecordingError
 
 from rigbench.commands._common import add_port_option, open_link
@@ -17,7 +17,7 @@ from rigbench.commands._common import add_port_option, open_link
 
 def add_parser(subparsers):
     p = subparsers.add_parser("watch", help="stream telemetry to the terminal or a CSV file",
-                              description=__doc__.split("\n\n")[0])
+                              description=help_text(__doc__))
     add_port_option(p)
     p.add_argument("--seconds", type=float, default=None, metavar="N",
                    help="how long to watch, in the board's time (default: until Ctrl-C)")
