@@ -12,12 +12,8 @@ __all__ = ["__version__"]
 
 def __getattr__(name: str):
     if name == "__version__":
-        from importlib.metadata import PackageNotFoundError, version
+        from rigbench.base.version import package_version
 
-        try:
-            value = version("rigbench")
-        except PackageNotFoundError:  # run from a source tree that was never installed
-            value = "0+unknown"
-        globals()["__version__"] = value
+        value = globals()["__version__"] = package_version()
         return value
     raise AttributeError(f"module 'rigbench' has no attribute {name!r}")

@@ -1,14 +1,19 @@
 """``rigbench pull -o PROFILE``: the board's current gains of one loop (and its trip and arm
 limits) written as a gain profile, atomically.
+
+``-o -`` writes the profile to standard output (the confirmation line then goes to standard
+error; ``--json`` cannot share standard output with it).
 """
 
 from __future__ import annotations
 
 import json
 import os
+import sys
 
 from rigbench.commands.profile_io import (
-    EXIT_OK, EXIT_USAGE, add_json, add_port, fail, guarded, open_link,
+    EXIT_OK, EXIT_USAGE, STDIO, add_json, add_port, fail, guarded, open_link,
+    write_profile_stdout,
 )
 from rigbench.profiles.model import profile_from_board, save_profile
 from rigbench.commands._common import help_text
@@ -20,7 +25,7 @@ def add_parser(subparsers):
     p = subparsers.add_parser(NAME, help="the board's gains as a profile",
                               description=help_text(__doc__))
     p.add_argument("-o", "--output", required=True, metavar="PROFILE",
-                   help="profile file to write")
+                   help="profile file to write, or - for standard output")
     p.add_argument("--loop", metavar="NAME",
                    help="loop whose gains to read (needed when the board has several)")
     p.add_argument("--param", action="append", default=[], metavar="NAME",
@@ -34,7 +39,11 @@ def add_parser(subparsers):
 
 def run(args) -> int:
     def body():
-        if os.path.exists(args.output) and not args.force:
+        to_stdout = args.output == STDIO
+        if to_stdout and args.json:
+            return fail(args, EXIT_USAGE, "-o - and --json both write to standard output: "
+                        "choose one")
+        if not to_stdout and os.path.exists(args.output) and not args.force:
             return fail(args, EXIT_USAGE, f"{args.output} exists; give --force to replace it")
         with open_link(args.port) as link:
             loop = args.loop
@@ -51,6 +60,11 @@ def run(args) -> int:
                 return fail(args, EXIT_USAGE, f"the board has no parameter "
                             f"{', '.join(unknown)}")
             profile = profile_from_board(link, loop, name=args.name, extra=args.param)
+        if to_stdout:
+            write_profile_stdout(profile)
+            print(f"wrote the profile to standard output: loop {loop} of {profile.board}",
+                  file=sys.stderr)
+            return EXIT_OK
         save_profile(profile, args.output)
         if args.json:
             print(json.dumps({"ok": True, "output": args.output, "loop": loop,

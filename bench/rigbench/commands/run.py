@@ -34,7 +34,9 @@ from rigbench.commands._common import add_json_option, print_json
 def add_parser(subparsers):
     p = subparsers.add_parser("run", help="run a scripted test sequence and write its results",
                               description=help_text(__doc__))
-    p.add_argument("sequence", metavar="SEQUENCE", help="sequence YAML file")
+    p.add_argument("sequence", metavar="SEQUENCE",
+                   help="sequence YAML file (a file, not -: it names profiles relative to its "
+                        "own folder)")
     p.add_argument("--port", default=None, metavar="URL",
                    help="device path, pyserial URL or sim://... (default: the sequence's "
                         f"port:, else {DEFAULT_PORT})")
@@ -65,6 +67,9 @@ def step_line(step, project, sequence_guards=None) -> str:
 
 
 def run(args) -> int:
+    if args.sequence == "-":
+        raise CommandError(EXIT_USAGE, "a sequence cannot be read from standard input: it names "
+                           "its profiles relative to its own folder; give its file")
     try:
         seq = load_sequence(args.sequence)
         steps = check_runnable(seq)
@@ -114,12 +119,11 @@ def _printer(out):
 
 
 def _plots(folder, out) -> list[str]:
-    from rigbench.reports.report import PlotsUnavailable, make_report
+    from rigbench.reports.report import make_report
 
-    try:
-        report = make_report(folder)
-    except PlotsUnavailable as exc:
-        print(f"plots: {exc}", file=out)
+    report = make_report(folder)
+    if report.plots_unavailable:
+        print(f"plots: {report.plots_unavailable}", file=out)
         return []
     print(f"plots: {len(report.plots)} PNG files in {folder}", file=out)
     return [p.path.name for p in report.plots]
