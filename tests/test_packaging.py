@@ -176,3 +176,10 @@ def test_examples_command(tmp_path, capsys):
     assert main(["examples", str(tmp_path / "d")]) == 2
     err = capsys.readouterr().err
     assert "PROTOCOL.md" in err and "--force" in err and err.count("\n") == 1
+
+
+def test_ci_finds_the_lowest_declared_textual():
+    out = subprocess.run([sys.executable, str(ROOT / "scripts" / "textual_floor.py")],
+                         capture_output=True, text=True, timeout=60).stdout.strip()
+    dep = next(d for d in PYPROJECT["project"]["dependencies"] if d.startswith("textual"))
+    assert out and f">={out}" in dep.replace(" ", "")
