@@ -183,3 +183,28 @@ def test_ci_finds_the_lowest_declared_textual():
                          capture_output=True, text=True, timeout=60).stdout.strip()
     dep = next(d for d in PYPROJECT["project"]["dependencies"] if d.startswith("textual"))
     assert out and f">={out}" in dep.replace(" ", "")
+
+
+@pytest.mark.skipif(not _setuptools_ok() or shutil.which("git") is None
+                    or not (ROOT / ".git").exists(),
+                    reason="needs setuptools>=77, wheel and a git checkout")
+def test_the_sdist_holds_every_tracked_file(tmp_path):
+    tracked = subprocess.run(["git", "ls-files"], cwd=ROOT, capture_output=True, text=True,
+                             check=True).stdout.split()
+    tracked = [f for f in tracked if (ROOT / f).is_file()]  # not deleted, not yet committed
+    src = tmp_path / "src"
+    for name in tracked:
+        (src / name).parent.mkdir(parents=True, exist_ok=True)
+        shutil.copy2(ROOT / name, src / name)
+    _run(["-c", "from setuptools import build_meta as b; b.build_sdist('dist')"], cwd=src,
+         env=dict(os.environ, PIP_NO_INDEX="1"))
+    import tarfile
+
+    with tarfile.open(next((src / "dist").glob("rigbench-*.tar.gz"))) as tar:
+        names = {n.split("/", 1)[1] for n in tar.getnames() if "/" in n}
+    missing = sorted(set(tracked) - names - {".gitignore"})
+    assert not missing, missing
+    for needed in ("LICENSE", "tests/conftest.py", ".ci/run", "setup.py", "MANIFEST.in",
+                   "protocol/board-c/src/rb_board.c", "protocol/vectors/frames.json"):
+        assert needed in names, needed
+    assert any(n.startswith("tests/fixtures/") for n in names)
