@@ -2,14 +2,15 @@
 
     from rigbench.api import Link, run_relay, propose, load_recording
 
-    with Link.open("sim://wheel?clock=virtual") as link:   # or "/dev/ttyACM0"
+    with Link.open("sim://wheel?clock=virtual") as link:   # the simulated wheel rig
         run = run_relay(link, "speed", results_dir="results/api-demo")
         best = propose(run).best()
 
 - ``Link.open(url)`` opens a port (device path, any pyserial URL, ``sim://``, ``replay://``)
   and handshakes; ``with`` closes it (the motor state is left as the board has it).
   Errors: ``LinkError`` (port, lost link, no reply), ``BoardRefused`` (the board said no).
-- ``run_relay(link, loop, ...)`` runs a guarded relay test and returns a ``RelayRun``:
+- ``run_relay(link, loop, ...)`` arms the board and runs a guarded relay test (on a real
+  rig it moves the motor: ask the user first); it returns a ``RelayRun``:
   ``converged``, ``ku``, ``tu_s`` (s), ``point`` (gain, ``phase_deg``, ``omega_rad_s``);
   with ``results_dir`` its telemetry is recorded (``run.experiment.recording``).
 - ``propose(run)`` returns a ``ProposalSet``: ``proposals`` (each with ``rule``, ``kp``,
