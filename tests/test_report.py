@@ -14,7 +14,7 @@ import yaml
 
 from rigbench.cli import main
 from rigbench.recordings.recording import load_recording
-from rigbench.reports.report import PlotsUnavailable, make_report
+from rigbench.reports.report import make_report
 
 pytest.importorskip("matplotlib")
 
@@ -127,7 +127,7 @@ def test_report_on_one_recording(relay_run, tmp_path, capsys):
     assert "| y | 1 |" in md and _png(tmp_path / "r" / "sweep-main-signals.png")
 
 
-def test_without_matplotlib_the_report_says_what_to_install(relay_run, tmp_path, monkeypatch,
+def test_without_matplotlib_the_report_writes_the_summary_and_says_what_to_install(relay_run, tmp_path, monkeypatch,
                                                              capsys):
     out, _, _ = relay_run
     real_import = builtins.__import__
@@ -140,11 +140,17 @@ def test_without_matplotlib_the_report_says_what_to_install(relay_run, tmp_path,
     for mod in [m for m in sys.modules if m == "matplotlib" or m.startswith("matplotlib.")]:
         monkeypatch.delitem(sys.modules, mod)
     monkeypatch.setattr(builtins, "__import__", no_matplotlib)
-    with pytest.raises(PlotsUnavailable, match=r"rigbench\[plots\]"):
-        make_report(out, out=tmp_path / "x")
-    assert not (tmp_path / "x").exists()
-    assert main(["report", str(out)]) == 2
-    assert "rigbench[plots]" in capsys.readouterr().err
+    # the summary is written all the same, without plots; the hint works for pip and pipx
+    report = make_report(out, out=tmp_path / "x")
+    assert report.plots == [] and not list((tmp_path / "x").glob("*.png"))
+    assert "rigbench[plots]" in report.plots_unavailable
+    assert "pipx inject rigbench matplotlib" in report.plots_unavailable
+    md = (tmp_path / "x" / "summary.md").read_text()
+    assert "relay" in md and "![" not in md
+    assert main(["report", str(out), "--out", str(tmp_path / "y")]) == 0
+    captured = capsys.readouterr()
+    assert (tmp_path / "y" / "summary.md").is_file() and "summary" in captured.out
+    assert "rigbench[plots]" in captured.err and captured.err.count("\n") == 1
 
 
 def test_report_refuses_what_it_cannot_read(tmp_path, capsys):

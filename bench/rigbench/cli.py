@@ -18,8 +18,6 @@ Exit codes (``EXIT_CODES``):
     5    a guard tripped or a safety stop ended the run
     6    a check failed (a verification or comparison came out wrong)
     130  interrupted (Ctrl-C) before the command finished
-
-Must not import Textual at module level (commands that need it import it themselves).
 """
 
 from __future__ import annotations
@@ -34,11 +32,12 @@ from rigbench.base.stops import (  # noqa: F401
     EXIT_CHECK, EXIT_CODES, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_LINK, EXIT_OK, EXIT_REFUSED,
     EXIT_TRIP, EXIT_USAGE,
 )
+from rigbench.base.version import package_version
 from rigbench.commands._common import DEFAULT_PORT, CommandError  # noqa: F401
 
 # Subcommand modules under bench/rigbench/commands/, in the order --help shows them.
 COMMANDS = ["ui", "ports", "info", "watch", "kill", "sim", "tune", "sweep", "push", "pull",
-            "diff", "run", "report"]
+            "diff", "run", "report", "examples"]
 DEFAULT_COMMAND = "ui"  # what plain ``rigbench`` runs
 
 
@@ -61,6 +60,8 @@ def build_parser(only: str | None = None) -> Parser:
                     epilog="exit codes: " + "; ".join(f"{k} {v.split(':')[0].split(' (')[0]}"
                                                       for k, v in EXIT_CODES.items()))
     parser.add_argument("--debug", action="store_true", help="show tracebacks of errors")
+    parser.add_argument("--version", action="version", version=f"rigbench {package_version()}",
+                        help="print the version and exit")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
     for name in COMMANDS:
         if only is not None and name != only:
@@ -107,7 +108,7 @@ def main(argv: list[str] | None = None) -> int:
     argv = sys.argv[1:] if argv is None else list(argv)
     debug = "--debug" in argv
     if (DEFAULT_COMMAND in COMMANDS and not any(tok in COMMANDS for tok in argv)
-            and not any(tok in ("-h", "--help") for tok in argv)):
+            and not any(tok in ("-h", "--help", "--version") for tok in argv)):
         # `rigbench --port /dev/ttyACM0` means the default command with that option
         argv = [DEFAULT_COMMAND] + [tok for tok in argv if tok != "--debug"] + (
             ["--debug"] if debug else [])

@@ -1,4 +1,4 @@
-"""Collected only when named on the command line (tests/board_c/test_same_host_tests.py):
+"""Collected only when named on the command line (the RIGBENCH_TEST_BOARD=c step of .ci/run):
 proves a run with RIGBENCH_TEST_BOARD=c really talks to the C board library."""
 
 import os

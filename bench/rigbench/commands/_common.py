@@ -1,7 +1,5 @@
 """Helpers shared by the subcommand modules: the ``--port`` and ``--json`` options, opening
 a link with the right errors, JSON output.
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations
@@ -9,6 +7,7 @@ from __future__ import annotations
 import argparse
 import json
 import math
+import re
 import sys
 from dataclasses import asdict, is_dataclass
 
@@ -23,6 +22,14 @@ class CommandError(Exception):
     def __init__(self, code: int, message: str) -> None:
         super().__init__(message)
         self.code = code
+
+
+def help_text(doc: str | None) -> str:
+    """The first paragraph of a command module's docstring as plain words for ``--help``:
+    no reST markup (double backquotes, roles), whitespace folded."""
+    first = (doc or "").strip().split("\n\n")[0]
+    first = re.sub(r":[a-z]+:`([^`]*)`", r"\1", first)
+    return " ".join(first.replace("``", "").replace("`", "").split())
 
 
 def add_port_option(parser: argparse.ArgumentParser) -> None:

@@ -1,7 +1,5 @@
 """``rigbench diff A B``: two gain profiles side by side; either may be ``board``, the live
 board's current values of the same parameters (read through ``--port``).
-
-Must not import textual or rigbench.ui.
 """
 
 from __future__ import annotations
@@ -9,10 +7,11 @@ from __future__ import annotations
 import json
 
 from rigbench.commands.profile_io import (
-    EXIT_OK, EXIT_USAGE, add_json, add_port, fail, guarded, open_link,
+    EXIT_OK, EXIT_USAGE, STDIO, add_json, add_port, fail, guarded, open_link, read_profile,
 )
 from rigbench.profiles.diff import diff_profiles, format_diff
-from rigbench.profiles.model import load_profile, profile_from_board
+from rigbench.profiles.model import profile_from_board
+from rigbench.commands._common import help_text
 
 NAME = "diff"
 BOARD = "board"
@@ -20,9 +19,9 @@ BOARD = "board"
 
 def add_parser(subparsers):
     p = subparsers.add_parser(NAME, help="two profiles (or a profile and the board) side by side",
-                              description=__doc__.split("\n\n")[0])
-    p.add_argument("a", metavar="A", help="profile file, or 'board'")
-    p.add_argument("b", metavar="B", help="profile file, or 'board'")
+                              description=help_text(__doc__))
+    p.add_argument("a", metavar="A", help="profile file, 'board', or - for standard input")
+    p.add_argument("b", metavar="B", help="profile file, 'board', or - for standard input")
     p.add_argument("--changes-only", action="store_true", help="hide unchanged values")
     add_port(p)
     add_json(p)
@@ -33,8 +32,10 @@ def run(args) -> int:
     def body():
         if args.a == BOARD and args.b == BOARD:
             return fail(args, EXIT_USAGE, "give at least one profile file")
-        a = None if args.a == BOARD else load_profile(args.a)
-        b = None if args.b == BOARD else load_profile(args.b)
+        if args.a == STDIO and args.b == STDIO:
+            return fail(args, EXIT_USAGE, "only one of A and B can be - (standard input)")
+        a = None if args.a == BOARD else read_profile(args.a)
+        b = None if args.b == BOARD else read_profile(args.b)
         if a is None or b is None:
             ref = a or b
             with open_link(args.port) as link:
@@ -60,6 +61,8 @@ def run(args) -> int:
 
 
 def _label(arg: str) -> str:
+    if arg == STDIO:
+        return "stdin"
     return "board" if arg == BOARD else arg.rsplit("/", 1)[-1].removesuffix(".yaml")
 
 

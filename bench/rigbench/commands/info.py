@@ -6,20 +6,20 @@ telemetry order), ``loops`` (by name), ``status`` (latest status frame or null),
 ``health`` (link counters). Values are in the board's declared units. A loop's optional
 fields (PROTOCOL.md §5.4: ``setpoint``, ``limit``, ``dfilt``, ``rate``, ``action``) are null
 when the board does not declare them.
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations
 
 from rigbench.wire.describe import LOOP_OPTIONAL
 
-from rigbench.commands._common import add_json_option, add_port_option, open_link, plain, print_json, table
+from rigbench.commands._common import (
+    add_json_option, add_port_option, help_text, open_link, plain, print_json, table,
+)
 
 
 def add_parser(subparsers):
     p = subparsers.add_parser("info", help="handshake; identity, parameters, signals, loops, "
-                              "link health", description=__doc__.split("\n\n")[0])
+                              "link health", description=help_text(__doc__))
     add_port_option(p)
     add_json_option(p)
     p.add_argument("--listen", type=float, default=0.5, metavar="S",

@@ -2,13 +2,13 @@
 framed ``kill``, and confirm that the board reports its motor off or tripped.
 
 A software kill is a stop, not an emergency stop: keep a hardware cut-off of motor power
-within reach. Must not import Textual or rigbench.ui.
+within reach.
 """
 
 from __future__ import annotations
 
 from rigbench.base.stops import EXIT_CHECK, EXIT_LINK  # noqa: F401
-from rigbench.commands._common import CommandError
+from rigbench.commands._common import CommandError, help_text
 from rigbench.link import LinkError
 
 from rigbench.commands._common import add_json_option, add_port_option, open_link, print_json
@@ -18,7 +18,7 @@ NOTE = "a software kill is not an emergency stop: keep the hardware cut-off with
 
 def add_parser(subparsers):
     p = subparsers.add_parser("kill", help="send the kill and confirm the motor is off",
-                              description=__doc__.split("\n\n")[0])
+                              description=help_text(__doc__))
     add_port_option(p)
     add_json_option(p)
     return p

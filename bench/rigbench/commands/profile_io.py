@@ -2,7 +2,7 @@
 their errors (bad file, refused profile, board refusal, link failure) into one line on
 stderr, or one JSON object with ``--json``, and the exit code (bench/rigbench/cli.py).
 
-Must not import textual or rigbench.ui.
+``-`` as a profile file means standard input (read) or standard output (write).
 """
 
 from __future__ import annotations
@@ -15,8 +15,25 @@ from rigbench.base.stops import EXIT_CHECK, EXIT_LINK, EXIT_OK, EXIT_REFUSED, EX
 from rigbench.commands._common import add_json_option as add_json  # noqa: F401
 from rigbench.commands._common import add_port_option as add_port  # noqa: F401
 from rigbench.link import BoardRefused, Link, LinkError
+from rigbench.profiles.model import Profile, dump_profile, load_profile, load_profile_text
 from rigbench.profiles.push import PushRefused
 from rigbench.base.yamlload import SchemaError
+
+
+STDIO = "-"
+STDIN_NAME = "<stdin>"
+
+
+def read_profile(arg: str) -> Profile:
+    """The profile in file ``arg``, or on standard input for ``-`` (named <stdin> in errors)."""
+    if arg == STDIO:
+        return load_profile_text(sys.stdin.read(), STDIN_NAME)
+    return load_profile(arg)
+
+
+def write_profile_stdout(profile: Profile) -> None:
+    sys.stdout.write(dump_profile(profile))
+    sys.stdout.flush()
 
 
 @contextmanager

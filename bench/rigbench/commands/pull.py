@@ -2,27 +2,31 @@
 that run together (``--loop tilt --loop trim``), with its trip and arm limits, written as a
 gain profile, atomically.
 
-Must not import textual or rigbench.ui.
+``-o -`` writes the profile to standard output (the confirmation line then goes to standard
+error; ``--json`` cannot share standard output with it).
 """
 
 from __future__ import annotations
 
 import json
 import os
+import sys
 
 from rigbench.commands.profile_io import (
-    EXIT_OK, EXIT_USAGE, add_json, add_port, fail, guarded, open_link,
+    EXIT_OK, EXIT_USAGE, STDIO, add_json, add_port, fail, guarded, open_link,
+    write_profile_stdout,
 )
 from rigbench.profiles.model import profile_from_board, save_profile
+from rigbench.commands._common import help_text
 
 NAME = "pull"
 
 
 def add_parser(subparsers):
     p = subparsers.add_parser(NAME, help="the board's gains as a profile",
-                              description=__doc__.split("\n\n")[0])
+                              description=help_text(__doc__))
     p.add_argument("-o", "--output", required=True, metavar="PROFILE",
-                   help="profile file to write")
+                   help="profile file to write, or - for standard output")
     p.add_argument("--loop", action="append", default=[], metavar="NAME",
                    help="loop whose gains to read (needed when the board has several); "
                         "repeat it for a cascade, the tuned loop first")
@@ -37,7 +41,11 @@ def add_parser(subparsers):
 
 def run(args) -> int:
     def body():
-        if os.path.exists(args.output) and not args.force:
+        to_stdout = args.output == STDIO
+        if to_stdout and args.json:
+            return fail(args, EXIT_USAGE, "-o - and --json both write to standard output: "
+                        "choose one")
+        if not to_stdout and os.path.exists(args.output) and not args.force:
             return fail(args, EXIT_USAGE, f"{args.output} exists; give --force to replace it")
         with open_link(args.port) as link:
             chosen = list(dict.fromkeys(args.loop))
@@ -57,6 +65,11 @@ def run(args) -> int:
                             f"{', '.join(unknown)}")
             profile = profile_from_board(link, loop, also=chosen[1:], name=args.name,
                                          extra=args.param)
+        if to_stdout:
+            write_profile_stdout(profile)
+            print(f"wrote the profile to standard output: loop {'+'.join(profile.loops)} of "
+                  f"{profile.board}", file=sys.stderr)
+            return EXIT_OK
         save_profile(profile, args.output)
         if args.json:
             print(json.dumps({"ok": True, "output": args.output, "loop": loop,

@@ -3,8 +3,6 @@
 
 Refused profiles (unknown parameter, unit or range mismatch, read-only, wrong loop or rig,
 board busy in a relay/open/inject mode) send nothing. Never arms or disarms.
-
-Must not import textual or rigbench.ui.
 """
 
 from __future__ import annotations
@@ -12,20 +10,20 @@ from __future__ import annotations
 import json
 
 from rigbench.commands.profile_io import (
-    EXIT_CHECK, EXIT_OK, add_json, add_port, guarded, open_link, problem_dict,
+    EXIT_CHECK, EXIT_OK, add_json, add_port, guarded, open_link, problem_dict, read_profile,
 )
 from rigbench.profiles.push import push_profile
 from rigbench.profiles.diff import format_diff
-from rigbench.profiles.model import load_profile
 from rigbench.wire.describe import format_value
+from rigbench.commands._common import help_text
 
 NAME = "push"
 
 
 def add_parser(subparsers):
     p = subparsers.add_parser(NAME, help="check, send, read back (and save) a gain profile",
-                              description=__doc__.split("\n\n")[0])
-    p.add_argument("profile", metavar="PROFILE", help="gain profile YAML file")
+                              description=help_text(__doc__))
+    p.add_argument("profile", metavar="PROFILE", help="gain profile YAML file, or - to read it from standard input")
     add_port(p)
     p.add_argument("--persist", action="store_true",
                    help="save to the board's non-volatile memory and verify the CRC")
@@ -37,7 +35,7 @@ def add_parser(subparsers):
 
 def run(args) -> int:
     def body():
-        profile = load_profile(args.profile)
+        profile = read_profile(args.profile)
         with open_link(args.port) as link:
             report = push_profile(link, profile, persist=args.persist, dry_run=args.dry_run)
             url, info = link.url, link.info

@@ -1,16 +1,20 @@
 """``rigbench report DIR|RECORDING.csv``: a Markdown summary and PNG plots from a results
-folder (``rigbench run``) or from one recording with its YAML sidecar (rigbench.reports.report).
+folder (``rigbench run``) or from one recording with its YAML sidecar.
 
-Needs matplotlib (``pip install 'rigbench[plots]'``); without it the command says so and
-exits 2. Exit 2 too for a path that is neither a results folder nor a readable recording.
+The report itself: rigbench.reports.report.
 
-Must not import Textual or rigbench.ui.
+The plots need matplotlib; without it the summary is still written, and the command says
+how to add the plots (``pip install 'rigbench[plots]'``, or ``pipx inject rigbench
+matplotlib`` for a pipx install) and exits 0. Exit 2 for a path that is neither a results
+folder nor a readable recording.
 """
 
 from __future__ import annotations
 
+import sys
+
 from rigbench.base.stops import EXIT_OK, EXIT_USAGE  # noqa: F401
-from rigbench.commands._common import CommandError
+from rigbench.commands._common import CommandError, help_text
 
 from rigbench.commands._common import add_json_option, print_json
 
@@ -18,9 +22,9 @@ from rigbench.commands._common import add_json_option, print_json
 def add_parser(subparsers):
     p = subparsers.add_parser("report", help="Markdown summary and PNG plots of a results "
                                              "folder or a recording",
-                              description=__doc__.split("\n\n")[0])
+                              description=help_text(__doc__))
     p.add_argument("path", metavar="DIR|RECORDING.csv",
-                   help="results folder of `rigbench run`, or a recording's CSV file")
+                   help="results folder of rigbench run, or a recording's CSV file")
     p.add_argument("--out", default=None, metavar="DIR",
                    help="where to write summary.md and the PNG files (default: the results "
                         "folder itself, or NAME-report/ beside a recording)")
@@ -29,12 +33,10 @@ def add_parser(subparsers):
 
 
 def run(args) -> int:
-    from rigbench.reports.report import PlotsUnavailable, ReportError, make_report
+    from rigbench.reports.report import ReportError, make_report
 
     try:
         report = make_report(args.path, out=args.out)
-    except PlotsUnavailable as exc:
-        raise CommandError(EXIT_USAGE, str(exc)) from None
     except ReportError as exc:
         raise CommandError(EXIT_USAGE, str(exc)) from None
     except OSError as exc:
@@ -43,6 +45,7 @@ def run(args) -> int:
     if args.json:
         print_json({"ok": True, "source": str(report.source), "out": str(report.out),
                     "summary": str(report.summary_md), "notes": report.notes,
+                    "plots_unavailable": report.plots_unavailable,
                     "plots": [{"file": p.path.name, "caption": p.caption, "kind": p.kind,
                                "recording": p.source} for p in report.plots]})
         return EXIT_OK
@@ -51,4 +54,6 @@ def run(args) -> int:
         print(f"plot     {p.path}  ({p.caption})")
     for n in report.notes:
         print(f"note     {n}")
+    if report.plots_unavailable:
+        print(f"rigbench report: {report.plots_unavailable}", file=sys.stderr)
     return EXIT_OK

@@ -9,8 +9,6 @@ folder cannot be used; 3 link; 4 the board refused a command or to arm; 5 a guar
 a step ran over its timeout_s, or the board tripped (motor off); 6 a check failed or a step
 could not produce its result; 130 interrupted. Whatever the outcome, the motor is off at
 the end (rigbench.sequences.run).
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations
@@ -18,7 +16,7 @@ from __future__ import annotations
 import sys
 
 from rigbench.base.stops import exit_code_for, EXIT_CHECK, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_LINK, EXIT_OK, EXIT_REFUSED, EXIT_TRIP, EXIT_USAGE  # noqa: F401
-from rigbench.commands._common import DEFAULT_PORT, CommandError
+from rigbench.commands._common import CommandError, DEFAULT_PORT, help_text
 from rigbench.sequences.file import load_sequence
 from rigbench.sequences.results import summary_dict
 from rigbench.sequences.run import (
@@ -35,8 +33,10 @@ from rigbench.commands._common import add_json_option, print_json
 
 def add_parser(subparsers):
     p = subparsers.add_parser("run", help="run a scripted test sequence and write its results",
-                              description=__doc__.split("\n\n")[0])
-    p.add_argument("sequence", metavar="SEQUENCE", help="sequence YAML file")
+                              description=help_text(__doc__))
+    p.add_argument("sequence", metavar="SEQUENCE",
+                   help="sequence YAML file (a file, not -: it names profiles relative to its "
+                        "own folder)")
     p.add_argument("--port", default=None, metavar="URL",
                    help="device path, pyserial URL or sim://... (default: the sequence's "
                         f"port:, else {DEFAULT_PORT})")
@@ -67,6 +67,9 @@ def step_line(step, project, sequence_guards=None) -> str:
 
 
 def run(args) -> int:
+    if args.sequence == "-":
+        raise CommandError(EXIT_USAGE, "a sequence cannot be read from standard input: it names "
+                           "its profiles relative to its own folder; give its file")
     try:
         seq = load_sequence(args.sequence)
         steps = check_runnable(seq)
@@ -116,12 +119,11 @@ def _printer(out):
 
 
 def _plots(folder, out) -> list[str]:
-    from rigbench.reports.report import PlotsUnavailable, make_report
+    from rigbench.reports.report import make_report
 
-    try:
-        report = make_report(folder)
-    except PlotsUnavailable as exc:
-        print(f"plots: {exc}", file=out)
+    report = make_report(folder)
+    if report.plots_unavailable:
+        print(f"plots: {report.plots_unavailable}", file=out)
         return []
     print(f"plots: {len(report.plots)} PNG files in {folder}", file=out)
     return [p.path.name for p in report.plots]

@@ -1,15 +1,16 @@
 """``rigbench sim``: serve a simulated board on a pseudo-terminal and print its device path,
 so any program — the rigbench UI in another terminal, a serial monitor, your own script —
-opens it like a real board. Must not import Textual or rigbench.ui.
+opens it like a real board.
 """
 
 from __future__ import annotations
+from rigbench.commands._common import help_text
 
 
 def add_parser(subparsers):
     p = subparsers.add_parser(
         "sim", help="a simulated board on a pseudo-terminal",
-        description=__doc__.split("\n\n")[0],
+        description=help_text(__doc__),
         epilog="examples: rigbench sim;  rigbench sim wheel --link /tmp/rig;  "
                "rigbench sim 'sim://balance?drive=torque&noise=2'")
     p.add_argument("rig", nargs="?", default="balance",

@@ -10,8 +10,6 @@ measure's units for ``--at setpoint`` and the output's for ``--at output``.
 Exit codes: 0 every set went through; 2 a bad --gains or option; 3 link; 4 the board
 refused (e.g. to arm); 5 a set made the rig fall or a guard tripped (motor killed);
 130 interrupted (the rig is left safe first).
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations
@@ -20,7 +18,7 @@ import json
 from pathlib import Path
 
 from rigbench.base.stops import exit_code_for, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_LINK, EXIT_OK, EXIT_TRIP, EXIT_USAGE  # noqa: F401
-from rigbench.commands._common import CommandError
+from rigbench.commands._common import CommandError, help_text
 from rigbench.experiments.sweep import GainSet, run_sweep
 from rigbench.profiles.model import SchemaError, check_against_board, load_profile
 
@@ -32,7 +30,7 @@ METRICS = ("iae", "peak_abs_error", "settling_time_s", "peak_wheel_change", "ita
 
 def add_parser(subparsers):
     p = subparsers.add_parser("sweep", help="disturbance sweep with metrics per gain set",
-                              description=__doc__.split("\n\n")[0])
+                              description=help_text(__doc__))
     add_port_option(p)
     p.add_argument("--gains", action="append", default=[], metavar="FILE|name=v,...",
                    help="a gain profile file, or inline values; repeat for more sets")

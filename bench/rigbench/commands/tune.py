@@ -10,8 +10,6 @@ lost link; at the end the motor is off, or back in the closed loop it was found 
 Exit codes: 0 converged (proposals printed); 3 link; 4 the board refused (e.g. to arm:
 its interlock reasons are printed); 5 a guard or the board tripped (motor killed); 6 no
 sustained cycle formed; 130 interrupted (the rig is left safe first).
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations
@@ -21,7 +19,7 @@ import math
 from pathlib import Path
 
 from rigbench.base.stops import exit_code_for, EXIT_CHECK, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_LINK, EXIT_OK, EXIT_TRIP, EXIT_USAGE  # noqa: F401
-from rigbench.commands._common import CommandError
+from rigbench.commands._common import CommandError, help_text
 from rigbench.experiments.conventions import primary_loop
 from rigbench.experiments.proposals import propose
 from rigbench.experiments.relay import run_relay
@@ -33,7 +31,7 @@ from rigbench.commands._progress import experiment_run
 
 def add_parser(subparsers):
     p = subparsers.add_parser("tune", help="relay test on a loop and gain proposals",
-                              description=__doc__.split("\n\n")[0])
+                              description=help_text(__doc__))
     add_port_option(p)
     p.add_argument("--loop", default=None, metavar="NAME",
                    help="the loop to test; required when the board has more than one (a "

@@ -1,7 +1,9 @@
 """``rigbench watch``: stream telemetry to the terminal as aligned columns, or record it to
-a CSV file (with its YAML sidecar, rigbench.recordings.recording) for a number of seconds or until Ctrl-C.
+a CSV recording with its YAML sidecar, for a number of seconds or until Ctrl-C.
 
-Must not import Textual or rigbench.ui.
+The recording's format and its writer: rigbench.recordings.recording. ``--csv -`` is
+refused: a recording is a CSV file with a YAML sidecar beside it (board, parameters, events),
+which standard output cannot hold; plain ``rigbench watch`` prints columns there.
 """
 
 from __future__ import annotations
@@ -9,7 +11,7 @@ from __future__ import annotations
 import math
 
 from rigbench.base.stops import EXIT_USAGE  # noqa: F401
-from rigbench.commands._common import CommandError
+from rigbench.commands._common import CommandError, help_text
 from rigbench.recordings.recording import Recorder, RecordingError
 
 from rigbench.commands._common import add_port_option, open_link
@@ -17,12 +19,13 @@ from rigbench.commands._common import add_port_option, open_link
 
 def add_parser(subparsers):
     p = subparsers.add_parser("watch", help="stream telemetry to the terminal or a CSV file",
-                              description=__doc__.split("\n\n")[0])
+                              description=help_text(__doc__))
     add_port_option(p)
     p.add_argument("--seconds", type=float, default=None, metavar="N",
                    help="how long to watch, in the board's time (default: until Ctrl-C)")
     p.add_argument("--csv", default=None, metavar="FILE",
-                   help="record to FILE (.csv) and FILE's .yaml sidecar instead of printing")
+                   help="record to FILE (.csv) and FILE's .yaml sidecar instead of printing "
+                        "(a file, not -: without --csv the columns go to standard output)")
     p.add_argument("--rate", type=float, default=None, metavar="HZ",
                    help="telemetry rate to ask the board for (default 20 on the terminal, "
                         "100 for a recording)")
@@ -57,6 +60,10 @@ def run(args) -> int:
         raise CommandError(EXIT_USAGE, "--seconds must be positive")
     if args.every <= 0:
         raise CommandError(EXIT_USAGE, "--every must be positive")
+    if args.csv == "-":
+        raise CommandError(EXIT_USAGE, "--csv -: a recording is a CSV file with a YAML sidecar "
+                           "beside it, which standard output cannot hold; give a file name, "
+                           "or leave out --csv to print columns to standard output")
     with open_link(args) as link:
         if args.csv:
             rate = args.rate if args.rate is not None else 100.0

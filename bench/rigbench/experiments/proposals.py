@@ -37,6 +37,7 @@ Must not import: textual, rigbench.ui, rigbench.commands, control.
 
 from __future__ import annotations
 
+import logging
 import math
 from dataclasses import dataclass, field
 
@@ -53,6 +54,8 @@ from rigbench.base.units import si_factor
 from rigbench.experiments.balancefit import board_plant, fit_from_run, lqr_board_gains, simulate_state_feedback
 from rigbench.experiments.pointmodel import fit_process_model
 from rigbench.experiments.relay import RelayRun
+
+log = logging.getLogger(__name__)
 
 __all__ = ["Rated", "ProposalSet", "propose"]
 
@@ -167,7 +170,8 @@ class _Judge:
             r = simulate_disturbance(ctrl, self.plant, t_end_s=t_end, kind=d["kind"],
                                      amplitude=d["amplitude"], width_s=d["width_s"],
                                      start_s=d["start_s"], at="input", dt_s=t_end / self.steps)
-        except ValueError:
+        except ValueError as exc:
+            log.debug("%s: no disturbance response predicted: %s", item.rule, exc)
             return
         item.response = self.metrics(r.t_s, r.y, r.u)
 

@@ -37,6 +37,7 @@ Must not import: textual, rigbench.ui, rigbench.commands, control.
 
 from __future__ import annotations
 
+import logging
 import math
 import re
 from pathlib import Path
@@ -51,6 +52,8 @@ from rigbench.experiments.guards import (
     STOP_REASONS, ArmRefused, ExperimentResult, ExperimentStopped, Guards, Progress,
     guard_limits,
 )
+
+log = logging.getLogger(__name__)
 
 __all__ = ["Experiment", "ExperimentResult", "ExperimentStopped", "ArmRefused", "Guards",
            "Progress", "STOP_REASONS", "guard_limits"]
@@ -254,8 +257,9 @@ class Experiment:
         self._killed = True
         try:
             self.link.kill()
-        except LinkError:
-            pass  # nothing left to send it on; the board's watchdog turns the motor off
+        except LinkError as exc:
+            # nothing left to send it on; the board's watchdog turns the motor off
+            log.warning("kill not sent (%s); the board's watchdog must stop the motor", exc)
         self._marks.append((self.link.now(), "kill"))
 
     def data(self) -> tuple[np.ndarray, np.ndarray]:
@@ -303,7 +307,8 @@ class Experiment:
                 self._recorder.note(f"stopped by {self._stop[0]}: {self._stop[1]}")
                 self._recorder.close()
             except Exception:  # noqa: BLE001 - a failed recording must not hide the result
-                pass
+                log.error("recording %s could not be closed; it may lack its last rows",
+                          rec_path, exc_info=True)
         motor = None
         try:
             motor = self.link.status().motor

@@ -22,6 +22,7 @@ Must not import rigbench.rig, rigbench.ui or domain modules.
 
 from __future__ import annotations
 
+import logging
 import statistics
 import threading
 from collections import deque
@@ -37,6 +38,8 @@ from rigbench.link.ingest import Ingest
 from rigbench.link.rawtap import RawTap
 from rigbench.link.records import LinkEvent, LinkHealth
 from rigbench.link.waits import Waits
+
+log = logging.getLogger(__name__)
 
 
 class _Slot:
@@ -120,15 +123,15 @@ class Channel:
         if callable(cancel):
             try:
                 cancel()
-            except Exception:  # noqa: BLE001 - a port that cannot cancel still closes
-                pass
+            except Exception as exc:  # noqa: BLE001 - a port that cannot cancel still closes
+                log.debug("%s: cancel_read failed while closing: %r", self.url, exc)
         if self._thread is not None and self._thread is not threading.current_thread():
             self._thread.join(join_s)
         self._closed = True
         try:
             self.port.close()
-        except Exception:  # noqa: BLE001 - closing a vanished port may fail; it is gone anyway
-            pass
+        except Exception as exc:  # noqa: BLE001 - closing a vanished port may fail; it is gone
+            log.debug("%s: closing the port failed: %r", self.url, exc)
         with self._cond:
             self._cond.notify_all()
 

@@ -19,6 +19,7 @@ Must not import rigbench.rig, rigbench.ui or domain modules.
 
 from __future__ import annotations
 
+import logging
 import threading
 from dataclasses import replace
 
@@ -40,6 +41,8 @@ from rigbench.link.errors import (
 )
 from rigbench.link.records import BoardStatus, LinkEvent, LinkHealth, RawLine, SaveResult
 from rigbench.link.ring import TelemetryBlock
+
+log = logging.getLogger(__name__)
 
 _FIXED_CHUNK_SCHEMES = ("socket://", "rfc2217://")  # in_waiting says only 0 or 1
 _REPLY_BUDGET = 150  # bytes of reply body we plan for per ``get`` (frame body max 193)
@@ -185,10 +188,13 @@ class Link:
             except LinkLost:
                 return
             except IncompatibleBoard as exc:
+                log.warning("%s: board restarted as one we cannot talk to: %s", self.url, exc)
                 ch.mark_lost(exc)  # a board we cannot talk to is as good as gone
                 return
-            except (LinkError, BoardRefused):
-                continue  # a board still booting: try again while the flag is up
+            except (LinkError, BoardRefused) as exc:
+                # a board still booting: try again while the flag is up
+                log.debug("%s: handshake after a restart failed, retrying: %s", self.url, exc)
+                continue
             finally:
                 ch.waits.update_demand()
 

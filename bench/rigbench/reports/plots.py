@@ -21,7 +21,7 @@ from pathlib import Path
 
 import numpy as np
 
-__all__ = ["Plot", "PlotsUnavailable", "need_matplotlib", "unit_text", "plot_signals", "plot_relay", "plot_model",
+__all__ = ["Plot", "PlotsUnavailable", "INSTALL_HINT", "need_matplotlib", "unit_text", "plot_signals", "plot_relay", "plot_model",
            "plot_margins", "plot_sweeps"]
 
 _STYLE = {
@@ -32,6 +32,11 @@ _STYLE = {
     "axes.prop_cycle": None,  # set in _mpl()
 }
 _COLOURS = ["#1f5fa8", "#c2571a", "#2e8b57", "#8e44ad", "#b8860b", "#444444"]
+
+
+# works for a pip install (venv or editable: pip adds the extra's packages) and for pipx
+INSTALL_HINT = ("matplotlib is not installed, so no PNG plots: pip install 'rigbench[plots]' "
+                "(or, for a pipx install: pipx inject rigbench matplotlib)")
 
 
 class PlotsUnavailable(RuntimeError):
@@ -51,8 +56,7 @@ def _mpl():
     try:
         import matplotlib
     except ImportError:
-        raise PlotsUnavailable("matplotlib is not installed: install rigbench[plots] "
-                               "(pip install 'rigbench[plots]') for PNG plots") from None
+        raise PlotsUnavailable(INSTALL_HINT) from None
     matplotlib.use("Agg", force=True)
     import matplotlib.pyplot as plt
     from cycler import cycler

@@ -15,7 +15,8 @@
 - **a folder of recordings** without a summary: every recording as above.
 
 Times on plots are seconds since the recording started. matplotlib is imported only when
-plotting (``PlotsUnavailable`` says to install ``rigbench[plots]``).
+plotting; without it the summary is written all the same, without plots, and
+``Report.plots_unavailable`` holds the install hint (``plots=False`` skips plots on purpose).
 
 Must not import textual, rigbench.ui, rigbench.commands, rigbench.link or control.
 """
@@ -55,25 +56,38 @@ class Report:
     summary_md: Path
     plots: list = field(default_factory=list)
     notes: list = field(default_factory=list)
+    plots_unavailable: str | None = None    # why there are no plots: the install hint
 
 
-def make_report(path: str | Path, *, out: str | Path | None = None) -> Report:
-    """Write the report of ``path`` (see the module docstring) and return what it wrote."""
-    need_matplotlib()  # fail before writing anything when matplotlib is missing
+def make_report(path: str | Path, *, out: str | Path | None = None,
+                plots: bool = True) -> Report:
+    """Write the report of ``path`` (see the module docstring) and return what it wrote.
+    Without matplotlib (or with ``plots=False``) only the summary is written."""
+    missing = None
+    if plots:
+        try:
+            need_matplotlib()
+        except PlotsUnavailable as exc:
+            missing = str(exc)
+    draw = plots and missing is None
     path = Path(path)
     if path.is_dir():
         if (path / "summary.yaml").exists():
-            return _results_report(path, Path(out) if out else path)
-        csvs = sorted(path.glob("*.csv"))
-        if not csvs:
-            raise ReportError(f"{path}: no summary.yaml and no recordings (*.csv) in it")
-        return _recordings_report(path, csvs, Path(out) if out else path, None)
-    if path.suffix.lower() == ".csv" and path.is_file():
+            report = _results_report(path, Path(out) if out else path, draw)
+        else:
+            csvs = sorted(path.glob("*.csv"))
+            if not csvs:
+                raise ReportError(f"{path}: no summary.yaml and no recordings (*.csv) in it")
+            report = _recordings_report(path, csvs, Path(out) if out else path, None, draw)
+    elif path.suffix.lower() == ".csv" and path.is_file():
         summary = _read_summary(path.parent) if (path.parent / "summary.yaml").exists() else None
-        return _recordings_report(path, [path],
-                                  Path(out) if out else path.parent / f"{path.stem}-report",
-                                  summary)
-    raise ReportError(f"{path}: give a results folder or a recording (.csv)")
+        report = _recordings_report(path, [path],
+                                    Path(out) if out else path.parent / f"{path.stem}-report",
+                                    summary, draw)
+    else:
+        raise ReportError(f"{path}: give a results folder or a recording (.csv)")
+    report.plots_unavailable = missing
+    return report
 
 
 def _read_summary(folder: Path) -> dict:
@@ -244,34 +258,38 @@ def _sweep_plot(summary: dict, out: Path) -> list[Plot]:
 # ---------------------------------------------------------------------------- reports
 
 
-def _results_report(folder: Path, out: Path) -> Report:
+def _results_report(folder: Path, out: Path, draw: bool = True) -> Report:
     summary = _read_summary(folder)
     out.mkdir(parents=True, exist_ok=True)
     plots: list[Plot] = []
-    for step in summary["steps"]:
+    for step in summary["steps"] if draw else ():
         for name in step["recordings"]:
             rec = _load(folder / name)
             plots.append(_signals_plot(rec, out, f"Step {step['index']} {step['kind']}: "
                                                   f"signals of {name}"))
         if step["kind"] == "relay":
             plots += _relay_plots(step, folder, out)
-    plots += _sweep_plot(summary, out)
+    if draw:
+        plots += _sweep_plot(summary, out)
     md = write_text_atomic(out / "summary.md", summary_markdown(
         summary, plots=[(p.path.name, p.caption) for p in plots]))
     return Report(folder, out, md, plots)
 
 
-def _recordings_report(source: Path, csvs: list, out: Path, summary: dict | None) -> Report:
+def _recordings_report(source: Path, csvs: list, out: Path, summary: dict | None,
+                       draw: bool = True) -> Report:
     out.mkdir(parents=True, exist_ok=True)
     plots, lines, notes = [], [], []
     for path in csvs:
         rec = _load(path)
-        plots.append(_signals_plot(rec, out, f"Signals of {path.name}"))
+        if draw:
+            plots.append(_signals_plot(rec, out, f"Signals of {path.name}"))
         lines += _recording_markdown(rec)
         step = None if summary is None else next(
             (s for s in summary["steps"] if path.name in s["recordings"]), None)
         if step is not None and step["kind"] == "relay":
-            plots += _relay_plots(step, path.parent, out)
+            if draw:
+                plots += _relay_plots(step, path.parent, out)
         elif any(str(n.get("text", "")).startswith("mode relay")
                  for n in (rec.sidecar or {}).get("notes") or []):
             notes.append(f"{path.name} holds a relay test; its cycles and model need the "
@@ -281,7 +299,7 @@ def _recordings_report(source: Path, csvs: list, out: Path, summary: dict | None
     text = [f"# Report: {title}", ""] + lines
     if notes:
         text += ["## Notes", ""] + [f"- {n}" for n in notes] + [""]
-    text += ["## Plots", ""]
+    text += ["## Plots", ""] + ([] if draw else ["No plots in this report.", ""])
     for p in plots:
         text += [f"### {p.caption}", "", f"![{p.caption}]({p.path.name})", ""]
     md = write_text_atomic(out / "summary.md", "\n".join(text).rstrip() + "\n")

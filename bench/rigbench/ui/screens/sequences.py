@@ -82,7 +82,8 @@ class SequencesScreen(BenchScreen):
         for f in files:
             ol.add_option(Option(f.name, id=str(f)))
         if not files:
-            ol.add_option(Option(f"(no .yaml files in {self.folder}/)", disabled=True))
+            ol.add_option(Option(f"(no .yaml files in {self.folder}/: rigbench examples DIR "
+                                 "copies the demo sequences)", disabled=True))
 
     def on_option_list_option_highlighted(self, event: OptionList.OptionHighlighted) -> None:
         if event.option.id:
