@@ -42,9 +42,10 @@ Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, cont
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass, field, is_dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
+from rigbench.base.jsonsafe import to_plain
 from rigbench.tuning.point import FrequencyPoint, wrap_phase_deg
 
 __all__ = ["IdealPid", "ParallelPid", "Proposal", "ULTIMATE_RULES", "AMIGO_KAPPA_RANGE",
@@ -133,28 +134,10 @@ class Proposal:
         gains kp, ki, kd, and margins/details with numbers as floats (complex as [re, im])."""
         form = None if self.ideal is None else {"k": self.ideal.k, "ti_s": self.ideal.ti_s,
                                                  "td_s": self.ideal.td_s}
-        margins = self.margins
-        if is_dataclass(margins):
-            margins = asdict(margins)
-        return _plain({"rule": self.rule, "kind": self.kind, "applies": self.applies,
+        return to_plain({"rule": self.rule, "kind": self.kind, "applies": self.applies,
                        "reason": self.reason, "source": self.source, "notes": self.notes,
                        "form": form, "kp": self.kp, "ki": self.ki, "kd": self.kd,
-                       "margins": margins, "details": self.details})
-
-
-def _plain(x):
-    if isinstance(x, dict):
-        return {str(k): _plain(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_plain(v) for v in x]
-    if isinstance(x, complex) or (hasattr(x, "imag") and hasattr(x, "real")
-                                  and getattr(x, "imag", 0) != 0):
-        return [float(x.real), float(x.imag)]
-    if isinstance(x, bool) or x is None or isinstance(x, str):
-        return x
-    if hasattr(x, "tolist"):
-        return _plain(x.tolist())
-    return float(x)
+                       "margins": self.margins, "details": self.details})
 
 
 # rule id -> (kind, source, notes, function (ku, tu, kappa) -> IdealPid)
