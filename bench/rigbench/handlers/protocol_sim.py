@@ -32,7 +32,8 @@ import time
 
 from serial.serialutil import SerialException
 
-from rigbench.rig.clock import RealClock, VirtualClock
+from rigbench.base.clock import RealClock
+from rigbench.rig.clock import VirtualClock
 from rigbench.rig.simlink import SimLink
 from rigbench.rig.url import parse_sim_url
 

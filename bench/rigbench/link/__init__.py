@@ -5,7 +5,7 @@ in a ring buffer read by cursor, and link health.
 Must not import rigbench.rig, rigbench.ui, Textual or domain modules.
 """
 
-from rigbench.link.clock import RealClock
+from rigbench.base.clock import RealClock
 from rigbench.link.errors import (
     BoardRefused, IncompatibleBoard, LinkError, LinkLost, LinkTimeout, SaveMismatch,
 )

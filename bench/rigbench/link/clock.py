@@ -12,22 +12,7 @@ arrives as an attribute of the port object, duck-typed).
 
 from __future__ import annotations
 
-import time
-
-
-class RealClock:
-    """Monotonic wall-clock seconds (``time.monotonic``)."""
-
-    virtual = False
-
-    @staticmethod
-    def now() -> float:
-        return time.monotonic()
-
-    @staticmethod
-    def sleep(dt: float) -> None:
-        if dt > 0:
-            time.sleep(dt)
+from rigbench.base.clock import RealClock
 
 
 def is_clock(obj) -> bool:

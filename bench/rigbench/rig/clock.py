@@ -3,7 +3,7 @@ reads.
 
 Both have ``now() -> float`` (seconds), ``sleep(dt)`` and ``virtual: bool``.
 
-- ``RealClock``: ``time.monotonic`` and ``time.sleep``.
+- ``RealClock`` (wall time) is ``rigbench.base.clock.RealClock``.
 - ``VirtualClock``: ``now()`` is the simulated board's time. The simulation moves it with
   ``advance_to(t)``; ``sleep(dt)`` blocks until simulated time has moved on by ``dt``,
   woken through a ``threading.Condition``. So that a thread woken by a deadline (a
@@ -21,26 +21,11 @@ from __future__ import annotations
 import threading
 import time
 
-__all__ = ["RealClock", "VirtualClock", "ClockStalled"]
+__all__ = ["VirtualClock", "ClockStalled"]
 
 
 class ClockStalled(RuntimeError):
     """Simulated time stopped moving while a thread waited on it."""
-
-
-class RealClock:
-    """Wall-clock seconds (``time.monotonic``)."""
-
-    virtual = False
-
-    @staticmethod
-    def now() -> float:
-        return time.monotonic()
-
-    @staticmethod
-    def sleep(dt: float) -> None:
-        if dt > 0:
-            time.sleep(dt)
 
 
 class VirtualClock:
