@@ -1,5 +1,5 @@
 """A simulated board on a pseudo-terminal, for programs that open a device path
-(``rigbench sim``; DESIGN.md Decision 3).
+(``rigbench sim``; README.md, Commands).
 
 ``serve_pty(options, on_ready=...)`` opens a pty (``os.openpty``), puts the slave in raw
 mode, makes it owner-only (0600), keeps its own slave descriptor open (otherwise reads on

@@ -1,4 +1,4 @@
-"""``sim://`` URLs: parse into ``SimOptions`` and format back (DESIGN.md Decision 3).
+"""``sim://`` URLs: parse into ``SimOptions`` and format back (README.md, Simulated rigs).
 
     sim://balance[?drive=speed|torque]
     sim://wheel

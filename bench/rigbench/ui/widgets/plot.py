@@ -6,7 +6,7 @@ their minimum and maximum (so a spike between two redraws is never lost) and the
 them are lit; a column is also joined to its neighbour so a steep edge stays a line. Rows are
 built once per new data as numpy bit masks and cached as one ``Strip`` per row, so
 ``render_line`` only returns a cached strip: a redraw of a 2 000-sample window at 100 × 10
-cells costs about a millisecond (PRACTICE.md, Plots). Values above or below the scale are
+cells costs about a millisecond (DEVELOPERS.md, Practice notes). Values above or below the scale are
 drawn on the top or bottom row.
 
 Braille cells follow the Unicode Standard's Braille Patterns block (U+2800–U+28FF): dot n
