@@ -18,8 +18,6 @@ Exit codes (``EXIT_CODES``):
     5    a guard tripped or a safety stop ended the run
     6    a check failed (a verification or comparison came out wrong)
     130  interrupted (Ctrl-C) before the command finished
-
-Must not import Textual at module level (commands that need it import it themselves).
 """
 
 from __future__ import annotations

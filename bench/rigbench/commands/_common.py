@@ -1,7 +1,5 @@
 """Helpers shared by the subcommand modules: the ``--port`` and ``--json`` options, opening
 a link with the right errors, JSON output.
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations

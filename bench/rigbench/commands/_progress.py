@@ -4,8 +4,6 @@ a terminal, silent otherwise (pipes and log files get the final result only).
 ``experiment_run()`` is the block both commands run their experiment in: it hands out the
 bar, closes it at the end, and turns the board's refusal to arm (exit 4) and a bad option
 (``ValueError``, exit 2) into ``CommandError``.
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations

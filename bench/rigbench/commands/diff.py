@@ -1,7 +1,5 @@
 """``rigbench diff A B``: two gain profiles side by side; either may be ``board``, the live
 board's current values of the same parameters (read through ``--port``).
-
-Must not import textual or rigbench.ui.
 """
 
 from __future__ import annotations

@@ -6,8 +6,6 @@ telemetry order), ``loops`` (by name), ``status`` (latest status frame or null),
 ``health`` (link counters). Values are in the board's declared units. A loop's optional
 fields (PROTOCOL.md §5.4: ``setpoint``, ``limit``, ``dfilt``, ``rate``, ``action``) are null
 when the board does not declare them.
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations

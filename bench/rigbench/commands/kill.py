@@ -2,7 +2,7 @@
 framed ``kill``, and confirm that the board reports its motor off or tripped.
 
 A software kill is a stop, not an emergency stop: keep a hardware cut-off of motor power
-within reach. Must not import Textual or rigbench.ui.
+within reach.
 """
 
 from __future__ import annotations

@@ -1,6 +1,4 @@
 """``rigbench ports``: the serial ports this computer has, with their descriptions.
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations

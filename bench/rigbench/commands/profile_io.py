@@ -1,8 +1,6 @@
 """Shared pieces of the profile commands (push, pull, diff): opening the link, and turning
 their errors (bad file, refused profile, board refusal, link failure) into one line on
 stderr, or one JSON object with ``--json``, and the exit code (bench/rigbench/cli.py).
-
-Must not import textual or rigbench.ui.
 """
 
 from __future__ import annotations

@@ -1,7 +1,5 @@
 """``rigbench pull -o PROFILE``: the board's current gains of one loop (and its trip and arm
 limits) written as a gain profile, atomically.
-
-Must not import textual or rigbench.ui.
 """
 
 from __future__ import annotations

@@ -3,8 +3,6 @@
 
 Refused profiles (unknown parameter, unit or range mismatch, read-only, wrong loop or rig,
 board busy in a relay/open/inject mode) send nothing. Never arms or disarms.
-
-Must not import textual or rigbench.ui.
 """
 
 from __future__ import annotations

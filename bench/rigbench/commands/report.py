@@ -3,8 +3,6 @@ folder (``rigbench run``) or from one recording with its YAML sidecar (rigbench.
 
 Needs matplotlib (``pip install 'rigbench[plots]'``); without it the command says so and
 exits 2. Exit 2 too for a path that is neither a results folder nor a readable recording.
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations

@@ -9,8 +9,6 @@ folder cannot be used; 3 link; 4 the board refused a command or to arm; 5 a guar
 a step ran over its timeout_s, or the board tripped (motor off); 6 a check failed or a step
 could not produce its result; 130 interrupted. Whatever the outcome, the motor is off at
 the end (rigbench.sequences.run).
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations

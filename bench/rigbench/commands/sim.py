@@ -1,6 +1,6 @@
 """``rigbench sim``: serve a simulated board on a pseudo-terminal and print its device path,
 so any program — the rigbench UI in another terminal, a serial monitor, your own script —
-opens it like a real board. Must not import Textual or rigbench.ui.
+opens it like a real board.
 """
 
 from __future__ import annotations

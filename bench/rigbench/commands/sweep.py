@@ -10,8 +10,6 @@ measure's units for ``--at setpoint`` and the output's for ``--at output``.
 Exit codes: 0 every set went through; 2 a bad --gains or option; 3 link; 4 the board
 refused (e.g. to arm); 5 a set made the rig fall or a guard tripped (motor killed);
 130 interrupted (the rig is left safe first).
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations

@@ -1,7 +1,5 @@
 """``rigbench watch``: stream telemetry to the terminal as aligned columns, or record it to
 a CSV file (with its YAML sidecar, rigbench.recordings.recording) for a number of seconds or until Ctrl-C.
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations

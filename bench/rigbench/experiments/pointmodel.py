@@ -19,8 +19,6 @@ difference, and the fit starts from a grid of delays so the branch is found, not
 
 These models exist to predict margins and disturbance responses of proposals (see
 proposals.py); they are deliberately simple and say how well they fit (``fit_rms``).
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
 """
 
 from __future__ import annotations

@@ -31,8 +31,6 @@ What it guarantees
 
 All times are link-clock seconds (virtual for a simulated board with ``clock=virtual``).
 Values are in the board's declared units.
-
-Must not import: textual, rigbench.ui, rigbench.commands, control.
 """
 
 from __future__ import annotations

@@ -20,8 +20,6 @@ Attributes beyond pyserial's: ``clock`` (the port's clock, RealClock from
 rigbench.base.clock or VirtualClock from rigbench.rig.clock), ``board`` (the ReplayBoard), ``options``.
 
 Line settings, modem lines and the output side come from ``rigbench.handlers.board_port``.
-
-Must not import rigbench.link, rigbench.ui or Textual.
 """
 
 from __future__ import annotations

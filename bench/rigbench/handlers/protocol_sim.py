@@ -20,8 +20,6 @@ counters).
   ``in_waiting`` raises ``OSError`` (EIO), as a vanished USB device does on Linux.
 
 Line settings, modem lines and the output side come from ``rigbench.handlers.board_port``.
-
-Must not import rigbench.link or rigbench.ui.
 """
 
 from __future__ import annotations

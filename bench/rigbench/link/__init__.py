@@ -1,8 +1,6 @@
 """The I/O layer: a Link to one board over any pyserial URL (device path, ``socket://``,
 ``sim://...``), with one reader thread, kill ahead of everything, the heartbeat, telemetry
 in a ring buffer read by cursor, and link health.
-
-Must not import rigbench.rig, rigbench.ui, Textual or domain modules.
 """
 
 from rigbench.base.clock import RealClock

@@ -5,9 +5,6 @@ A port may bring its own clock (the simulated board's ``port.clock``; in virtual
 its time advances only as the host reads). Any object with ``now() -> float`` (seconds) and
 ``sleep(dt)`` counts as a clock; ``virtual`` (default False) says that its time is not wall
 time, so waits must be woken by the reader rather than by real-time timeouts.
-
-Must not import rigbench.rig, rigbench.ui or domain modules (the simulated board's own clock
-arrives as an attribute of the port object, duck-typed).
 """
 
 from __future__ import annotations

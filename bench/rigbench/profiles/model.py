@@ -6,8 +6,6 @@ The schema is documented in profiles/README.md. ``load_profile`` reads a file st
 a board declares (parameters, units, ranges, access, loops) before anything is sent,
 ``profile_from_board`` reads a board's current values into a profile, ``diff_profiles``
 compares two profiles setting by setting. Values are in the board's declared units.
-
-Must not import textual, rigbench.ui, rigbench.commands or control.
 """
 
 from __future__ import annotations

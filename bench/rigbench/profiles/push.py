@@ -15,8 +15,6 @@ It never arms, disarms or changes the mode.
 
 ``link`` is anything with the Link interface (``info``, ``params``, ``loops``, ``get``,
 ``set``, ``status``, ``save``, ``health``, ``event_cursor``, ``events_since``).
-
-Must not import textual, rigbench.ui, rigbench.commands or control.
 """
 
 from __future__ import annotations

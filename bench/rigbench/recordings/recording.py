@@ -16,8 +16,7 @@ and at close, with ``complete: false`` until a clean close.
 ``load_recording(path)`` reads a recording back (arrays plus sidecar); bad input raises
 ``RecordingError`` naming the file and line.
 
-Domain layer: numpy, pyyaml and bench's leaf helpers only. Must not import rigbench.ui,
-Textual or rigbench.commands; link types are imported for typing only.
+Domain layer: numpy, pyyaml and bench's leaf helpers only.
 """
 
 from __future__ import annotations

@@ -16,8 +16,6 @@
 
 Times on plots are seconds since the recording started. matplotlib is imported only when
 plotting (``PlotsUnavailable`` says to install ``rigbench[plots]``).
-
-Must not import textual, rigbench.ui, rigbench.commands, rigbench.link or control.
 """
 
 from __future__ import annotations

@@ -12,8 +12,6 @@ Both have ``now() -> float`` (seconds), ``sleep(dt)`` and ``virtual: bool``.
   passed. A sleeper whose simulated time does not move for ``stall_guard_s`` wall seconds
   raises ``ClockStalled`` instead of hanging (nobody is reading the port, so nothing drives
   the simulation).
-
-Must not import serial, rigbench.link, rigbench.ui, Textual or control.
 """
 
 from __future__ import annotations

@@ -13,7 +13,7 @@ kill byte acts before the next loop period).
 ``run_sim_server(url_or_rig, link_path)`` is the command-line front: prints the device
 path, optionally makes a symlink to it, serves until Ctrl-C, returns an exit code.
 
-POSIX only. Must not import rigbench.link, rigbench.ui, Textual or control.
+POSIX only.
 """
 
 from __future__ import annotations

@@ -6,8 +6,6 @@ problem a runner would otherwise meet mid-run: pushed profiles that do not fit
 declared range, loops and signals the board does not have, guards that need a parameter the
 board lacks, and a sequence written for another rig kind. Problems carry the sequence file's
 line and the step's field path (``steps[3].relay.loop``).
-
-Must not import textual, rigbench.ui, rigbench.commands, rigbench.link or control.
 """
 
 from __future__ import annotations

@@ -14,8 +14,6 @@ guards and stop flag they share. rigbench.sequences.run drives them in order and
   the loop's ``trip_<measure>`` (the board must declare one).
 - The ``sweep`` step injects each amplitude as given (sign included) ``repeats`` times,
   ``spacing_s`` apart, from hold; metrics per push come from rigbench.sequences.stepdata.
-
-Must not import textual, rigbench.ui, rigbench.commands or control.
 """
 
 from __future__ import annotations

@@ -12,8 +12,6 @@ Stop reasons (``STOP_REASONS``): ``done`` (every step ran; checks may still have
 took longer than its ``timeout_s``), ``refused`` (the board refused a command or the
 interlock refused to arm), ``failed`` (a step could not produce its result, e.g. a relay
 test without a sustained cycle), ``lost`` (the link went away), ``cancelled``, ``error``.
-
-Must not import textual, rigbench.ui, rigbench.commands, rigbench.link or control.
 """
 
 from __future__ import annotations

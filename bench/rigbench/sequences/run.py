@@ -24,8 +24,6 @@ the run. Between steps, a trip or restart seen in the link's events stops the ru
   rewritten atomically after every step). Profiles were read when the sequence was loaded.
 
 Units: times in link-clock seconds; values in the board's declared units.
-
-Must not import textual, rigbench.ui, rigbench.commands or control.
 """
 
 from __future__ import annotations

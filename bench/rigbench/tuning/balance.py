@@ -30,8 +30,6 @@ bound would look like a measurement.
 Identify from relay or PRBS runs: quiet data with unmeasured pushes bias a (docs/METHODS.md §4).
 
 Designs live in rigbench.tuning.balance_design (pole placement, LQR) and are re-exported here.
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
 """
 
 from __future__ import annotations

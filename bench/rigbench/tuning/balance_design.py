@@ -23,8 +23,6 @@ does the integral's job), where K̃ = K_x/(1 + ΣK_u) folds the gains K_u on del
 commands in by taking u[k−i] ≈ u[k] (exact at low frequency; simply dropping them can
 leave an unstable loop when they are large). The margins of this PID + trim are predicted
 with the loop broken at the plant input.
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
 """
 
 from __future__ import annotations

@@ -39,8 +39,6 @@ the textbook least-squares ones, the MAD scale factor 1.4826 is that of a normal
 distribution.
 
 Public API: SeriesCheck, CycleCheck, check_cycles, settled_cycles.
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
 """
 
 from __future__ import annotations

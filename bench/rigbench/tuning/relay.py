@@ -35,8 +35,6 @@ Conventions
 
 Public API: analyse_relay, RelayResult, RelayTracker, RelayProgress, FrequencyPoint,
 fundamental_ratio.
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
 """
 
 from __future__ import annotations

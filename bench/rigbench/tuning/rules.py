@@ -35,8 +35,6 @@ Rule ids and sources
 
 Public API: IdealPid, ParallelPid, Proposal, ULTIMATE_RULES, AMIGO_KAPPA_RANGE,
 rule_from_ultimate, phase_margin_design, propose_from_ultimate, propose_from_point.
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
 """
 
 from __future__ import annotations

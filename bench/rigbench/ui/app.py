@@ -6,8 +6,6 @@ widget focused, in dialogs and in the command palette (DEVELOPERS.md, Practice n
 calls ``link.kill()`` at once on the UI thread (the link writes the kill bytes ahead of
 anything queued) and cancels any running experiment worker. Every other board command runs
 in a thread worker and reports back with a message; errors come back in words.
-
-Must not import: rigbench.rig, serial (ports are opened by rigbench.link).
 """
 
 from __future__ import annotations

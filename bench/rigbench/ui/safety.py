@@ -8,8 +8,6 @@ timer; each bar watches it, so a pushed screen or dialog shows the same thing at
 Header and Footer belong to each screen in Textual, so every screen derives from
 :class:`BenchScreen` (or :class:`BenchModal` for dialogs), which composes the bar and the
 footer stacked in one bottom container (two widgets docked at the bottom would overlap).
-
-Must not import: rigbench.link, rigbench.rig, rigbench.tuning, serial.
 """
 
 from __future__ import annotations

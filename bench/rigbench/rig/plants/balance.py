@@ -26,8 +26,6 @@ limit. Both drives see this curve.
 Mechanical stops at ±``tilt_stop_rad`` catch the body inelastically: the body stops and the
 wheel keeps its absolute speed θ̇ + φ̇ through the impact; it then rests on the stop until
 the net torque lifts it off. Fixed-step RK4, ``substeps`` per ``dt_s``, plain ``math``.
-
-Must not import serial, rigbench.link, rigbench.ui, rigbench.wire, Textual or control.
 """
 
 from __future__ import annotations

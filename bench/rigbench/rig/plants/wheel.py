@@ -16,8 +16,6 @@ Integration: the linear part is discretised exactly (zero-order hold over each s
 friction torque held over the substep); a substep that would carry ω through zero stops
 the wheel there (stiction), and a stopped wheel stays stopped while the drive torque is
 within ±Tc.
-
-Must not import serial, rigbench.link, rigbench.ui, rigbench.wire, Textual or control.
 """
 
 from __future__ import annotations

@@ -5,8 +5,6 @@ and redraws; nothing is posted per telemetry line (DEVELOPERS.md, Practice notes
 per line costs half a core at 2 kHz). Each plot shows one declared signal, chosen from a
 list; the first choices are the loops' measures and the signals with a trip limit
 (``trip_<signal>``).
-
-Must not import: rigbench.rig, rigbench.tuning, serial (data comes through the App's link).
 """
 
 from __future__ import annotations

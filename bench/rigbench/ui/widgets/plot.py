@@ -12,8 +12,6 @@ drawn on the top or bottom row.
 Braille cells follow the Unicode Standard's Braille Patterns block (U+2800–U+28FF): dot n
 (numbered 1-2-3 down the left column, 4-5-6 down the right, then 7 and 8 on the bottom row)
 is bit n−1 of the offset from U+2800.
-
-Must not import: rigbench.link, rigbench.rig, rigbench.tuning, serial (it draws arrays it is given).
 """
 
 from __future__ import annotations
