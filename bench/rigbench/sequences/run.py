@@ -106,7 +106,9 @@ def run_sequence(link, *, sequence: Sequence, results_dir: str | Path | None = N
                 band_noise).run()
 
 
-class _Run(StepRunner):
+class _Run:
+    """One run of a sequence; it is the RunState its StepRunner works on."""
+
     def __init__(self, link, seq: Sequence, steps, folder: Path, cancel, progress,
                  sweep_pre_s: float, band_noise: float) -> None:
         self.link, self.seq, self.steps, self.folder = link, seq, steps, folder
@@ -124,6 +126,7 @@ class _Run(StepRunner):
                          dict(s.bindings)) for s in steps], seq.on_abort)
         self.t0 = link.now()
         self._written = -math.inf
+        self.runner = StepRunner(self)
 
     # ------------------------------------------------------------------ the run
 
@@ -165,11 +168,10 @@ class _Run(StepRunner):
         if stop.is_set():
             raise StepAbort("cancelled", f"cancelled before {step.label()}")
         out.started_s = link.now()
-        self.current = i
-        self._report(i, step, "start", f"{step.label()} (line {step.line})")
+        self.report(i, step, "start", f"{step.label()} (line {step.line})")
         try:
             try:
-                getattr(self, f"_do_{step.kind}")(step, out, stop)
+                self.runner.run_step(i, step, out, stop)
             except (ArmRefused, PushRefused) as exc:
                 raise StepAbort("refused", " ".join(str(exc).split())) from None
             except BoardRefused as exc:
@@ -199,7 +201,7 @@ class _Run(StepRunner):
                 out.ended_s = _now_or_none(link)
             self.done = i + 1
             self._write(force=out.outcome == "failed")
-            self._report(i, step, out.outcome, f"{step.label()}: {out.outcome}"
+            self.report(i, step, out.outcome, f"{step.label()}: {out.outcome}"
                          + (f": {out.detail}" if out.detail else ""))
 
     def _watch_events(self) -> None:
@@ -255,7 +257,7 @@ class _Run(StepRunner):
         except LinkError:
             pass
         self._write(force=True)
-        self._report(max(self.done - 1, 0), None, "end", _end_text(r))
+        self.report(max(self.done - 1, 0), None, "end", _end_text(r))
 
     def _count_trips_after_stop(self) -> None:
         try:
@@ -275,7 +277,7 @@ class _Run(StepRunner):
             write_summary(self.folder, summary_dict(self.result))
             self._written = time.monotonic()
 
-    def _report(self, i: int, step, state: str, text: str, experiment=None) -> None:
+    def report(self, i: int, step, state: str, text: str, experiment=None) -> None:
         if self.progress_cb is None:
             return
         index = step.index if step is not None else ""
