@@ -145,3 +145,20 @@ def test_results_dir_records_csv_and_sidecar(open_sim, tmp_path):
     rec = load_recording(res.recording)  # README.md, Record and replay: CSV + YAML sidecar
     assert len(rec) == pytest.approx(len(res.t_s), abs=5)
     assert link.status().motor == "off"
+
+
+def test_a_kill_that_cannot_be_sent_is_logged(open_sim, monkeypatch, caplog):
+    # the board's watchdog is then the only stop (PROTOCOL.md §7.2): say so in the log
+    from rigbench.link import LinkLost
+    link = open_sim("sim://balance?stall=3:1")
+
+    def gone():
+        raise LinkLost("port went away")
+
+    with caplog.at_level("WARNING", logger="rigbench.experiments.runner"):
+        with Experiment(link, name="stall", guards=Guards(stale_s=0.3)) as exp:
+            exp.hold()
+            monkeypatch.setattr(link, "kill", gone)
+            exp.wait(10.0)
+    assert exp.result.stopped_by == "stale"
+    assert any("kill not sent" in r.getMessage() for r in caplog.records)

@@ -35,6 +35,7 @@ Values are in the board's declared units.
 
 from __future__ import annotations
 
+import logging
 import math
 import re
 from pathlib import Path
@@ -52,6 +53,8 @@ from rigbench.experiments.guards import (
 
 __all__ = ["Experiment", "ExperimentResult", "ExperimentStopped", "ArmRefused", "Guards",
            "Progress", "STOP_REASONS", "guard_limits"]
+
+log = logging.getLogger(__name__)
 
 
 class Experiment:
@@ -252,8 +255,10 @@ class Experiment:
         self._killed = True
         try:
             self.link.kill()
-        except LinkError:
-            pass  # nothing left to send it on; the board's watchdog turns the motor off
+        except LinkError as exc:
+            # nothing left to send it on; the board's watchdog turns the motor off
+            log.warning("experiment %r: kill not sent (%s); relying on the board's watchdog",
+                        self.name, exc)
         self._marks.append((self.link.now(), "kill"))
 
     def data(self) -> tuple[np.ndarray, np.ndarray]:
@@ -301,7 +306,8 @@ class Experiment:
                 self._recorder.note(f"stopped by {self._stop[0]}: {self._stop[1]}")
                 self._recorder.close()
             except Exception:  # noqa: BLE001 - a failed recording must not hide the result
-                pass
+                log.warning("experiment %r: recording %s not closed cleanly", self.name,
+                            rec_path, exc_info=True)
         motor = None
         try:
             motor = self.link.status().motor
