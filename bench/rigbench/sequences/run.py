@@ -208,10 +208,7 @@ class _Run:
         """Trips and restarts the link saw (between steps too) stop the run."""
         self.ev_cursor, events = self.link.events_since(self.ev_cursor)
         for ev in events:
-            if ev.source == "board" and ev.kind == "trip":
-                self.result.trips += 1
-                if ev.get("cause") == "tilt_limit":
-                    self.result.fell += 1
+            if self._count_trip(ev):
                 raise StepAbort("guard", f"the board tripped: {ev.get('cause', '?')}")
             if ev.source == "link" and ev.kind in ("reset", "lost"):
                 raise StepAbort("guard" if ev.kind == "reset" else "lost",
@@ -265,10 +262,16 @@ class _Run:
         except (LinkError, ValueError):
             return
         for ev in events:
-            if ev.source == "board" and ev.kind == "trip":
-                self.result.trips += 1
-                if ev.get("cause") == "tilt_limit":
-                    self.result.fell += 1
+            self._count_trip(ev)
+
+    def _count_trip(self, ev) -> bool:
+        """Count a board trip event (a tilt-limit trip is also a fall); True if it was one."""
+        if ev.source == "board" and ev.kind == "trip":
+            self.result.trips += 1
+            if ev.get("cause") == "tilt_limit":
+                self.result.fell += 1
+            return True
+        return False
 
     def _write(self, *, force: bool = False, every_s: float = 1.0) -> None:
         """Rewrite the summary files (at most every ``every_s`` of wall time unless forced:
