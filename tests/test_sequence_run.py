@@ -257,3 +257,21 @@ def test_a_lost_link_stops_the_run_with_exit_3(capsys, tmp_path):
     s = _summary(tmp_path / "res")
     assert code == 3 and s["stopped_by"] == "lost" and s["stopping_step"] == "3"
     assert s["motor_after"].startswith("unknown (link lost")
+
+
+def test_every_step_kind_has_one_action_and_the_run_gives_what_steps_use():
+    # the step vocabulary (sequences/README.md) and the dispatch table are one set;
+    # repeat is unrolled into set + its steps before the run (expand)
+    import inspect
+
+    from rigbench.sequences.execute import STEP_ACTIONS, RunState, StepRunner
+    from rigbench.sequences.file import STEP_KINDS
+    from rigbench.sequences.run import _Run
+    assert set(STEP_ACTIONS) == set(STEP_KINDS) - {"repeat"}
+    assert all(inspect.getattr_static(StepRunner, f.__name__) is f
+               for f in STEP_ACTIONS.values())
+    # what the protocol names, the run provides (attributes set in __init__, methods)
+    names = [n for n in RunState.__annotations__] + ["report"]
+    source = inspect.getsource(_Run)
+    missing = [n for n in names if f"self.{n}" not in source and f"def {n}(" not in source]
+    assert not missing, missing

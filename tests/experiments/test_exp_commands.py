@@ -20,7 +20,7 @@ def _json(capsys, argv):
 def test_tune_json_has_the_documented_keys(capsys, tmp_path):
     code, doc = _json(capsys, ["tune", "--port", PLANT, "--json", "--out", str(tmp_path)])
     assert code == 0
-    # DESIGN.md Decision 4: the keys scripts rely on
+    # README.md, Autotune a live rig: the keys scripts rely on
     for key in ("loop", "ku", "tu_s", "relay", "oscillation", "point", "proposals"):
         assert key in doc
     assert set(doc["relay"]) >= {"amplitude", "hysteresis", "bias"}
@@ -64,7 +64,7 @@ def test_sweep_with_a_profile_and_inline_gains(capsys):
                                "--gains", "firm:tilt_kp=1.24,tilt_ki=17.3,tilt_kd=0.0089",
                                "--amplitudes", "0.02", "--repeats", "2", "--settle", "1.5",
                                "--json"])
-    # DESIGN.md Decision 4 (sweep: metrics for one or more gain sets); both sets balance
+    # README.md, Commands (sweep: metrics per gain set); both sets balance
     # the demo rig (docs/METHODS.md §6 start gains; a pole-placement set), common practice
     assert code == 0 and doc["stopped_by"] == "done"
     names = [s["name"] for s in doc["sets"]]

@@ -53,7 +53,7 @@ def test_cancel_leaves_the_motor_off_when_found_off(open_sim):
             cancel.set()  # like a person pressing cancel mid-relay
 
     run = run_relay(link, "tilt", cancel=cancel, progress=progress, max_s=30.0)
-    # DESIGN.md Decision 6 (common practice, no source): cancel ends in an orderly way,
+    # README.md, Autotune a live rig (common practice, no source): cancel ends in an orderly way,
     # the motor back off as found, no latched fault
     assert run.stopped_by == "cancelled" and not run.experiment.killed
     st = link.status()
@@ -108,7 +108,7 @@ def test_lost_link_stops_with_lost(open_sim):
     with Experiment(link, name="unplug") as exp:
         exp.hold()
         exp.wait(10.0)
-    # DESIGN.md Decision 6: a lost link ends the experiment (the board's watchdog then
+    # README.md, Autotune a live rig: a lost link ends the experiment (the board's watchdog then
     # turns the motor off, PROTOCOL.md §7.2)
     assert exp.result.stopped_by == "lost"
 
@@ -118,7 +118,7 @@ def test_stale_telemetry_kills(open_sim):
     with Experiment(link, name="stall", guards=Guards(stale_s=0.3)) as exp:
         exp.hold()
         exp.wait(10.0)
-    # DESIGN.md Decision 6: stale telemetry trips the guard and kills
+    # README.md, Autotune a live rig: stale telemetry trips the guard and kills
     assert exp.result.stopped_by == "stale" and exp.result.killed
     link.sleep(1.5)  # the board acts on the kill once it runs again
     assert link.status().motor == "tripped"
@@ -142,6 +142,23 @@ def test_results_dir_records_csv_and_sidecar(open_sim, tmp_path):
     res = exp.result
     assert res.stopped_by == "done" and res.recording == tmp_path / "hold-a-while.csv"
     from rigbench.recordings.recording import load_recording
-    rec = load_recording(res.recording)  # DESIGN.md Decision 5: CSV + YAML sidecar
+    rec = load_recording(res.recording)  # README.md, Record and replay: CSV + YAML sidecar
     assert len(rec) == pytest.approx(len(res.t_s), abs=5)
     assert link.status().motor == "off"
+
+
+def test_a_kill_that_cannot_be_sent_is_logged(open_sim, monkeypatch, caplog):
+    # the board's watchdog is then the only stop (PROTOCOL.md §7.2): say so in the log
+    from rigbench.link import LinkLost
+    link = open_sim("sim://balance?stall=3:1")
+
+    def gone():
+        raise LinkLost("port went away")
+
+    with caplog.at_level("WARNING", logger="rigbench.experiments.runner"):
+        with Experiment(link, name="stall", guards=Guards(stale_s=0.3)) as exp:
+            exp.hold()
+            monkeypatch.setattr(link, "kill", gone)
+            exp.wait(10.0)
+    assert exp.result.stopped_by == "stale"
+    assert any("kill not sent" in r.getMessage() for r in caplog.records)

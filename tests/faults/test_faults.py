@@ -115,7 +115,7 @@ def test_a_host_that_dies_leaves_a_loadable_recording_and_the_watchdog_trips(tmp
     _never_wrong_and_off(out)
     assert out.fault_end == "watchdog"
     assert out.recording_ok and out.recording_rows > 0 and "False" in out.notes
-    assert out.recording_gap_s <= 1.0           # DESIGN.md: a crash loses under a second
+    assert out.recording_gap_s <= 1.0           # README.md, Record and replay: a crash loses under a second
 
 
 @pytest.mark.parametrize("period_s,trips", [(0.4, False), (0.7, True)])

@@ -4,7 +4,7 @@ command line holds; at 80x24 and 140x42 every screen keeps the kill keys, the mo
 and the link alarm in view and nothing pushes a screen into scrolling.
 
 The sizes are the classic terminal (80x24) and a common laptop window; what must stay in
-view is DESIGN.md Decision 6 (the safety bar on every screen)."""
+view is the safety bar on every screen (README.md, The terminal UI)."""
 
 import asyncio
 import io

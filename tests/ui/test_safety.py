@@ -2,7 +2,7 @@
 shows the board's refusal in words; a lost link turns the bar into an alarm.
 
 Expected behaviour is the protocol's (protocol/PROTOCOL.md §7.1 kill, §7.3 interlock) and
-DESIGN.md Decision 6; the board is the simulated one, so its replies are the real code path.
+README.md, The terminal UI; the board is the simulated one, so its replies are the real code path.
 """
 
 import asyncio

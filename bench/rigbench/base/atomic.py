@@ -4,8 +4,6 @@ The text goes to a temporary file in the same folder (same file system, so the r
 atomic), is flushed and fsynced, then ``os.replace`` puts it in place and the folder is
 fsynced so the rename itself survives a power cut. If anything fails before the rename,
 the temporary file is removed and the old file is untouched.
-
-Must not import anything from bench (a leaf; stdlib only).
 """
 
 from __future__ import annotations

@@ -20,8 +20,6 @@ ValueError naming it: a silently assumed factor would put a wrong gain on a live
 PID gains in a board's units: kp in out/in, ki in out/(in·s), kd in out·s/in. The time part
 is named by ``per`` in :func:`gain_to_si`: '1' (kp), '1/s' (ki), 's' (kd); '1/ms' and 'ms'
 are accepted too for boards that count integral and derivative time in milliseconds.
-
-Must not import: anything from bench (this is a leaf), serial, textual, control.
 """
 
 from __future__ import annotations

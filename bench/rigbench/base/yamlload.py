@@ -17,8 +17,6 @@ Nothing raised while reading a file is anything but ``SchemaError``.
 
 ``near_hint(word, choices)`` is the " (did you mean 'x'?)" that the unknown-name messages
 of these files' readers and checkers carry (unknown key, step kind, parameter).
-
-Must not import anything from bench: this is a leaf (pyyaml and the standard library only).
 """
 
 from __future__ import annotations

@@ -9,8 +9,8 @@ import json
 import math
 import re
 import sys
-from dataclasses import asdict, is_dataclass
 
+from rigbench.base.jsonsafe import to_plain
 from rigbench.link import Link
 
 DEFAULT_PORT = "sim://balance"
@@ -51,16 +51,8 @@ def open_link(args, **kwargs) -> Link:
 
 
 def plain(obj):
-    """Dataclasses, tuples and non-finite floats as JSON-friendly values."""
-    if is_dataclass(obj) and not isinstance(obj, type):
-        return plain(asdict(obj))
-    if isinstance(obj, dict):
-        return {str(k): plain(v) for k, v in obj.items()}
-    if isinstance(obj, (list, tuple)):
-        return [plain(v) for v in obj]
-    if isinstance(obj, float) and not math.isfinite(obj):
-        return None
-    return obj
+    """``obj`` as strict-JSON plain data: non-finite floats become null."""
+    return to_plain(obj, nonfinite_as_none=True)
 
 
 def print_json(obj) -> None:

@@ -19,9 +19,6 @@ from rigbench.base.stops import exit_code_for, EXIT_CHECK, EXIT_INTERNAL, EXIT_I
 from rigbench.commands._common import CommandError, DEFAULT_PORT, help_text
 from rigbench.sequences.file import load_sequence
 from rigbench.sequences.results import summary_dict
-from rigbench.sequences.run import (
-    check_runnable, default_results_dir, prepare_results_dir, run_sequence,
-)
 from rigbench.sequences.steps import describe_step, format_value
 from rigbench.base.yamlload import SchemaError
 
@@ -70,6 +67,12 @@ def run(args) -> int:
     if args.sequence == "-":
         raise CommandError(EXIT_USAGE, "a sequence cannot be read from standard input: it names "
                            "its profiles relative to its own folder; give its file")
+    # the runner pulls in the experiments and scipy: loaded only when a sequence runs, so
+    # that loading this module to build the command line stays light
+    from rigbench.sequences.run import (
+        check_runnable, default_results_dir, prepare_results_dir, run_sequence,
+    )
+
     try:
         seq = load_sequence(args.sequence)
         steps = check_runnable(seq)

@@ -16,14 +16,20 @@ from __future__ import annotations
 
 import json
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from rigbench.base.stops import exit_code_for, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_LINK, EXIT_OK, EXIT_TRIP, EXIT_USAGE  # noqa: F401
 from rigbench.commands._common import CommandError, help_text
-from rigbench.experiments.sweep import GainSet, run_sweep
 from rigbench.profiles.model import SchemaError, check_against_board, load_profile
 
 from rigbench.commands._common import add_json_option, add_port_option, open_link, plain, print_json, table
 from rigbench.commands._progress import experiment_run
+
+if TYPE_CHECKING:
+    from rigbench.experiments.sweep import GainSet
+
+# rigbench.experiments.sweep (scipy, through the tuning modules) is imported where it is
+# used, so that loading this module to build the command line stays light.
 
 METRICS = ("iae", "peak_abs_error", "settling_time_s", "peak_wheel_change", "itae")
 
@@ -60,6 +66,8 @@ def add_parser(subparsers):
 
 def parse_inline(text: str) -> GainSet:
     """``[label:]name=value,name=value`` as a GainSet; ValueError on bad text."""
+    from rigbench.experiments.sweep import GainSet
+
     label, _, body = text.rpartition(":") if ":" in text.split("=", 1)[0] else ("", "", text)
     values = {}
     for part in body.split(","):
@@ -88,6 +96,8 @@ def _checked_profile(text: str, link):
 
 
 def _load_sets(args, link) -> list[GainSet]:
+    from rigbench.experiments.sweep import GainSet
+
     sets = []
     for text in args.gains:
         if "=" in text and not Path(text).exists():
@@ -161,6 +171,8 @@ def sweep_text(doc: dict) -> str:
 
 
 def run(args) -> int:
+    from rigbench.experiments.sweep import run_sweep
+
     try:
         amplitudes = tuple(float(a) for a in args.amplitudes.split(","))
     except ValueError:

@@ -11,5 +11,4 @@ predicted margins, and disturbance sweeps. Modules:
 - conventions: what the host reads from a board's declarations by naming convention
 
 Pure Python/numpy/scipy on top of rigbench.link, rigbench.tuning and rigbench.recordings.recording.
-Must not import: textual, rigbench.ui, rigbench.commands, control.
 """

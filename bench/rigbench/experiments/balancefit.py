@@ -20,8 +20,6 @@ model as a plant in the board's units, and the LQR design turned into the board'
   declares (PROTOCOL.md §5.4), reverse when it declares none. If the gains come out
   outside the declared ranges the proposal says so.
 - The rate signal (a gyro) is converted from its own declared unit.
-
-Must not import: textual, rigbench.ui, rigbench.commands, control.
 """
 
 from __future__ import annotations

@@ -30,8 +30,6 @@ boards; a firmware author can follow them):
   whose output is no other loop's set-point signal (declared, else by the convention
   above), preferring one whose output is in a motor-drive unit (``DRIVE_UNITS``); else the
   first declared.
-
-Must not import: textual, rigbench.ui, rigbench.commands, control.
 """
 
 from __future__ import annotations

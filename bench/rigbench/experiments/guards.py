@@ -1,7 +1,5 @@
 """Guards and the result types of the experiment runner (runner.py): what stops an
 experiment, the limits it watches, the progress it reports and what it returns.
-
-Must not import: textual, rigbench.ui, rigbench.commands, control.
 """
 
 from __future__ import annotations

@@ -1,26 +1,11 @@
 """Low-order process models fitted to measured frequency-response points of a relay test.
 
-A relay's output is a square wave, so besides the fundamental it excites the odd harmonics
-(and the even ones when biased). Over whole periods of a periodic steady state, the ratio
-of the k-th Fourier components Y_k/U_k is G(j·k·ω) exactly for a linear plant, just as it
-is for the fundamental (docs/METHODS.md §3). :func:`harmonic_points` measures G at ω and 3ω;
-with the static gain of a biased relay that is enough to fit
-
-- ``'lag'``:         G(s) = K·e^{−Ls}/(T·s + 1)^n        (stable loops), or
-- ``'integrating'``: G(s) = K·e^{−Ls}/(s·(T·s + 1)^n)    (integrating loops),
-
-with n = 1 … 4 (n = 1 with a stable loop is the usual first order plus dead time), by least
-squares on the complex logarithm of model/measurement (log gain and phase in radians weigh
-alike): three unknowns (K, T, L; two with a static gain) from four equations. The order n
-with the smallest residual is kept (the lower one when two fit about as well). A first
-order model alone cannot follow a plant whose gain falls faster than 1/ω between ω and 3ω
-(three lags, say), which is why the order is fitted too. The phase of a point is known only modulo 360°: residuals use the wrapped phase
-difference, and the fit starts from a grid of delays so the branch is found, not guessed.
-
-These models exist to predict margins and disturbance responses of proposals (see
-proposals.py); they are deliberately simple and say how well they fit (``fit_rms``).
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
+:func:`harmonic_points` measures G at ω and 3ω (ω in rad/s, gain in y-units per u-unit,
+phase in degrees); the fits are ``'lag'`` K·e^{−Ls}/(T·s + 1)^n and ``'integrating'``
+K·e^{−Ls}/(s·(T·s + 1)^n), n = 1 … 4, T and L in s. Why the harmonics give exact points,
+the least-squares fit on the complex logarithm and the choice of order: docs/METHODS.md
+§3.3. These models exist to predict margins and disturbance responses of proposals; they
+are deliberately simple and say how well they fit (``fit_rms``).
 """
 
 from __future__ import annotations

@@ -31,8 +31,6 @@ What it guarantees
 
 All times are link-clock seconds (virtual for a simulated board with ``clock=virtual``).
 Values are in the board's declared units.
-
-Must not import: textual, rigbench.ui, rigbench.commands, control.
 """
 
 from __future__ import annotations
@@ -57,6 +55,8 @@ log = logging.getLogger(__name__)
 
 __all__ = ["Experiment", "ExperimentResult", "ExperimentStopped", "ArmRefused", "Guards",
            "Progress", "STOP_REASONS", "guard_limits"]
+
+log = logging.getLogger(__name__)
 
 
 class Experiment:
@@ -259,7 +259,8 @@ class Experiment:
             self.link.kill()
         except LinkError as exc:
             # nothing left to send it on; the board's watchdog turns the motor off
-            log.warning("kill not sent (%s); the board's watchdog must stop the motor", exc)
+            log.warning("experiment %r: kill not sent (%s); relying on the board's watchdog",
+                        self.name, exc)
         self._marks.append((self.link.now(), "kill"))
 
     def data(self) -> tuple[np.ndarray, np.ndarray]:
@@ -307,8 +308,8 @@ class Experiment:
                 self._recorder.note(f"stopped by {self._stop[0]}: {self._stop[1]}")
                 self._recorder.close()
             except Exception:  # noqa: BLE001 - a failed recording must not hide the result
-                log.error("recording %s could not be closed; it may lack its last rows",
-                          rec_path, exc_info=True)
+                log.warning("experiment %r: recording %s not closed cleanly", self.name,
+                            rec_path, exc_info=True)
         motor = None
         try:
             motor = self.link.status().motor

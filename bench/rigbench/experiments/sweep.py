@@ -25,8 +25,6 @@ goes on with the next set once the board's interlock would allow arming again (w
 ``rearm_wait_s``: a person stands the rig up and the wheel runs down; on the simulated rig
 a hand lifts it while the motor is off), otherwise the sweep stops there. The original
 values of every parameter a set changes are restored at the end, whatever happened.
-
-Must not import: textual, rigbench.ui, rigbench.commands, control.
 """
 
 from __future__ import annotations

@@ -9,8 +9,6 @@ and gives the two checks they both make: ``_check_can_open`` (not open yet, a UR
 and ``_check_open``. Each handler's ``Serial`` subclasses it and implements ``open``,
 ``close``, ``from_url``, ``read``, ``write``, ``in_waiting``, ``reset_input_buffer`` and
 ``cancel_read``.
-
-Must not import rigbench.link, rigbench.ui or Textual.
 """
 
 from __future__ import annotations

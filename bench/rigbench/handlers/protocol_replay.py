@@ -16,12 +16,10 @@ Options (``parse_replay_url``, a pure function; each at most once, unknown ones 
 - ``speed=X`` (0 < X ≤ 1000, default 1): X recorded seconds per second of the port's clock.
 - ``loop=1``: start over after the end (default ``0``: after the end only status frames).
 
-Attributes beyond pyserial's: ``clock`` (the port's clock, RealClock or VirtualClock from
-rigbench.rig.clock), ``board`` (the ReplayBoard), ``options``.
+Attributes beyond pyserial's: ``clock`` (the port's clock, RealClock from
+rigbench.base.clock or VirtualClock from rigbench.rig.clock), ``board`` (the ReplayBoard), ``options``.
 
 Line settings, modem lines and the output side come from ``rigbench.handlers.board_port``.
-
-Must not import rigbench.link, rigbench.ui or Textual.
 """
 
 from __future__ import annotations
@@ -35,7 +33,8 @@ from urllib.parse import parse_qsl, unquote, urlsplit
 from serial.serialutil import SerialException
 
 from rigbench.recordings.recording import RecordingError, load_recording
-from rigbench.rig.clock import RealClock, VirtualClock
+from rigbench.base.clock import RealClock
+from rigbench.rig.clock import VirtualClock
 
 from rigbench.handlers.board_port import BoardPort
 from rigbench.rig.replay import ReplayBoard

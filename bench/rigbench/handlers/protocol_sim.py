@@ -20,8 +20,6 @@ counters).
   ``in_waiting`` raises ``OSError`` (EIO), as a vanished USB device does on Linux.
 
 Line settings, modem lines and the output side come from ``rigbench.handlers.board_port``.
-
-Must not import rigbench.link or rigbench.ui.
 """
 
 from __future__ import annotations
@@ -32,7 +30,8 @@ import time
 
 from serial.serialutil import SerialException
 
-from rigbench.rig.clock import RealClock, VirtualClock
+from rigbench.base.clock import RealClock
+from rigbench.rig.clock import VirtualClock
 from rigbench.rig.simlink import SimLink
 from rigbench.rig.url import parse_sim_url
 

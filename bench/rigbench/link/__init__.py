@@ -1,11 +1,9 @@
 """The I/O layer: a Link to one board over any pyserial URL (device path, ``socket://``,
 ``sim://...``), with one reader thread, kill ahead of everything, the heartbeat, telemetry
 in a ring buffer read by cursor, and link health.
-
-Must not import rigbench.rig, rigbench.ui, Textual or domain modules.
 """
 
-from rigbench.link.clock import RealClock
+from rigbench.base.clock import RealClock
 from rigbench.link.errors import (
     BoardRefused, IncompatibleBoard, LinkError, LinkLost, LinkTimeout, SaveMismatch,
 )

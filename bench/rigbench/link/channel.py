@@ -16,8 +16,6 @@ bytes before its own frame, so nothing queued goes ahead of the kill. Frames are
 ``kill_lock_wait_s`` (a write stuck on a full driver buffer) the kill bytes are written
 without the lock: they may land inside that frame, which the board then discards, as the
 protocol allows (the kill acts wherever the board's parser is).
-
-Must not import rigbench.rig, rigbench.ui or domain modules.
 """
 
 from __future__ import annotations

@@ -5,29 +5,11 @@ A port may bring its own clock (the simulated board's ``port.clock``; in virtual
 its time advances only as the host reads). Any object with ``now() -> float`` (seconds) and
 ``sleep(dt)`` counts as a clock; ``virtual`` (default False) says that its time is not wall
 time, so waits must be woken by the reader rather than by real-time timeouts.
-
-Must not import rigbench.rig, rigbench.ui or domain modules (the simulated board's own clock
-arrives as an attribute of the port object, duck-typed).
 """
 
 from __future__ import annotations
 
-import time
-
-
-class RealClock:
-    """Monotonic wall-clock seconds (``time.monotonic``)."""
-
-    virtual = False
-
-    @staticmethod
-    def now() -> float:
-        return time.monotonic()
-
-    @staticmethod
-    def sleep(dt: float) -> None:
-        if dt > 0:
-            time.sleep(dt)
+from rigbench.base.clock import RealClock
 
 
 def is_clock(obj) -> bool:

@@ -3,8 +3,6 @@
 ``LinkError`` and its subclasses mean the link itself failed (port missing, busy, not
 permitted, lost, no reply, incompatible board). ``BoardRefused`` is separate: the board
 answered and said no (PROTOCOL.md §4.3); it is not a link failure.
-
-Must not import rigbench.rig, rigbench.ui or domain modules.
 """
 
 from __future__ import annotations

@@ -6,8 +6,6 @@ plain attributes (``last_status``, ``motor_state``, counters: single assignments
 restart (``ev boot``, or its clock or frame counter going back: PROTOCOL.md §6.1, §6.3)
 latches ``handshake_needed`` and sets ``reset_seen``; the Link's resync thread, never the
 reader, then handshakes again.
-
-Must not import rigbench.rig, rigbench.ui or domain modules.
 """
 
 from __future__ import annotations

@@ -13,8 +13,6 @@ monotonic time). Wait with ``link.sleep``/``link.wait_until`` (or the port clock
 ``sleep``), never ``time.sleep``: with a virtual clock, simulated time moves only while
 someone waits on the link (waits.py), so a run driven from one thread is repeatable.
 Values are the board's declared units; convert with rigbench.base.units.
-
-Must not import rigbench.rig, rigbench.ui or domain modules.
 """
 
 from __future__ import annotations

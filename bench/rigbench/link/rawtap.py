@@ -11,8 +11,6 @@ unfinished one (recorded, marked cut).
 
 Cheap on the reader's path (2 kHz telemetry): one ``split`` per chunk and one log append
 per chunk holding its finished lines; text conversion happens when a reader asks.
-
-Must not import rigbench.rig, rigbench.ui or domain modules.
 """
 
 from __future__ import annotations

@@ -3,8 +3,6 @@
 Values are SI inside Python: times in seconds (``heartbeat_age_s`` from the board's
 ``hb_ms``). Board time is the unwrapped board clock in seconds; host time is the link
 clock in seconds (see timebase.ClockMap).
-
-Must not import rigbench.rig, rigbench.ui or domain modules.
 """
 
 from __future__ import annotations

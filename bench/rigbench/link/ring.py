@@ -5,8 +5,6 @@ frame number, one column per declared signal). ``CursorLog``: a bounded log of a
 Readers keep a cursor (a count of items ever appended) and ask for what came since; if
 they fall more than the capacity behind, the oldest items are gone and the reply says how
 many were skipped. Nothing here calls back into readers.
-
-Must not import rigbench.rig, rigbench.ui or domain modules.
 """
 
 from __future__ import annotations

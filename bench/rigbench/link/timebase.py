@@ -6,7 +6,7 @@ produced (dropped ones too) and wraps at 2³²; ``time_us`` is the board's micro
 32-bit, wrapping about every 71.6 minutes. The host unwraps both. A step backwards larger
 than a small tolerance cannot be a wrap: it means the board restarted.
 
-Pure arithmetic, no I/O or threads. Must not import rigbench.rig, rigbench.ui or domain modules.
+Pure arithmetic, no I/O or threads.
 """
 
 from __future__ import annotations

@@ -11,8 +11,6 @@ passes only when the host asks for it and single-threaded runs are repeatable. A
 board restart, only the resync thread's waits count, so the re-handshake happens before
 simulated time runs on for anyone else. With several threads waiting at once, how far time
 runs before each gets scheduled is not repeatable.
-
-Must not import rigbench.rig, rigbench.ui or domain modules.
 """
 
 from __future__ import annotations

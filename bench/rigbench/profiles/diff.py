@@ -1,7 +1,5 @@
 """Comparing gain profiles: values equal to 7 significant digits, a row per parameter, and a
 plain text table. Profiles are rigbench.profiles.model.Profile.
-
-Must not import textual, rigbench.ui, rigbench.commands or control.
 """
 
 from __future__ import annotations

@@ -7,8 +7,6 @@ The schema is documented in profiles/README.md. ``load_profile`` reads a file st
 a board declares (parameters, units, ranges, access, loops) before anything is sent,
 ``profile_from_board`` reads a board's current values into a profile, ``diff_profiles``
 compares two profiles setting by setting. Values are in the board's declared units.
-
-Must not import textual, rigbench.ui, rigbench.commands or control.
 """
 
 from __future__ import annotations
@@ -336,21 +334,33 @@ def check_against_board(profile: Profile, params: Mapping[str, ParamInfo],
                                         f"{', '.join(loop.gains)}; the profile lacks "
                                         f"{', '.join(missing)}"))
     for name, s in profile.settings().items():
-        where = profile.where(name)
-        p = params.get(name)
-        if p is None:
-            out.append(Problem(where, f"the board has no parameter {name!r}"
-                                      f"{near_hint(name, params)}", s.line))
-            continue
-        if s.unit != p.unit:
-            out.append(Problem(where, f"unit {s.unit!r} differs from the board's {p.unit!r}",
-                               s.line))
-        if not p.writable:
-            out.append(Problem(where, "the parameter is read-only on this board", s.line))
-        if not p.admits(s.value):
-            out.append(Problem(where, f"{format_value(s.value)} is outside the board's range "
+        out += param_problems(params, name, [s.value], profile.where(name), s.line, unit=s.unit)
+    return out
+
+
+def param_problems(params: Mapping[str, ParamInfo], name: str, values, where: str,
+                   line: int | None = None, *, unit: str | None = None,
+                   named: bool = False) -> list[Problem]:
+    """What stops writing ``values`` to board parameter ``name``: unknown to the board (with
+    a near name), another ``unit`` than the board's (when given), read-only, outside the
+    board's range. ``named``: the messages name the parameter (for a ``where`` that does
+    not)."""
+    p = params.get(name)
+    if p is None:
+        return [Problem(where, f"the board has no parameter {name!r}{near_hint(name, params)}",
+                        line)]
+    out = []
+    if unit is not None and unit != p.unit:
+        out.append(Problem(where, f"unit {unit!r} differs from the board's {p.unit!r}", line))
+    if not p.writable:
+        out.append(Problem(where, f"{name if named else 'the parameter'} is read-only on this "
+                                  "board", line))
+    for v in values:
+        if not p.admits(v):
+            shown = f"{name} = {format_value(v)}" if named else format_value(v)
+            out.append(Problem(where, f"{shown} is outside the board's range "
                                       f"{format_value(p.minimum)}..{format_value(p.maximum)} "
-                                      f"{p.unit}", s.line))
+                                      f"{p.unit}", line))
     return out
 
 

@@ -15,20 +15,19 @@ It never arms, disarms or changes the mode.
 
 ``link`` is anything with the Link interface (``info``, ``params``, ``loops``, ``get``,
 ``set``, ``status``, ``save``, ``health``, ``event_cursor``, ``events_since``).
-
-Must not import textual, rigbench.ui, rigbench.commands or control.
 """
 
 from __future__ import annotations
 
 from dataclasses import dataclass, field, replace
 
+from rigbench.link.records import SaveResult
 from rigbench.profiles.diff import DiffRow, diff_profiles, same_value
 from rigbench.profiles.model import Problem, Profile, check_against_board, read_values
 from rigbench.wire.crc import crc16
 from rigbench.wire.describe import format_value
 
-__all__ = ["BUSY_MODES", "PushRefused", "SaveCheck", "PushReport", "push_profile",
+__all__ = ["BUSY_MODES", "PushRefused", "PushReport", "push_profile",
            "board_values_profile", "image_crc"]
 
 BUSY_MODES = ("relay", "open", "inject")
@@ -45,20 +44,6 @@ class PushRefused(Exception):
 
 
 @dataclass(frozen=True)
-class SaveCheck:
-    """The board's reply to ``save`` and the CRC the host computed from read-back values."""
-
-    count: int
-    crc: int
-    host_crc: int
-    expected_count: int
-
-    @property
-    def verified(self) -> bool:
-        return self.crc == self.host_crc and self.count == self.expected_count
-
-
-@dataclass(frozen=True)
 class PushReport:
     profile: Profile
     board: str
@@ -70,7 +55,7 @@ class PushReport:
     readback: dict[str, float] = field(default_factory=dict)
     mismatches: tuple[str, ...] = ()  # names whose read-back differs from the profile
     reset: str | None = None  # why we think the board restarted, if it did
-    save: SaveCheck | None = None
+    save: SaveResult | None = None  # the board's save reply, CRC from read-back values
 
     @property
     def ok(self) -> bool:
@@ -156,7 +141,7 @@ def push_profile(link, profile: Profile, *, persist: bool = False, dry_run: bool
     result = link.save(verify=False)
     writable = [p.name for p in link.params.values() if p.writable]
     stored = read_values(link, writable)
-    check = SaveCheck(count=result.count, crc=result.crc, host_crc=image_crc(writable, stored),
+    check = SaveResult(count=result.count, crc=result.crc, host_crc=image_crc(writable, stored),
                       expected_count=len(writable))
     late = [n for n in wanted if not same_value(stored[n], wanted[n], digits=digits)]
     reset = _reset_reason(link, cursor, resets_before, before, wanted, stored, digits)

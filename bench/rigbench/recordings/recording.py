@@ -16,8 +16,7 @@ and at close, with ``complete: false`` until a clean close.
 ``load_recording(path)`` reads a recording back (arrays plus sidecar); bad input raises
 ``RecordingError`` naming the file and line.
 
-Domain layer: numpy, pyyaml and bench's leaf helpers only. Must not import rigbench.ui,
-Textual or rigbench.commands; link types are imported for typing only.
+Domain layer: numpy, pyyaml and bench's leaf helpers only.
 """
 
 from __future__ import annotations
@@ -36,6 +35,7 @@ import numpy as np
 import yaml
 
 from rigbench.base.atomic import write_text_atomic
+from rigbench.base.jsonsafe import to_plain
 from rigbench.base.yamlload import SchemaError, load_yaml
 
 if TYPE_CHECKING:  # pragma: no cover
@@ -60,13 +60,6 @@ def sidecar_path(path_csv: str | Path) -> Path:
 
 def _wall() -> str:
     return datetime.now(timezone.utc).isoformat(timespec="seconds")
-
-
-def _plain(value):
-    """Numbers and words as YAML-friendly plain values."""
-    if isinstance(value, (np.floating, np.integer)):
-        return value.item()
-    return value
 
 
 class Recorder:
@@ -207,9 +200,9 @@ class Recorder:
         self._ev_cursor, events = self.link.events_since(self._ev_cursor)
         for ev in events:
             self._events.append({
-                "host_time_s": _plain(ev.host_time_s), "board_time_s": _plain(ev.board_time_s),
+                "host_time_s": to_plain(ev.host_time_s), "board_time_s": to_plain(ev.board_time_s),
                 "source": ev.source, "kind": ev.kind,
-                "fields": {str(k): _plain(v) for k, v in ev.fields.items()}})
+                "fields": {str(k): to_plain(v) for k, v in ev.fields.items()}})
         self._st_cursor, statuses = self.link.statuses_since(self._st_cursor)
         for st in statuses:  # status frames come often: keep only changes of state
             state = (st.motor, st.mode, st.loop, st.fault)

@@ -9,8 +9,7 @@ frequency response with the measured points; the loop's frequency response for t
 gains and the proposals with their predicted margins marked; the sweep metrics per sweep
 step as bars with their spread (min to max).
 
-Must not import textual, rigbench.ui, rigbench.commands, rigbench.link or control; matplotlib only
-inside the functions (``PlotsUnavailable`` when it is missing).
+matplotlib is imported only inside the functions (``PlotsUnavailable`` when it is missing).
 """
 
 from __future__ import annotations

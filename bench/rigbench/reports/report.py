@@ -18,7 +18,6 @@ Times on plots are seconds since the recording started. matplotlib is imported o
 plotting; without it the summary is written all the same, without plots, and
 ``Report.plots_unavailable`` holds the install hint (``plots=False`` skips plots on purpose).
 
-Must not import textual, rigbench.ui, rigbench.commands, rigbench.link or control.
 """
 
 from __future__ import annotations

@@ -3,7 +3,7 @@ reads.
 
 Both have ``now() -> float`` (seconds), ``sleep(dt)`` and ``virtual: bool``.
 
-- ``RealClock``: ``time.monotonic`` and ``time.sleep``.
+- ``RealClock`` (wall time) is ``rigbench.base.clock.RealClock``.
 - ``VirtualClock``: ``now()`` is the simulated board's time. The simulation moves it with
   ``advance_to(t)``; ``sleep(dt)`` blocks until simulated time has moved on by ``dt``,
   woken through a ``threading.Condition``. So that a thread woken by a deadline (a
@@ -12,8 +12,6 @@ Both have ``now() -> float`` (seconds), ``sleep(dt)`` and ``virtual: bool``.
   passed. A sleeper whose simulated time does not move for ``stall_guard_s`` wall seconds
   raises ``ClockStalled`` instead of hanging (nobody is reading the port, so nothing drives
   the simulation).
-
-Must not import serial, rigbench.link, rigbench.ui, Textual or control.
 """
 
 from __future__ import annotations
@@ -21,26 +19,11 @@ from __future__ import annotations
 import threading
 import time
 
-__all__ = ["RealClock", "VirtualClock", "ClockStalled"]
+__all__ = ["VirtualClock", "ClockStalled"]
 
 
 class ClockStalled(RuntimeError):
     """Simulated time stopped moving while a thread waited on it."""
-
-
-class RealClock:
-    """Wall-clock seconds (``time.monotonic``)."""
-
-    virtual = False
-
-    @staticmethod
-    def now() -> float:
-        return time.monotonic()
-
-    @staticmethod
-    def sleep(dt: float) -> None:
-        if dt > 0:
-            time.sleep(dt)
 
 
 class VirtualClock:

@@ -1,5 +1,5 @@
 """A simulated board on a pseudo-terminal, for programs that open a device path
-(``rigbench sim``; DESIGN.md Decision 3).
+(``rigbench sim``; README.md, Commands).
 
 ``serve_pty(options, on_ready=...)`` opens a pty (``os.openpty``), puts the slave in raw
 mode, makes it owner-only (0600), keeps its own slave descriptor open (otherwise reads on
@@ -13,7 +13,7 @@ kill byte acts before the next loop period).
 ``run_sim_server(url_or_rig, link_path)`` is the command-line front: prints the device
 path, optionally makes a symlink to it, serves until Ctrl-C, returns an exit code.
 
-POSIX only. Must not import rigbench.link, rigbench.ui, Textual or control.
+POSIX only.
 """
 
 from __future__ import annotations

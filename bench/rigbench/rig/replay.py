@@ -19,8 +19,7 @@ the board's recorded events (``ev``, §6.3) and a status frame every ``status_pe
 on (so the host sees no restart). Output beyond ``max_buffer`` bytes is dropped and
 counted (``drops``), as a board never blocks on a full link.
 
-Must not import rigbench.link, rigbench.ui, serial or Textual. Imports rigbench.wire and the
-recording reader (rigbench.recordings.recording).
+Imports rigbench.wire and the recording reader (rigbench.recordings.recording).
 """
 
 from __future__ import annotations

@@ -18,8 +18,6 @@ Faults (from ``SimOptions``; times are the board's simulated seconds since it wa
 
 Deterministic: the plant's noise comes from ``seed``, the line's faults from a separate
 stream derived from the same seed.
-
-Must not import serial, rigbench.link, rigbench.ui, Textual or control.
 """
 
 from __future__ import annotations

@@ -1,4 +1,4 @@
-"""``sim://`` URLs: parse into ``SimOptions`` and format back (DESIGN.md Decision 3).
+"""``sim://`` URLs: parse into ``SimOptions`` and format back (README.md, Simulated rigs).
 
     sim://balance[?drive=speed|torque]
     sim://wheel
@@ -14,8 +14,6 @@ simulated seconds since the port was opened.
 
 Every option may appear once; unknown options, options of another rig and bad values
 raise ValueError naming the option. Pure function, no I/O: fuzzed in the tests.
-
-Must not import serial, rigbench.link, rigbench.ui, Textual or control.
 """
 
 from __future__ import annotations

@@ -6,20 +6,17 @@ problem a runner would otherwise meet mid-run: pushed profiles that do not fit
 declared range, loops and signals the board does not have, guards that need a parameter the
 board lacks, and a sequence written for another rig kind. Problems carry the sequence file's
 line and the step's field path (``steps[3].relay.loop``).
-
-Must not import textual, rigbench.ui, rigbench.commands, rigbench.link or control.
 """
 
 from __future__ import annotations
 
 from typing import Iterable, Mapping
 
-from rigbench.profiles.model import Problem, check_against_board
+from rigbench.profiles.model import Problem, check_against_board, param_problems
 from rigbench.sequences.steps import (
-    PushStep, RelayStep, RepeatStep, Sequence, SetStep, Step, SweepStep, WaitStep,
+    PushStep, RelayStep, RepeatStep, Sequence, SetStep, SweepStep, WaitStep,
 )
-from rigbench.wire.describe import LoopInfo, ParamInfo, format_value
-from rigbench.base.yamlload import near_hint
+from rigbench.wire.describe import LoopInfo, ParamInfo
 
 __all__ = ["check_sequence_against_board"]
 
@@ -50,9 +47,11 @@ def _steps(steps, params, loops, signals, info, out: list[Problem]) -> None:
                                    p.severity))
         elif isinstance(s, SetStep):
             for name, value in s.values.items():
-                _param(s, f"{s.where}.{name}", name, [value], params, out)
+                out += param_problems(params, name, [value], f"{s.where}.{name}", s.line,
+                                      named=True)
         elif isinstance(s, RepeatStep):
-            _param(s, f"{s.where}.for.param", s.param, s.values, params, out)
+            out += param_problems(params, s.param, s.values, f"{s.where}.for.param", s.line,
+                                  named=True)
             _steps(s.steps, params, loops, signals, info, out)
         elif isinstance(s, (RelayStep, SweepStep)) and s.loop not in loops:
             out.append(Problem(f"{s.where}.loop", f"the board has no loop {s.loop!r}; it has: "
@@ -61,21 +60,6 @@ def _steps(steps, params, loops, signals, info, out: list[Problem]) -> None:
                 and s.settled.signal not in signals:
             out.append(Problem(f"{s.where}.settled.signal", f"the board has no signal "
                                f"{s.settled.signal!r}; it has: {', '.join(signals)}", s.line))
-
-
-def _param(step: Step, field: str, name: str, values, params, out: list[Problem]) -> None:
-    p = params.get(name)
-    if p is None:
-        out.append(Problem(field, f"the board has no parameter {name!r}"
-                                  f"{near_hint(name, params)}", step.line))
-        return
-    if not p.writable:
-        out.append(Problem(field, f"{name} is read-only on this board", step.line))
-    for v in values:
-        if not p.admits(v):
-            out.append(Problem(field, f"{name} = {format_value(v)} is outside the board's range "
-                                      f"{format_value(p.minimum)}..{format_value(p.maximum)} "
-                                      f"{p.unit}", step.line))
 
 
 def _guards(guards, field: str, line, params, signals, out: list[Problem]) -> None:

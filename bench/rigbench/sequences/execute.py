@@ -1,6 +1,11 @@
 """The steps of a sequence run, one method per step kind (sequences/README.md), and the
 guards and stop flag they share. rigbench.sequences.run drives them in order and ends the run.
 
+- ``StepRunner(run)`` runs one step with ``run_step``, looking its method up in the table
+  ``STEP_ACTIONS`` (step kind -> method). What it uses of the run is the ``RunState``
+  protocol: the link, the sequence, the results folder, the result being filled, the
+  latest relay/sweep metrics, the sweep's settings and the progress report.
+
 - ``experiment_guards`` turns a step's guards (|tilt| in degrees, |wheel| as a fraction of
   ``trip_wheel``, stale telemetry) into rigbench.experiments guards in the board's units.
 - ``StepStop`` is the cancel flag experiments see: the user's cancel or the step's
@@ -14,13 +19,13 @@ guards and stop flag they share. rigbench.sequences.run drives them in order and
   the loop's ``trip_<measure>`` (the board must declare one).
 - The ``sweep`` step injects each amplitude as given (sign included) ``repeats`` times,
   ``spacing_s`` apart, from hold; metrics per push come from rigbench.sequences.stepdata.
-
-Must not import textual, rigbench.ui, rigbench.commands or control.
 """
 
 from __future__ import annotations
 
+from collections.abc import Callable
 from pathlib import Path
+from typing import TYPE_CHECKING, Any, Protocol
 
 from rigbench.experiments.conventions import loop_signals
 from rigbench.experiments.runner import Experiment
@@ -36,9 +41,12 @@ from rigbench.sequences.stepdata import (
 from rigbench.base.units import from_si, to_si
 from rigbench.wire.describe import format_value
 
-__all__ = ["StepRunner", "StepAbort", "StepStop", "experiment_guards", "cancelled",
-           "motor_state"]
+if TYPE_CHECKING:
+    from rigbench.sequences.results import SequenceResult
+    from rigbench.sequences.steps import Sequence
 
+__all__ = ["StepRunner", "RunState", "STEP_ACTIONS", "StepAbort", "StepStop",
+           "experiment_guards", "cancelled", "motor_state"]
 
 
 class StepAbort(Exception):
@@ -92,15 +100,42 @@ class StepStop:
 
 
 
+class RunState(Protocol):
+    """What the steps use of the run that drives them (rigbench.sequences.run)."""
+
+    link: Any                   # the open Link
+    seq: "Sequence"
+    folder: Path                # the results folder: every file a step writes goes here
+    result: "SequenceResult"    # steps count falls (``result.fell``); checks read it
+    latest: dict                # "relay"/"sweep" -> metrics of the latest such step, or None
+    sweep_pre_s: float          # quiet hold before a sweep's first push, link-clock s
+    band_noise: float           # settling band of a push, in noise standard deviations
+
+    def report(self, i: int, step, state: str, text: str, experiment=None) -> None:
+        """Progress of step ``i`` (``experiment``: an experiment's progress, if any)."""
+
+
 class StepRunner:
-    """The steps themselves; the run (rigbench.sequences.run) supplies ``link``, ``seq``,
-    ``folder``, ``result``, ``latest``, ``current``, ``sweep_pre_s``, ``band_noise`` and
-    ``_report``."""
+    """Runs the steps of ``run`` (a :class:`RunState`), one method per step kind."""
+
+    def __init__(self, run: RunState) -> None:
+        self.run = run
+
+    @property
+    def link(self):
+        return self.run.link
+
+    def run_step(self, i: int, step, out, stop: "StepStop") -> None:
+        """Run step ``i`` (its outcome ``out`` is filled in); raises StepAbort to end the run."""
+        action = STEP_ACTIONS.get(step.kind)
+        if action is None:
+            raise StepAbort("error", f"no action for a {step.kind!r} step")
+        action(self, i, step, out, stop)
 
     def _experiment_progress(self, i: int, step):
         def cb(p) -> None:
             words = f"{step.label()}: {p.phase}" + (f", {p.message}" if p.message else "")
-            self._report(i, step, "running", words, experiment=p)
+            self.run.report(i, step, "running", words, experiment=p)
         return cb
 
     def _guards(self, step) -> ExperimentGuards:
@@ -111,7 +146,7 @@ class StepRunner:
         if res.stopped_by == "done":
             return
         if res.stopped_by == "guard" and res.detail.startswith("|tilt|"):
-            self.result.fell += 1
+            self.run.result.fell += 1
         if res.stopped_by == "cancelled":
             why = stop.why or "cancelled"
             raise StepAbort(why, f"over its timeout_s {step.timeout_s:g}" if why == "timeout"
@@ -122,7 +157,7 @@ class StepRunner:
 
     # ------------------------------------------------------------------ the steps
 
-    def _do_push(self, step, out, stop) -> None:
+    def _do_push(self, i, step, out, stop) -> None:
         report = push_profile(self.link, step.profile, persist=step.persist)
         changed = sum(1 for row in report.rows if row.change != "same")
         out.data = {"changed": changed, "sent": len(report.applied),
@@ -134,7 +169,7 @@ class StepRunner:
                    else report.reset or "the save could not be verified")
             raise StepAbort("failed", why)
 
-    def _do_arm(self, step, out, stop) -> None:
+    def _do_arm(self, i, step, out, stop) -> None:
         motor = motor_state(self.link)
         if motor in ("armed", "running"):
             out.detail = f"already {motor}"
@@ -146,13 +181,13 @@ class StepRunner:
                 raise StepAbort("refused", f"the board refused to arm: {exc.text}") from None
             raise
 
-    def _do_hold(self, step, out, stop) -> None:
+    def _do_hold(self, i, step, out, stop) -> None:
         self.link.mode("hold")
 
-    def _do_disarm(self, step, out, stop) -> None:
+    def _do_disarm(self, i, step, out, stop) -> None:
         out.detail = f"motor {self.link.disarm()}"
 
-    def _do_set(self, step, out, stop) -> None:
+    def _do_set(self, i, step, out, stop) -> None:
         applied = self.link.set(**step.values)
         out.data = {"applied": dict(applied)}
         out.detail = " ".join(f"{k}={format_value(v)}" for k, v in applied.items()
@@ -161,10 +196,10 @@ class StepRunner:
     def _experiment(self, i, step, stop, *, name: str, results=False) -> Experiment:
         return Experiment(self.link, name=name, guards=self._guards(step), cancel=stop,
                           progress=self._experiment_progress(i, step),
-                          results_dir=self.folder if results else None)
+                          results_dir=self.run.folder if results else None)
 
-    def _do_wait(self, step, out, stop) -> None:
-        exp = self._experiment(self.current, step, stop, name=f"wait {step.index}")
+    def _do_wait(self, i, step, out, stop) -> None:
+        exp = self._experiment(i, step, stop, name=f"wait {step.index}")
         settled = None
         with exp:
             if step.seconds is not None:
@@ -184,15 +219,16 @@ class StepRunner:
                                        f"within {step.timeout_s:g} s")
         out.detail = f"{exp.result.ended_s - exp.result.started_s:.3g} s"
 
-    def _do_record(self, step, out, stop) -> None:
-        path = self.folder / f"{step.name}.csv"
-        if path.resolve().parent != self.folder.resolve():
+    def _do_record(self, i, step, out, stop) -> None:
+        folder = self.run.folder
+        path = folder / f"{step.name}.csv"
+        if path.resolve().parent != folder.resolve():
             raise StepAbort("error", f"recording {step.name!r} would leave the results folder")
-        exp = self._experiment(self.current, step, stop, name=f"record {step.name}")
+        exp = self._experiment(i, step, stop, name=f"record {step.name}")
         rec = None
         with exp:
             rec = Recorder(path, self.link, background=False,
-                           notes=[f"sequence {self.seq.name!r}, {step.label()}"]).start()
+                           notes=[f"sequence {self.run.seq.name!r}, {step.label()}"]).start()
             out.recordings.append(path.name)
             tick = _ticker(exp, f"recording {path.name}", step.seconds)
 
@@ -206,10 +242,9 @@ class StepRunner:
         out.detail = f"{rec.rows} rows to {path.name}"
         self._ended(exp.result, stop, step)
 
-    def _do_relay(self, step, out, stop) -> None:
+    def _do_relay(self, i, step, out, stop) -> None:
         from rigbench.experiments.relay import run_relay
 
-        i = self.current
         ls = loop_signals(self.link, step.loop)
         if ls.trip is None:
             raise StepAbort("refused", f"loop {step.loop!r}: the board declares no "
@@ -217,7 +252,7 @@ class StepRunner:
         run = run_relay(self.link, step.loop, amplitude=step.amplitude,
                         hysteresis=step.hysteresis, bias=step.bias, max_s=step.max_s,
                         cycles=step.cycles, cancel=stop,
-                        progress=self._experiment_progress(i, step), results_dir=self.folder,
+                        progress=self._experiment_progress(i, step), results_dir=self.run.folder,
                         guards=self._guards(step), bound_fraction=step.bound / ls.trip)
         metrics, data = relay_outcome(run)
         out.metrics, out.data = metrics, data
@@ -229,14 +264,14 @@ class StepRunner:
         res = run.experiment
         if res is not None and res.recording is not None:
             out.recordings.append(Path(res.recording).name)
-        self.latest["relay"] = metrics
+        self.run.latest["relay"] = metrics
         if res is not None:
             self._ended(res, stop, step)
         if run.stopped_by != "converged":
             raise StepAbort("failed", run.reason or run.stopped_by)
 
-    def _do_sweep(self, step, out, stop) -> None:
-        i = self.current
+    def _do_sweep(self, i, step, out, stop) -> None:
+        pre_s = self.run.sweep_pre_s
         ls = loop_signals(self.link, step.loop)
         exp = self._experiment(i, step, stop, name=f"sweep {step.loop}", results=True)
         pushes: list = []
@@ -244,15 +279,15 @@ class StepRunner:
         total = len(step.amplitudes) * step.repeats
         with exp:
             exp.hold()
-            exp.wait(self.sweep_pre_s)
+            exp.wait(pre_s)
             for amp in step.amplitudes:
                 for rep in range(step.repeats):
                     t0 = self.link.now()
                     exp.mode("inject", loop=ls.name, shape=step.shape, at=step.at, amp=amp,
                              time_s=step.time_s)
                     exp.wait(max(step.spacing_s, step.time_s + 3 * dt))
-                    pushes.append(push_record(exp, ls, t0, amp, rep, pre_s=self.sweep_pre_s,
-                                               band_noise=self.band_noise))
+                    pushes.append(push_record(exp, ls, t0, amp, rep, pre_s=pre_s,
+                                               band_noise=self.run.band_noise))
                     exp.report("sweep", fraction=len(pushes) / total, force=True,
                                cycles=len(pushes), cycles_needed=total,
                                message=f"push {len(pushes)} of {total}, amplitude {amp:g}")
@@ -271,18 +306,18 @@ class StepRunner:
                     "shape": step.shape, "at": step.at, "pushes": pushes}
         if res.recording is not None:
             out.recordings.append(Path(res.recording).name)
-        self.latest["sweep"] = out.metrics
+        self.run.latest["sweep"] = out.metrics
         self._ended(res, stop, step)
 
-    def _do_check(self, step, out, stop) -> None:
+    def _do_check(self, i, step, out, stop) -> None:
         family = step.metric.split(".")[0] if "." in step.metric else None
         if family is None:
-            measured = float(getattr(self.result, step.metric))
+            measured = float(getattr(self.run.result, step.metric))
             why = ""
-        elif self.latest.get(family) is None:
+        elif self.run.latest.get(family) is None:
             measured, why = None, f"no {family} step has run before this check"
         else:
-            measured = self.latest[family].get(step.metric)
+            measured = self.run.latest[family].get(step.metric)
             why = "" if measured is not None else f"{step.metric} was not measured"
         passed = measured is not None and measured == measured and step.passes(measured)
         out.check = {"metric": step.metric, "op": step.op, "value": step.value,
@@ -291,6 +326,21 @@ class StepRunner:
         shown = "-" if measured is None else f"{measured:.5g}"
         out.detail = why or f"{step.metric} = {shown} ({step.op} {step.value:g} " \
                             f"{'holds' if passed else 'does NOT hold'})"
+
+
+# step kind -> the method that runs it (``repeat`` is unrolled before the run: expand)
+STEP_ACTIONS: dict[str, Callable[..., None]] = {
+    "push": StepRunner._do_push,
+    "arm": StepRunner._do_arm,
+    "hold": StepRunner._do_hold,
+    "disarm": StepRunner._do_disarm,
+    "set": StepRunner._do_set,
+    "wait": StepRunner._do_wait,
+    "record": StepRunner._do_record,
+    "relay": StepRunner._do_relay,
+    "sweep": StepRunner._do_sweep,
+    "check": StepRunner._do_check,
+}
 
 
 def _ticker(exp, phase: str, budget_s: float):

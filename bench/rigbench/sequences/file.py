@@ -16,8 +16,6 @@ the project folder. Recording names are plain file names inside the results fold
 ``state=`` (a simulated board's storage file could be anywhere); any other URL (a network
 socket, a replayed file) is refused. ``rigbench run --port`` is not limited: that is the
 user's own choice, not the file's.
-
-Must not import textual, rigbench.ui, rigbench.commands, rigbench.link or control.
 """
 
 from __future__ import annotations

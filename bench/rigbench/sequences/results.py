@@ -12,8 +12,6 @@ Stop reasons (``STOP_REASONS``): ``done`` (every step ran; checks may still have
 took longer than its ``timeout_s``), ``refused`` (the board refused a command or the
 interlock refused to arm), ``failed`` (a step could not produce its result, e.g. a relay
 test without a sustained cycle), ``lost`` (the link went away), ``cancelled``, ``error``.
-
-Must not import textual, rigbench.ui, rigbench.commands, rigbench.link or control.
 """
 
 from __future__ import annotations
@@ -25,6 +23,7 @@ from pathlib import Path
 import yaml
 
 from rigbench.base.atomic import write_text_atomic
+from rigbench.base.jsonsafe import to_plain
 
 __all__ = ["STOP_REASONS", "SUMMARY_FORMAT", "StepOutcome", "SequenceResult", "summary_dict",
            "summary_markdown", "write_summary", "format_number"]
@@ -106,23 +105,10 @@ def format_number(value, digits: int = 4) -> str:
     return str(value)
 
 
-def _plain(value):
-    """Numbers, strings, lists and dicts only (numpy scalars and tuples turned plain)."""
-    if isinstance(value, dict):
-        return {str(k): _plain(v) for k, v in value.items()}
-    if isinstance(value, (list, tuple)):
-        return [_plain(v) for v in value]
-    if isinstance(value, Path):
-        return str(value)
-    if hasattr(value, "item") and not isinstance(value, (str, bytes)):
-        return value.item()
-    return value
-
-
 def summary_dict(result: SequenceResult) -> dict:
     """The run as plain data, in the order ``summary.yaml`` shows it."""
     checks = result.checks
-    return _plain({
+    return to_plain({
         "format": SUMMARY_FORMAT,
         "name": result.name,
         "sequence": result.sequence_path,

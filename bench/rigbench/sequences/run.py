@@ -24,8 +24,6 @@ the run. Between steps, a trip or restart seen in the link's events stops the ru
   rewritten atomically after every step). Profiles were read when the sequence was loaded.
 
 Units: times in link-clock seconds; values in the board's declared units.
-
-Must not import textual, rigbench.ui, rigbench.commands or control.
 """
 
 from __future__ import annotations
@@ -108,7 +106,9 @@ def run_sequence(link, *, sequence: Sequence, results_dir: str | Path | None = N
                 band_noise).run()
 
 
-class _Run(StepRunner):
+class _Run:
+    """One run of a sequence; it is the RunState its StepRunner works on."""
+
     def __init__(self, link, seq: Sequence, steps, folder: Path, cancel, progress,
                  sweep_pre_s: float, band_noise: float) -> None:
         self.link, self.seq, self.steps, self.folder = link, seq, steps, folder
@@ -126,6 +126,7 @@ class _Run(StepRunner):
                          dict(s.bindings)) for s in steps], seq.on_abort)
         self.t0 = link.now()
         self._written = -math.inf
+        self.runner = StepRunner(self)
 
     # ------------------------------------------------------------------ the run
 
@@ -167,11 +168,10 @@ class _Run(StepRunner):
         if stop.is_set():
             raise StepAbort("cancelled", f"cancelled before {step.label()}")
         out.started_s = link.now()
-        self.current = i
-        self._report(i, step, "start", f"{step.label()} (line {step.line})")
+        self.report(i, step, "start", f"{step.label()} (line {step.line})")
         try:
             try:
-                getattr(self, f"_do_{step.kind}")(step, out, stop)
+                self.runner.run_step(i, step, out, stop)
             except (ArmRefused, PushRefused) as exc:
                 raise StepAbort("refused", " ".join(str(exc).split())) from None
             except BoardRefused as exc:
@@ -201,17 +201,14 @@ class _Run(StepRunner):
                 out.ended_s = _now_or_none(link)
             self.done = i + 1
             self._write(force=out.outcome == "failed")
-            self._report(i, step, out.outcome, f"{step.label()}: {out.outcome}"
+            self.report(i, step, out.outcome, f"{step.label()}: {out.outcome}"
                          + (f": {out.detail}" if out.detail else ""))
 
     def _watch_events(self) -> None:
         """Trips and restarts the link saw (between steps too) stop the run."""
         self.ev_cursor, events = self.link.events_since(self.ev_cursor)
         for ev in events:
-            if ev.source == "board" and ev.kind == "trip":
-                self.result.trips += 1
-                if ev.get("cause") == "tilt_limit":
-                    self.result.fell += 1
+            if self._count_trip(ev):
                 raise StepAbort("guard", f"the board tripped: {ev.get('cause', '?')}")
             if ev.source == "link" and ev.kind in ("reset", "lost"):
                 raise StepAbort("guard" if ev.kind == "reset" else "lost",
@@ -257,7 +254,7 @@ class _Run(StepRunner):
         except LinkError:
             pass
         self._write(force=True)
-        self._report(max(self.done - 1, 0), None, "end", _end_text(r))
+        self.report(max(self.done - 1, 0), None, "end", _end_text(r))
 
     def _count_trips_after_stop(self) -> None:
         try:
@@ -265,10 +262,16 @@ class _Run(StepRunner):
         except (LinkError, ValueError):
             return
         for ev in events:
-            if ev.source == "board" and ev.kind == "trip":
-                self.result.trips += 1
-                if ev.get("cause") == "tilt_limit":
-                    self.result.fell += 1
+            self._count_trip(ev)
+
+    def _count_trip(self, ev) -> bool:
+        """Count a board trip event (a tilt-limit trip is also a fall); True if it was one."""
+        if ev.source == "board" and ev.kind == "trip":
+            self.result.trips += 1
+            if ev.get("cause") == "tilt_limit":
+                self.result.fell += 1
+            return True
+        return False
 
     def _write(self, *, force: bool = False, every_s: float = 1.0) -> None:
         """Rewrite the summary files (at most every ``every_s`` of wall time unless forced:
@@ -277,7 +280,7 @@ class _Run(StepRunner):
             write_summary(self.folder, summary_dict(self.result))
             self._written = time.monotonic()
 
-    def _report(self, i: int, step, state: str, text: str, experiment=None) -> None:
+    def report(self, i: int, step, state: str, text: str, experiment=None) -> None:
         if self.progress_cb is None:
             return
         index = step.index if step is not None else ""

@@ -8,8 +8,6 @@ guards in force filled in: what a dry run prints and what a runner executes.
 
 Units: seconds for every ``*_s``; tilt in degrees (``tilt_deg``); amplitudes, hysteresis,
 bounds and thresholds in the board's declared units of the loop's signals (PROTOCOL.md §8).
-
-Must not import textual, rigbench.ui, rigbench.commands, rigbench.link or control.
 """
 
 from __future__ import annotations

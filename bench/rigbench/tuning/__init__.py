@@ -11,5 +11,4 @@ balance-rig model fitting and designs, sweep metrics. Modules:
 - metrics:  disturbance_metrics, step_metrics, summarise
 
 Everything takes and returns SI numbers (see rigbench.base.units for the edge conversion).
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
 """

@@ -1,37 +1,12 @@
-"""Model of a reaction-wheel balance loop, fitted from logged data (docs/METHODS.md §4).
+"""Model of a reaction-wheel balance loop, fitted from logged data.
 
-Body tilt θ (rad), wheel speed w relative to the body (rad/s), controller output u.
-- Speed drive (the driver tracks a wheel-speed command): θ̈ = a²(θ − δ) − c′·ẇ and
-  w = g·e^{−s·d·dt}/(τe·s + 1)·u, hence θ/u = −c′·g·s·e^{−s·d·dt}/((τe·s + 1)(s² − a²)).
-  a² = m·g·l/Jt, c′ = Jw/Jt (Spong, Corke & Lozano 2001; Block, Åström & Spong 2007).
-- Torque drive (u is motor torque): θ̈ = a²(θ − δ) − b·u(t − d·dt), θ/u = −b/(s² − a²)
-  with a² = m·g·l/Jp and b = 1/Jp (stored in ``c_prime``).
-
-Board convention (fixed): error e = θ − θ_sp (measurement minus set-point), output
-u = kp·e + ki·∫e + kd·θ̇ — a direct-acting loop, so margins use
-LoopController(..., direct_acting=True). For the speed drive the closed loop is then
-(τe s + 1)(s² − a²) + c′g(kd s² + kp s + ki) = 0, which with τe = 0, g = 1 is METHODS'
-(1 + c·kd)s² + c·kp·s + (c·ki − a²).
-
-Fitting (:func:`fit_balance_model`, docs/METHODS.md §4 recipe): the same zero-phase Butterworth
-low-pass on tilt, gyro, wheel speed and command (a linear time-invariant filter keeps the
-linear relations between them); least squares θ̈ = a²θ − c′·ẇ + k0 with θ̈, ẇ the
-derivatives of the filtered gyro and wheel speed; δ = −k0/a². Actuator: least squares
-w[k+1] = α·w[k] + β·u[k−d] for d = 0..max_delay, the best d kept; τe = −dt/ln α,
-g = β/(1 − α). Torque drive: θ̈ = a²θ − b·u[k−d] + k0 with the same scan of d.
-Uncertainties are 1-sigma from the least-squares covariance, with the residual variance
-counted over n_eff = n·2·fc·dt samples (the filter correlates neighbouring residuals).
-A record that cannot give a model raises :class:`BalanceFitError` (a ValueError) saying
-why: too short for the filter, no unstable pole in the data, or a driver lag that is not
-identified — the actuator fit's α must lie in (0, 1) by two standard errors, which a
-short or unexcited window (the wheel barely moving beyond its slow drift) fails, often
-with α > 1. Such a record is refused rather than fitted within bounds: a lag pinned at a
-bound would look like a measurement.
-Identify from relay or PRBS runs: quiet data with unmeasured pushes bias a (docs/METHODS.md §4).
+Body tilt θ in rad, wheel speed w relative to the body in rad/s, times in s, the
+controller output u in the drive's unit (wheel-speed command in rad/s, or torque in N·m).
+The model (a², c′ or b, δ, the actuator's gain, lag τe and dead time), the board's sign
+convention (e = θ − θ_sp, direct acting) and the fitting recipe with its refusals
+(:class:`BalanceFitError`, a ValueError saying why): docs/METHODS.md §4 and §4.2.
 
 Designs live in rigbench.tuning.balance_design (pole placement, LQR) and are re-exported here.
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
 """
 
 from __future__ import annotations

@@ -1,30 +1,9 @@
 """Controller designs on a fitted BalanceModel: pole placement and discrete LQR.
 
-Pole placement (tilt PID, board convention e = θ − θ_sp, direct acting; docs/METHODS.md §4):
-- Speed drive, PI with lag τe (c = c′·g): closed loop (τe s + 1)(s² − a²) + c(kp s + ki)
-  placed at (s² + 2ζωn s + ωn²)(s + p3) gives p3 = 1/τe − 2ζωn,
-  kp = τe(ωn² + 2ζωn·p3 + a²)/c, ki = (a² + τe·ωn²·p3)/c (docs/METHODS.md §4, re-derived).
-  PID: p3 is free (default 1/τe) and kd = (τe(2ζωn + p3) − 1)/c.
-- Torque drive, PID (b = 1/Jp): s(s² − a²) + b(kd s² + kp s + ki) placed at the same
-  polynomial: kd = (2ζωn + p3)/b, kp = (ωn² + 2ζωn·p3 + a²)/b, ki = ωn²·p3/b.
-  A PI cannot stabilise it (no s² term).
-The design ignores dead time and sampling; each proposal carries the closed-loop poles
-computed back from the model (the check that they land where placed) and the margins
-predicted for the discrete controller at the model's dt with the model's dead time.
-
-LQR (discrete, scipy.linalg.solve_discrete_are) on the ZOH model at dt with states
-[θ, θ̇, w, ∫w] (speed drive) or [θ, θ̇] (torque drive), plus one state per sample of
-command delay (u[k−d] … u[k−1]); u = −K·x. Default weights by Bryson's rule (Bryson &
-Ho 1975, Applied Optimal Control): q_i = 1/x_max², r = 1/u_max², with the maxima as
-visible keywords. Nearest PID equivalent with the board's structure
-u = kp(θ − θ_sp) + kd·θ̇ and an outer wheel-speed trim θ_sp = trim_kp·w + trim_ki·∫w:
-kp = −K̃_θ, kd = −K̃_θ̇, trim_kp = K̃_w/kp, trim_ki = K̃_∫w/kp (ki = 0: the ∫w feedback
-does the integral's job), where K̃ = K_x/(1 + ΣK_u) folds the gains K_u on delayed
-commands in by taking u[k−i] ≈ u[k] (exact at low frequency; simply dropping them can
-leave an unstable loop when they are large). The margins of this PID + trim are predicted
-with the loop broken at the plant input.
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
+Gains come out in the model's units (rad, rad/s, s; the output in the drive's unit), for
+the board's tilt PID (e = θ − θ_sp, direct acting) and, for LQR, its nearest PID plus an
+outer wheel-speed trim. The pole-placement formulas, the LQR states and default weights
+(Bryson's rule) and the mapping to the nearest PID: docs/METHODS.md §4.3.
 """
 
 from __future__ import annotations

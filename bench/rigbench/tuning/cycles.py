@@ -1,46 +1,12 @@
 """Convergence of a relay experiment's cycles: do the per-cycle figures still drift?
 
-The per-cycle figures of a relay test (period, amplitude, and for a biased relay the
-cycle's ∫y/∫u) settle to a stationary sequence whose remaining cycle-to-cycle variation is
-noise (measurement noise moves the switching instants and the peaks) and, for the period,
-quantisation: a board switches at its samples, so a period lying between 30 and 31
-samples alternates between the two, steps of 3%. A test on consecutive changes below a
-fixed tolerance never ends on such cycles. The test here asks whether the cycles still
-*drift* beyond what their own scatter and resolution explain:
-
-For each series x over a window of the last n cycles (n ≥ 3):
-- a straight line x ≈ x̄ + b·(i − ī) is fitted by least squares; the **drift** is the
-  change along it across the window, |b|·(n − 1), relative to the mean |x̄|;
-- its standard error is se = (n − 1)·σ/√Σ(i − ī)², σ the cycle-to-cycle noise of the
-  series estimated robustly from successive differences: σ = 1.4826·MAD(Δx)/√2 (MAD the
-  median absolute deviation from their median; Δx of white noise has a standard
-  deviation of √2·σ). A trend shifts all differences alike and a decaying start-up
-  transient changes only the first few, so neither inflates σ (the scatter about the
-  line, or the plain standard deviation, would take a transient for noise). σ is taken
-  over the last max(n, ``noise_cycles``) cycles: a few differences cannot tell noise
-  from a transient still under way, so with fewer than ``noise_cycles`` cycles recorded
-  there is no noise allowance at all (the test is then drift ≤ max(tol, floor));
-- the window is settled when for every series drift ≤ max(tol, floor/|x̄|, z·se/|x̄|),
-  z = ``noise_sigmas`` (3: a drift within three standard errors cannot be told from
-  noise), floor the series' resolution: for the period ``resolution_samples`` sample
-  intervals (1.5 covers the sawtooth of a period between two whole numbers of samples,
-  whose fitted drift over a window reaches up to 1.5 samples), none for the others;
-- and no series scatters by more than ``max_scatter`` (relative standard deviation): a
-  relay whose band is too narrow for the noise chatters, each crossing of the band
-  making a "cycle" of random length; that is not a limit cycle however long it runs.
-Reported per series: mean, scatter (relative sample standard deviation), standard error
-of the mean (scatter/√n: the precision of the averaged estimate — a noisy loop needs
-more cycles for the same precision), drift and the allowance.
-
-With a window of few cycles the drift test is lenient toward noise and strict only
-against trends well above it; ask for more cycles (``min_cycles``) for a stricter one.
-Common practice, no single source: the line fit and the standard error of its slope are
-the textbook least-squares ones, the MAD scale factor 1.4826 is that of a normal
-distribution.
+Series are per-cycle figures (period in s, amplitude in the measure's unit, ∫y/∫u); the
+tolerances (``tol``, ``max_scatter``) are relative, ``resolution_samples`` is in sample
+intervals. The test — a least-squares drift across the window of the last cycles, judged
+against the series' resolution and a robust estimate of its cycle-to-cycle noise — and its
+reasons are in docs/METHODS.md §3.2.
 
 Public API: SeriesCheck, CycleCheck, check_cycles, settled_cycles.
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
 """
 
 from __future__ import annotations

@@ -15,8 +15,6 @@ the final value, peak = max |y| and its time; the response is taken to start fro
 
 :func:`summarise` — mean, standard deviation, min and max per field over repeated runs
 (booleans as the fraction True; None values skipped and counted).
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
 """
 
 from __future__ import annotations

@@ -3,8 +3,6 @@
 Shared by the relay analysis (which measures it) and the tuning rules (which design from
 it). Phase in degrees, frequency in rad/s. No conversion of units happens here: the gain
 is in (output unit)/(input unit) of whatever signals were analysed.
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
 """
 
 from __future__ import annotations

@@ -1,42 +1,15 @@
 """Analysis of a relay experiment: cycles, ultimate-point estimate and the exact plant point.
 
 Inputs are logged arrays (times in s, the relay's switching signal, the plant input ``u``
-and the plant output ``y``), possibly noisy and only near-uniformly sampled. Nothing here
-does I/O: the experiment runner hands in arrays (or chunks, see :class:`RelayTracker`).
-
-Conventions
-- A cycle runs from one rising switch of ``relay`` to the next. A rising switch is the
-  first sample with ``relay > level`` after samples with ``relay <= level`` (``level`` is 0:
-  the relay's sign). The switch time is that sample's time: a board changes its output at a
-  sample, so cycle boundaries are exact sample instants.
-- ``u`` is treated as held between samples (zero-order hold, as a board's output is) and
-  its Fourier integral is computed exactly for a held signal; ``y`` is a sampled
-  continuous signal integrated with the trapezoid rule. Over whole periods this gives
-  Y1/U1 = G(jω) for a linear plant in periodic steady state (Åström & Hägglund 1984; see
-  docs/METHODS.md §3), independent of hysteresis or bias.
-- ``amplitude`` is the relay's half step (u = bias ± amplitude); ``ku = 4·d/(π·a)`` is the
-  describing-function estimate from the output amplitude a (half peak-to-peak of y per
-  cycle). With hysteresis this is not the ultimate point: use ``point`` instead.
-- ``static_gain`` = ∫y dt / ∫u dt over whole periods (biased relay, Shen, Wu & Yu 1996);
-  ``None`` when ``bias == 0``. Signals must be deviations from the operating point where
-  u = 0 gives y = 0.
-- Convergence (rigbench.tuning.cycles): after discarding ``discard_cycles`` cycles, the
-  longest trailing window of at least ``min_cycles`` cycles whose period, amplitude (and,
-  for a biased relay, per-cycle ∫y/∫u, whose slow transient otherwise biases the static
-  gain by ~1%) no longer drift: the change along a line fitted across the window is
-  within max(``tol``, the series' resolution, ``noise_sigmas`` standard errors of that
-  change, the noise being estimated once ``noise_cycles`` cycles are in), and no series
-  scatters by more than ``max_scatter`` (chatter). The period's resolution is
-  ``resolution_samples`` sample intervals (a board switches at its samples), so
-  noise-limited cycles and periods of a few tens of samples converge, while a trend does
-  not. Those cycles are the ones used; the result reports each series' scatter, standard
-  error and drift (``convergence``). Not converged: all cycles after the discarded ones
-  are used and ``reason`` says which series did not settle.
+and the plant output ``y`` in their own units), possibly noisy and only near-uniformly
+sampled. Nothing here does I/O: the experiment runner hands in arrays (or chunks, see
+:class:`RelayTracker`). ``ku`` is in u-units per y-unit, periods in s, ``omega_rad_s`` in
+rad/s. Conventions (cycle boundaries, the held-input Fourier integral, the
+describing-function estimate, the static gain of a biased relay, when the cycles count as
+converged): docs/METHODS.md §3.1, with the relay method itself in §3.
 
 Public API: analyse_relay, RelayResult, RelayTracker, RelayProgress, FrequencyPoint,
 fundamental_ratio.
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
 """
 
 from __future__ import annotations

@@ -1,50 +1,23 @@
 """PID tuning rules from the ultimate point (Ku, Tu) and from one measured point G(jω0).
 
-Every rule is stated in the ideal (standard) form C(s) = K(1 + 1/(s·Ti) + s·Td) and
-converted explicitly to the parallel form kp = K, ki = K/Ti, kd = K·Td (docs/METHODS.md §1).
-Gains are in (controller output)/(measured input) of whatever units Ku or the point were
-measured in; conversion to a board's units happens elsewhere (rigbench.base.units).
-
-Rule ids and sources
-- 'ziegler-nichols-p', '-pi', '-pid': Ziegler & Nichols (1942), "Optimum settings for
-  automatic controllers", Trans. ASME 64. P 0.5Ku; PI 0.45Ku, Tu/1.2; PID 0.6Ku, Tu/2, Tu/8.
-- 'zn-some-overshoot-pid' (Ku/3, Tu/2, Tu/3), 'zn-no-overshoot-pid' (0.2Ku, Tu/2, Tu/3):
-  variants tabulated in later secondary literature, not in the 1942 paper (value from
-  memory).
-- 'tyreus-luyben-pi' (Ku/3.2, 2.2Tu), 'tyreus-luyben-pid' (Ku/2.2, 2.2Tu, Tu/6.3):
-  Tyreus & Luyben (1992), Ind. Eng. Chem. Res. 31.
-- 'amigo-pi', 'amigo-pid': Åström & Hägglund (2006), Advanced PID Control, ISA, ch. 7,
-  frequency-response form with κ = 1/(Kp·Ku), Kp the static process gain:
-  PI  K = 0.16Ku, Ti = Tu/(1 + 4.5κ);
-  PID K = (0.3 − 0.1κ⁴)Ku, Ti = 0.6Tu/(1 + 2κ), Td = 0.15(1 − κ)Tu/(1 − 0.95κ).
-  The Td denominator (1 − 0.95κ) was chosen by a consistency check (tests): across first
-  order plus dead time plants it tracks the AMIGO step-response rule (Åström & Hägglund
-  2004, J. Process Control 14) — Td rising with the normalised dead time — while
-  (1 + 0.95κ) makes Td fall. Validity range of κ: AMIGO_KAPPA_RANGE (value from memory;
-  below about 0.1 Ti departs from the step-response rule by more than a factor of two).
-  AMIGO assumes a derivative filter and set-point weighting, and a process with an
-  essentially monotone step response: not applicable to integrating or unstable loops
-  here, nor without a measured static gain (biased relay).
-- 'astrom-hagglund-pm-pi', 'astrom-hagglund-pm-pid': one-point phase-margin design from
-  Åström & Hägglund (1984), Automatica 20(5). From G(jω0) = r·e^{jψ} and a target phase
-  margin φm: β = −π + φm − ψ (wrapped into (−π, π]); K = cos β / r;
-  PID Td = (tan β + sqrt(tan²β + 4/α))/(2ω0), Ti = α·Td, α = 4; PI Ti = −1/(ω0·tan β),
-  needing β < 0. This is exactly the condition C(jω0)G(jω0) = e^{j(−π+φm)}: magnitude 1
-  and phase −180° + φm at ω0 (checked in the tests; the docs/METHODS.md formula needed no fix).
-  At the ultimate point it gives K = Ku·cos φm.
+Every rule is stated in the ideal (standard) form C(s) = K(1 + 1/(s·Ti) + s·Td), Ti and Td
+in s, and converted explicitly to the parallel form kp = K, ki = K/Ti, kd = K·Td
+(docs/METHODS.md §1). Gains are in (controller output)/(measured input) of whatever units
+Ku or the point were measured in; conversion to a board's units happens elsewhere
+(rigbench.base.units). The rules, their sources and the notes on their validity:
+docs/METHODS.md §2 and §2.1.
 
 Public API: IdealPid, ParallelPid, Proposal, ULTIMATE_RULES, AMIGO_KAPPA_RANGE,
 rule_from_ultimate, phase_margin_design, propose_from_ultimate, propose_from_point.
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
 """
 
 from __future__ import annotations
 
 import math
-from dataclasses import asdict, dataclass, field, is_dataclass
+from dataclasses import dataclass, field
 from typing import Any
 
+from rigbench.base.jsonsafe import to_plain
 from rigbench.tuning.point import FrequencyPoint, wrap_phase_deg
 
 __all__ = ["IdealPid", "ParallelPid", "Proposal", "ULTIMATE_RULES", "AMIGO_KAPPA_RANGE",
@@ -133,28 +106,10 @@ class Proposal:
         gains kp, ki, kd, and margins/details with numbers as floats (complex as [re, im])."""
         form = None if self.ideal is None else {"k": self.ideal.k, "ti_s": self.ideal.ti_s,
                                                  "td_s": self.ideal.td_s}
-        margins = self.margins
-        if is_dataclass(margins):
-            margins = asdict(margins)
-        return _plain({"rule": self.rule, "kind": self.kind, "applies": self.applies,
+        return to_plain({"rule": self.rule, "kind": self.kind, "applies": self.applies,
                        "reason": self.reason, "source": self.source, "notes": self.notes,
                        "form": form, "kp": self.kp, "ki": self.ki, "kd": self.kd,
-                       "margins": margins, "details": self.details})
-
-
-def _plain(x):
-    if isinstance(x, dict):
-        return {str(k): _plain(v) for k, v in x.items()}
-    if isinstance(x, (list, tuple)):
-        return [_plain(v) for v in x]
-    if isinstance(x, complex) or (hasattr(x, "imag") and hasattr(x, "real")
-                                  and getattr(x, "imag", 0) != 0):
-        return [float(x.real), float(x.imag)]
-    if isinstance(x, bool) or x is None or isinstance(x, str):
-        return x
-    if hasattr(x, "tolist"):
-        return _plain(x.tolist())
-    return float(x)
+                       "margins": self.margins, "details": self.details})
 
 
 # rule id -> (kind, source, notes, function (ku, tu, kappa) -> IdealPid)

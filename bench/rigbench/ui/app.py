@@ -2,12 +2,10 @@
 safety state every screen shows, and the motor commands (kill, arm, disarm, clear, hold).
 
 The kill is an App-level priority binding on ctrl+k and F9: both reach the App with any
-widget focused, in dialogs and in the command palette (PRACTICE.md, Keys and screens). It
+widget focused, in dialogs and in the command palette (DEVELOPERS.md, Practice notes). It
 calls ``link.kill()`` at once on the UI thread (the link writes the kill bytes ahead of
 anything queued) and cancels any running experiment worker. Every other board command runs
 in a thread worker and reports back with a message; errors come back in words.
-
-Must not import: rigbench.rig, serial (ports are opened by rigbench.link).
 """
 
 from __future__ import annotations

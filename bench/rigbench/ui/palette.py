@@ -1,9 +1,6 @@
 """Command palette entries: one per action of the UI, so everything the keys do can be found
 by name (ctrl+p). Screen actions are sent to whichever screen they belong to after switching
 to it.
-
-Must not import: rigbench.link, rigbench.rig, rigbench.tuning, serial, and not rigbench.ui.app (the App
-imports this module).
 """
 
 from __future__ import annotations

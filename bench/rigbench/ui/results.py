@@ -3,8 +3,6 @@ measured, the proposals with their predicted margins, a sweep's metrics per gain
 
 Formatting only: every number comes from the domain result objects
 (rigbench.experiments: RelayRun, ProposalSet, Rated, SweepResult; rigbench.tuning.margins.Margins).
-
-Must not import: rigbench.rig, serial, textual.
 """
 
 from __future__ import annotations

@@ -1,15 +1,13 @@
 """The safety bar and the base screens that put it on every screen and over every dialog.
 
 The bar shows link state, SIMULATED for a simulated board, motor state with the trip cause,
-the failing arm conditions in words and the kill keys (DESIGN.md, Decision 6). Its state is
+the failing arm conditions in words and the kill keys (README.md, The terminal UI). Its state is
 the App's ``safety`` reactive (a :class:`~rigbench.ui.state.SafetyState`), fed by the App's
 timer; each bar watches it, so a pushed screen or dialog shows the same thing at once.
 
 Header and Footer belong to each screen in Textual, so every screen derives from
 :class:`BenchScreen` (or :class:`BenchModal` for dialogs), which composes the bar and the
 footer stacked in one bottom container (two widgets docked at the bottom would overlap).
-
-Must not import: rigbench.link, rigbench.rig, rigbench.tuning, serial.
 """
 
 from __future__ import annotations

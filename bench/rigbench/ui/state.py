@@ -2,10 +2,8 @@
 status and health, compared by value so the bar redraws only when something changed.
 
 The words for interlock conditions and trip causes live here (PROTOCOL.md §6.3, §7.3), so
-every screen says the same thing the same way.
-
-Must not import: rigbench.rig, rigbench.tuning, serial, textual (a plain function of the link's
-records; the App feeds it from a timer).
+every screen says the same thing the same way. A plain function of the link's records; the
+App feeds it from a timer.
 """
 
 from __future__ import annotations

@@ -2,8 +2,6 @@
 
 Dark, low-glare colours for a bench at night; red is kept for alarms and the kill, amber for
 warnings and armed states, green for a healthy link.
-
-Must not import: rigbench.link, rigbench.rig, rigbench.tuning, serial.
 """
 
 from __future__ import annotations

@@ -4,8 +4,6 @@ which signals to plot by default, the vertical scale, readouts and headroom to t
 Display arithmetic only (ranges, last values, distance to a limit), kept out of the widgets
 so they stay drawing code. Nothing here knows a particular rig: it reads the names the
 board declared (PROTOCOL.md §5.2–§5.4: ``trip_<signal>``, loops' ``measure``/``output``).
-
-Must not import: rigbench.rig, rigbench.tuning, serial, textual.
 """
 
 from __future__ import annotations

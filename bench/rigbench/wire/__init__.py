@@ -1,7 +1,6 @@
 """The line protocol with no I/O: framing, CRC, typed messages, host and board codecs.
 
-See protocol/PROTOCOL.md. Must not import pyserial, threads, clocks, or any other layer of
-the package (link, rig, ui, domain modules).
+See protocol/PROTOCOL.md.
 """
 
 from rigbench.wire.codec import KILL, BoardCodec, HostCodec

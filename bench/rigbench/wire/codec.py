@@ -6,7 +6,7 @@ messages.py. A rejected line becomes a ``BadFrame`` event carrying its error cod
 codecs never raise on received bytes. Sending an illegal message raises
 LocalProtocolError.
 
-No I/O, threads or clocks. Must not import link, rig, ui or domain modules.
+No I/O, threads or clocks.
 """
 
 from __future__ import annotations

@@ -3,8 +3,6 @@
 PROTOCOL.md §2: poly 0x1021, init 0xFFFF, no input or output reflection, no final XOR;
 check value 0x29B1 over ASCII "123456789" (G. Cook, Catalogue of parametrised CRC
 algorithms). ``binascii.crc_hqx`` computes exactly this with init 0xFFFF.
-
-Must not import anything from the rest of the package.
 """
 
 from binascii import crc_hqx

@@ -6,7 +6,7 @@ from the ``param``/``signal``/``loop`` replies. ``from_fields`` parses a reply's
 a board sends. Unknown keys are ignored, so a board with a newer minor version can add keys
 (PROTOCOL.md §5.1).
 
-No I/O. Must not import anything outside rigbench.wire.
+No I/O.
 """
 
 from __future__ import annotations

@@ -4,8 +4,6 @@
 a value that cannot be written, a body that would be too long). A bug on our side.
 ``RemoteProtocolError``: the peer sent something illegal. ``code`` is one of the frame or
 message error codes of PROTOCOL.md §9, so a decoder reports it as a ``BadFrame`` event.
-
-Must not import anything from the rest of the package.
 """
 
 

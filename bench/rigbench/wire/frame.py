@@ -9,7 +9,7 @@ is acted on where it is found and it discards a partial frame.
 The decoder never grows beyond ``max_line`` bytes of buffered input: a longer line is
 reported as ``too_long`` and skipped up to the next ``@`` or LF.
 
-No I/O here. Must not import link, rig, ui or domain modules.
+No I/O here.
 """
 
 from __future__ import annotations

@@ -6,7 +6,7 @@ into a host message, ``parse_board_body`` a body sent by the board into a board 
 and the number grammar. The grammar of each command is one row of ``COMMANDS`` (data, not
 logic spread over methods).
 
-No I/O. Must not import link, rig, ui or domain modules.
+No I/O.
 """
 
 from __future__ import annotations

@@ -5,7 +5,7 @@ status it sees is reachable. States: ``off`` (disarmed, output zero), ``armed`` 
 mode off, output zero), ``running`` (a mode drives the motor), ``tripped`` (fault latched,
 output zero until cleared; clearing leads to ``off``, never to running).
 
-No I/O. Must not import anything outside rigbench.wire.
+No I/O.
 """
 
 MOTOR_STATES = ("off", "armed", "running", "tripped")

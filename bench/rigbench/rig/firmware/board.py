@@ -23,8 +23,6 @@ What it implements (PROTOCOL.md section beside the code):
 - §8 modes off / hold / relay / open / inject, run by ``LoopEngine``.
 - One-sample computational delay: the command computed in period k reaches the plant in
   period k+1; a trip or kill zeroes the pending command at once.
-
-Must not import serial, rigbench.link, rigbench.ui, Textual or control.
 """
 
 from __future__ import annotations

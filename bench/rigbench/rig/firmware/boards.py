@@ -22,8 +22,6 @@ rigbench.rig.plants.wheel):
   wheel speed is the encoder's count difference through a first-order filter of
   ``wheel_tc_s`` (default 5 ms, our own choice: boards filter encoder speed).
 - ``plant``: a linear transfer function with dead time; loop ``main``, r/y/u.
-
-Must not import serial, rigbench.link, rigbench.ui, Textual or control.
 """
 
 from __future__ import annotations

@@ -4,8 +4,6 @@
 these methods read and change. Each ``_on_<verb>`` returns the reply fields (a list of
 (key, value)) or an (error code, text) tuple; ``SimBoard._command`` turns that into the one
 reply the command gets.
-
-Must not import serial, rigbench.link, rigbench.ui, Textual or control.
 """
 
 from __future__ import annotations

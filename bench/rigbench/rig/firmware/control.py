@@ -23,8 +23,6 @@ and bias + amp·r is added to the error fed to the integral only.
 
 Leaving a relay (``output`` style) or an open-loop run for closed loop is bumpless: the
 integral is set so the first closed-loop output equals the last one.
-
-Must not import serial, rigbench.link, rigbench.ui, Textual or control.
 """
 
 from __future__ import annotations

@@ -5,8 +5,6 @@ Mode fields arrive as words; each mode has a fixed set of keys (some required, s
 default), numbers must be numbers, and values have ranges. A refusal names the first
 problem with a PROTOCOL.md §4.3 code: ``bad_args`` (missing, extra or malformed field),
 ``unknown_name`` (no such loop, or no body push on this rig), ``range``.
-
-Must not import serial, rigbench.link, rigbench.ui, Textual or control.
 """
 
 from __future__ import annotations

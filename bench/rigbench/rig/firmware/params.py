@@ -10,8 +10,6 @@ written atomically (temporary file in the same folder, fsync, rename), so a cras
 the old image or the new one, never half of one. The stored image's CRC is the CRC-16 of
 ``name=value`` for every writable parameter in declaration order, joined by single spaces,
 values formatted as in replies (§5.5).
-
-Must not import serial, rigbench.link, rigbench.ui, Textual or control.
 """
 
 from __future__ import annotations

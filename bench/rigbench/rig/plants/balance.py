@@ -1,33 +1,10 @@
 """The balance rig: a reaction-wheel pendulum, full nonlinear, for the simulated board.
 
-Model (docs/METHODS.md §4; the structure of Spong, Corke & Lozano (2001), Automatica 37, and
-Block, Åström & Spong (2007), *The Reaction Wheel Pendulum*). θ is the body tilt from
-vertical, φ the wheel angle relative to the body (what the motor encoder reads), τ the motor
-torque on the wheel (its reaction acts on the body), τd a push on the body, δ the balance
-offset (the tilt at which the rig balances)::
-
-    Jp·θ̈        = m·g·l·sin(θ − δ) − τn + τd − b_p·θ̇
-    Jw·(θ̈ + φ̈) = τn,            τn = τ − b_w·φ̇
-
-Jp is the inertia about the pivot of everything except the wheel's spin (body plus the
-wheel as a point mass at its axle); Jw the wheel's spin inertia. The bearing friction b_w·φ̇
-is internal, so its reaction appears on the body as well (a form that applies it to the
-wheel only would miss part of the loss). With the wheel free (τ = 0) the tilt pole is √(mgl/Jp); with the wheel held
-(φ̇ = 0) it is √(mgl/(Jp + Jw)).
-
-Drives: ``'torque'`` (command τ in N·m) or ``'speed'`` (command a wheel speed set-point in
-rad/s). The speed driver is a stiff loop that follows a first-order reference with lag
-``driver_lag_s``: while its torque is inside the limits, φ̇ = ω_cmd/(T·s + 1) exactly
-(H(s) of docs/METHODS.md §4); it computes the torque that gives that wheel acceleration and clips it.
-The torque available while motoring falls linearly from ``stall_torque_Nm`` at rest to zero
-at ``free_speed_rad_s`` (back-EMF), capped at ``torque_limit_Nm``; braking keeps the full
-limit. Both drives see this curve.
-
-Mechanical stops at ±``tilt_stop_rad`` catch the body inelastically: the body stops and the
-wheel keeps its absolute speed θ̇ + φ̇ through the impact; it then rests on the stop until
-the net torque lifts it off. Fixed-step RK4, ``substeps`` per ``dt_s``, plain ``math``.
-
-Must not import serial, rigbench.link, rigbench.ui, rigbench.wire, Textual or control.
+SI units throughout: tilt θ and wheel angle φ in rad, speeds in rad/s, torques in N·m,
+inertias in kg·m², times in s. The equations of motion, the two drives (``'torque'``: τ in
+N·m; ``'speed'``: a wheel-speed set-point in rad/s followed with lag ``driver_lag_s``), the
+motor's torque curve and the mechanical stops: docs/METHODS.md §4 and §4.1; the demo
+rig's numbers: §6. Fixed-step RK4, ``substeps`` per ``dt_s``, plain ``math``.
 """
 
 from __future__ import annotations

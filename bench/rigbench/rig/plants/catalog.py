@@ -8,8 +8,7 @@ Every plant steps with a fixed ``dt_s`` (the board's loop period, ``1/rate_hz``)
 the command over the step; all quantities are SI. Noise comes from the ``rng`` handed in,
 so a plant is deterministic for a given seed; ``noise`` scales it (1.0 nominal, 0 none).
 
-Pure Python, numpy and scipy. Must not import serial, rigbench.link, rigbench.ui, Textual or
-control.
+Pure Python, numpy and scipy.
 """
 
 from __future__ import annotations

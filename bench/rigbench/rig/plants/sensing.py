@@ -11,7 +11,7 @@
   with the board and its time constant is a board setting), so the plants do not run it;
   the simulated firmware does.
 
-Pure Python and numpy. Must not import serial, rigbench.link, rigbench.ui, Textual or control.
+Pure Python and numpy.
 """
 
 from __future__ import annotations

@@ -6,8 +6,7 @@
 - ``check_push``: checks a disturbance torque and its duration.
 - ``clip_command``: checks a command and clips it to the plant's input limits.
 
-The errors are ``ValueError`` naming the argument. Pure Python. Must not import serial,
-numpy, rigbench.link, rigbench.wire, rigbench.ui, Textual or control.
+The errors are ``ValueError`` naming the argument. Pure Python.
 """
 
 from __future__ import annotations

@@ -15,8 +15,6 @@ delayed input is u[k−d−1] for the first f seconds and u[k−d] for the rest,
 (Åström & Wittenmark, *Computer-Controlled Systems*, sampling a system with time delay).
 The output read after a step is the value just before the next input is applied:
 y = C·x[k+1] + D·u[k−d] (the left limit, which matters only when deg num = deg den).
-
-Must not import serial, rigbench.link, rigbench.ui, rigbench.wire, Textual or control.
 """
 
 from __future__ import annotations

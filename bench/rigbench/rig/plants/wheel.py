@@ -1,23 +1,9 @@
 """The wheel rig: a DC motor driving a flywheel, a stable speed plant for the simulated board.
 
-Model (the usual permanent-magnet DC motor, e.g. Hughes & Drury, *Electric Motors and
-Drives*): with armature voltage u, current i and wheel speed ω::
-
-    L·di/dt = u − R·i − Ke·ω
-    J·dω/dt = Kt·i − b·ω − Tc·sgn(ω) + τd
-
-Ke = Kt in SI units (V·s/rad = N·m/A). The command is the armature voltage in volts
-(a PWM driver's average; duty in % is 100·u/supply_voltage_V), clipped to the supply.
-Without Coulomb friction (Tc) the plant is linear with static gain Kt/(Kt·Ke + R·b) rad/s
-per V; with it the steady speed is (Kt·u − R·Tc)/(Kt·Ke + R·b) above the breakaway
-voltage R·Tc/Kt and zero below.
-
-Integration: the linear part is discretised exactly (zero-order hold over each substep, the
-friction torque held over the substep); a substep that would carry ω through zero stops
-the wheel there (stiction), and a stopped wheel stays stopped while the drive torque is
-within ±Tc.
-
-Must not import serial, rigbench.link, rigbench.ui, rigbench.wire, Textual or control.
+SI units: the command is the armature voltage in V (clipped to the supply), wheel speed in
+rad/s, current in A, torques in N·m, Ke = Kt in V·s/rad = N·m/A. The motor equations, the
+static gain with and without Coulomb friction, and the exact zero-order-hold integration
+with stiction: docs/METHODS.md §9.
 """
 
 from __future__ import annotations

@@ -7,8 +7,6 @@ through the interlock, modes, recording, a safe end) run in a thread worker thro
 :mod:`rigbench.ui.runners`.
 This screen collects the settings, shows progress messages and the result. Kill (ctrl+k,
 F9) also cancels; cancel (x) stops in an orderly way and the runner leaves the rig safe.
-
-Must not import: rigbench.rig, serial, rigbench.ui.app.
 """
 
 from __future__ import annotations

@@ -3,8 +3,6 @@ relay test with predicted margins, editing with range checks; push, store, save 
 are in :mod:`rigbench.ui.screens.gains_actions`.
 
 Values are in the board's declared units throughout.
-
-Must not import: rigbench.rig, serial, rigbench.ui.app.
 """
 
 from __future__ import annotations

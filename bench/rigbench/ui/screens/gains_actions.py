@@ -4,8 +4,6 @@ the board's gains as a profile, load a profile (rigbench.profiles.model).
 
 A mixin of :class:`rigbench.ui.screens.gains.GainsScreen`; every board call runs in a worker through
 ``App.board_command`` and reports back in words.
-
-Must not import: rigbench.rig, serial, rigbench.ui.app.
 """
 
 from __future__ import annotations

@@ -1,7 +1,5 @@
 """Help: every key of the UI, read from the bindings themselves so the list cannot drift,
 and a few lines on the safety bar and the kill.
-
-Must not import: rigbench.link, rigbench.rig, rigbench.tuning, serial, rigbench.ui.app.
 """
 
 from __future__ import annotations

@@ -4,8 +4,6 @@ link's health counters, and a console of what crossed the link, filterable.
 The console shows raw frames when the link offers a tap of them (``link.raw_since``);
 otherwise it shows the decoded board events and status frames the link keeps, and says so.
 Nothing here parses protocol lines.
-
-Must not import: rigbench.rig, rigbench.tuning, rigbench.ui.app.
 """
 
 from __future__ import annotations

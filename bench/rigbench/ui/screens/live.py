@@ -1,11 +1,10 @@
 """Live view: scrolling plots of the board's signals with readouts and trip headroom.
 
 A timer at ``refresh_hz`` (25 Hz) copies the newest window out of the link's telemetry ring
-and redraws; nothing is posted per telemetry line (PRACTICE.md: a message per line costs
-half a core at 2 kHz). Each plot shows one declared signal, chosen from a list; the first
-choices are the loops' measures and the signals with a trip limit (``trip_<signal>``).
-
-Must not import: rigbench.rig, rigbench.tuning, serial (data comes through the App's link).
+and redraws; nothing is posted per telemetry line (DEVELOPERS.md, Practice notes: a message
+per line costs half a core at 2 kHz). Each plot shows one declared signal, chosen from a
+list; the first choices are the loops' measures and the signals with a trip limit
+(``trip_<signal>``).
 """
 
 from __future__ import annotations

@@ -4,8 +4,6 @@ checked against the board), run it with step progress, abort (motor off).
 Reading and checking are rigbench.sequences.file and rigbench.sequences.check; running is
 rigbench.sequences.run through :mod:`rigbench.ui.runners` (the runner ends with the motor off,
 and writes the results folder). Abort sets the runner's cancel flag and sends ``disarm``.
-
-Must not import: rigbench.rig, serial, rigbench.ui.app.
 """
 
 from __future__ import annotations

@@ -2,8 +2,6 @@
 
 A confirmation starts with the focus on Cancel, so a stray Enter never arms a motor or
 pushes gains; the confirming button must be chosen on purpose (Tab, then Enter, or a click).
-
-Must not import: rigbench.link, rigbench.rig, rigbench.tuning, serial.
 """
 
 from __future__ import annotations

@@ -1,8 +1,6 @@
 """A text widget for values that change many times a second: setting its text repaints it
 without asking for a new layout (``Static.update`` re-lays out the screen, which costs tens
 of milliseconds on a full screen). Its size comes from CSS, never from its text.
-
-Must not import: rigbench.link, rigbench.rig, rigbench.tuning, serial.
 """
 
 from __future__ import annotations

@@ -6,14 +6,12 @@ their minimum and maximum (so a spike between two redraws is never lost) and the
 them are lit; a column is also joined to its neighbour so a steep edge stays a line. Rows are
 built once per new data as numpy bit masks and cached as one ``Strip`` per row, so
 ``render_line`` only returns a cached strip: a redraw of a 2 000-sample window at 100 × 10
-cells costs about a millisecond (PRACTICE.md, Plots). Values above or below the scale are
+cells costs about a millisecond (DEVELOPERS.md, Practice notes). Values above or below the scale are
 drawn on the top or bottom row.
 
 Braille cells follow the Unicode Standard's Braille Patterns block (U+2800–U+28FF): dot n
 (numbered 1-2-3 down the left column, 4-5-6 down the right, then 7 and 8 on the bottom row)
 is bit n−1 of the offset from U+2800.
-
-Must not import: rigbench.link, rigbench.rig, rigbench.tuning, serial (it draws arrays it is given).
 """
 
 from __future__ import annotations
