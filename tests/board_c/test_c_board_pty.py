@@ -205,3 +205,20 @@ def test_the_watchdog_trips_when_the_heartbeat_stops(board):
     assert status.get("motor") == "tripped" and status.get("fault") == "watchdog"
     trips = [x for x in seen if isinstance(x, m.Event) and x.kind == "trip"]
     assert [dict(x.fields).get("cause") for x in trips] == ["watchdog"]
+
+
+def test_a_restarted_host_gets_back_into_a_tripped_board(board):
+    # PROTOCOL.md §4.2: a hello is never a resend. A host says hello, the board trips, a
+    # new host sends the same first bytes (its numbering restarts at 1): it is answered.
+    with serial.Serial(board.path, timeout=0.02) as port:
+        codec = HostCodec()
+        assert isinstance(_ask(port, codec, m.Hello), m.Ok)
+        port.write(b"\x18\x18\x18")
+        seen, deadline = [], time.monotonic() + 2.0
+        while time.monotonic() < deadline and not any(
+                isinstance(x, m.Event) and x.kind == "trip" for x in seen):
+            seen += codec.receive(port.read(port.in_waiting or 1))
+        assert any(isinstance(x, m.Event) and x.kind == "trip" for x in seen)
+    proc = rigbench("info", "--port", board.path, "--json")
+    assert proc.returncode == 0, proc.stderr
+    assert json.loads(proc.stdout)["board"]["board"].endswith("plant-1")

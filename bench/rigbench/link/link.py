@@ -135,7 +135,14 @@ class Link:
         ch = self.channel
         tries = max(1, int(round(hello_timeout_s / ch.reply_timeout_s)))
         try:
-            reply = ch.request(Hello, retries=tries - 1)
+            try:
+                reply = ch.request(Hello, retries=tries - 1)
+            except BoardRefused as exc:
+                if exc.code != "state":
+                    raise
+                # a board following the older §4.2 took our hello for a resend of a previous
+                # host's (same number, same bytes, a trip since): a new number is a new command
+                reply = ch.request(Hello, retries=tries - 1)
         except LinkTimeout:
             baud = getattr(self.port, "baudrate", None)
             at = f" at {baud} baud" if baud and not self.url.startswith("sim://") else ""

@@ -12,7 +12,7 @@ What it implements (PROTOCOL.md section beside the code):
 - §4 every command gets exactly one reply; a command repeated with the sequence number and
   the body text of the last answered one gets that reply again and is not acted on (§4.2).
   A repeated number with another body is taken as a new command (a new host session may
-  restart its numbering). Every ``err`` text passes through ``refusal_text`` (the one
+  restart its numbering); a ``hello`` is never a resend and clears that memory. Every ``err`` text passes through ``refusal_text`` (the one
   place that makes it legal in a frame body, §2).
 - §5 discovery from the rig's declaration (rigbench.rig.firmware.boards); atomic ``set``; ``save`` /
   ``restore`` through ``NvStore``; the board boots with its stored values.
@@ -350,7 +350,7 @@ class SimBoard(BoardCommands):
         parsed command) compares the canonical text instead."""
         body = m.format_body(cmd) if body is None else body
         if self._last_cmd is not None and cmd.seq == self._last_cmd.seq \
-                and body == self._last_body:        # §4.2: resend, do not act again
+                and body == self._last_body and cmd.VERB != "hello":   # §4.2: resend
             self.tx.put(self._last_reply, "reply")
             return
         handler = getattr(self, "_on_" + cmd.VERB)
@@ -363,7 +363,10 @@ class SimBoard(BoardCommands):
             data = self._encode(reply)
         except LocalProtocolError:      # e.g. a `get` of many long names (§2: 200 bytes)
             data = self._encode(m.Err(cmd.seq, "bad_args", REPLY_TOO_LONG + "ask for fewer"))
-        self._last_cmd, self._last_body, self._last_reply = cmd, body, data
+        if cmd.VERB == "hello":          # §4.2: a hello clears the resend memory
+            self._last_cmd, self._last_body, self._last_reply = None, "", b""
+        else:
+            self._last_cmd, self._last_body, self._last_reply = cmd, body, data
         self.tx.put(data, "reply")
 
 
