@@ -228,3 +228,36 @@ def test_diff_command_against_the_board(tmp_path, capsys):
                  "--json"]) == 0
     out = json.loads(capsys.readouterr().out)
     assert {r["change"] for r in out["rows"]} == {"only_a", "only_b"}
+
+
+def test_a_board_refusal_of_the_set_is_exit_4_with_the_boards_code(monkeypatch, capsys):
+    from rigbench.link import BoardRefused
+
+    def refuse(self, **values):
+        raise BoardRefused("busy", "relay test running", "set")
+
+    monkeypatch.setattr(Link, "set", refuse)
+    profile = str(ROOT / "profiles" / "demo-balance-soft.yaml")
+    assert main(["push", profile, "--port", URL, "--json"]) == 4
+    out = json.loads(capsys.readouterr().out)
+    assert out["exit"] == 4 and out["code"] == "busy" and out["text"] == "relay test running"
+    assert main(["push", profile, "--port", URL]) == 4
+    assert "busy" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("command", ["push", "pull", "diff"])
+def test_profile_commands_open_the_port_at_the_baud_given(command, monkeypatch, tmp_path):
+    seen = []
+    real_open = Link.open.__func__
+
+    def spy(cls, url, **kw):
+        seen.append(kw.get("baudrate"))
+        return real_open(cls, url, **kw)
+
+    monkeypatch.setattr(Link, "open", classmethod(spy))
+    profile = str(ROOT / "profiles" / "demo-balance-soft.yaml")
+    argv = {"push": ["push", profile, "--dry-run"],
+            "pull": ["pull", "-o", str(tmp_path / "p.yaml"), "--loop", "tilt"],
+            "diff": ["diff", profile, "board"]}[command]
+    assert main(argv + ["--port", URL, "--baud", "57600"]) == 0
+    assert seen == [57600]

@@ -37,7 +37,7 @@ def run(args) -> int:
     def body():
         if os.path.exists(args.output) and not args.force:
             return fail(args, EXIT_USAGE, f"{args.output} exists; give --force to replace it")
-        with open_link(args.port) as link:
+        with open_link(args) as link:
             loop = args.loop
             if loop is None:
                 if len(link.loops) != 1:
