@@ -37,8 +37,8 @@ from rigbench.base.stops import (  # noqa: F401
 from rigbench.commands._common import DEFAULT_PORT, CommandError  # noqa: F401
 
 # Subcommand modules under bench/rigbench/commands/, in the order --help shows them.
-COMMANDS = ["ui", "ports", "info", "watch", "kill", "sim", "tune", "sweep", "push", "pull",
-            "diff", "run", "report"]
+COMMANDS = ["ui", "ports", "info", "watch", "kill", "clear", "sim", "tune", "sweep", "push",
+            "pull", "diff", "run", "report"]
 DEFAULT_COMMAND = "ui"  # what plain ``rigbench`` runs
 
 

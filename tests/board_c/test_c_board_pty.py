@@ -222,3 +222,15 @@ def test_a_restarted_host_gets_back_into_a_tripped_board(board):
     proc = rigbench("info", "--port", board.path, "--json")
     assert proc.returncode == 0, proc.stderr
     assert json.loads(proc.stdout)["board"]["board"].endswith("plant-1")
+
+
+def test_clear_after_a_kill_lets_tune_run_again_and_never_starts_the_motor(board):
+    assert rigbench("kill", "--port", board.path).returncode == 0
+    proc = rigbench("tune", "--port", board.path, "--loop", "main")
+    assert proc.returncode == 4 and "rigbench clear" in proc.stderr, proc.stderr
+    proc = rigbench("clear", "--port", board.path, "--json")
+    assert proc.returncode == 0, proc.stderr
+    out = json.loads(proc.stdout)
+    assert out["cleared"] and out["fault_was"] == "kill" and out["motor"] == "off"
+    proc = rigbench("clear", "--port", board.path)
+    assert proc.returncode == 0 and "no fault latched" in proc.stdout

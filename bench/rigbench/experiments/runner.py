@@ -96,8 +96,7 @@ class Experiment:
         st = link.status()
         self.found_motor, self.found_mode = st.motor, st.mode
         if st.motor == "tripped":
-            raise ArmRefused(("fault",), f"the board has a latched fault ({st.fault}): "
-                                         "clear it (and check the rig) before an experiment")
+            raise ArmRefused(("fault",), f"the board has a latched fault ({st.fault})")
         self.restore_values = link.get(*self.restore) if self.restore else {}
         self.signals = tuple(s.name for s in link.signals)
         self.units = tuple(s.unit for s in link.signals)
