@@ -79,3 +79,37 @@ def test_gain_sets_from_dicts_profiles_and_bad_input(open_sim):
         run_sweep(link, [{"tilt_kq": 1.0}], loop="tilt")
     with pytest.raises(ValueError):
         run_sweep(link, [{"tilt_kp": 1.0}], kind="ramp")
+
+
+@pytest.mark.parametrize("how", ["link", "byte", "framed"])
+def test_a_kill_during_a_rearming_sweep_ends_it_with_the_motor_tripped(open_sim, how):
+    # re-arming after a fall is asked for; a kill a person caused must end the sweep
+    # whatever the way it reached the board: this program's kill (a key, a signal, a
+    # `rigbench kill` passed on), a bare kill byte, or the framed kill from elsewhere
+    link = open_sim("sim://balance?seed=7")
+    start = link.get("tilt_kp", "tilt_ki", "tilt_kd")
+    fired = []
+
+    def progress(p):
+        if p.phase == "sweep" and not fired:
+            fired.append(link.now())
+            if how == "link":
+                link.kill()
+            elif how == "byte":
+                link.port.write(b"\x18")          # not through the link: no user count
+            else:
+                link.port.board.receive(b"@kill 60000|" + b"%04X" % _crc(b"kill 60000") + b"\n")
+
+    sw = run_sweep(link, [("start", start), ("again", start), ("third", start)],
+                   amplitudes=(0.02,), repeats=2, settle_s=1.0, rearm_after_fall=True,
+                   progress=progress)
+    assert fired and sw.stopped_by == "trip" and "kill" in sw.detail
+    assert not sw.by_name("third").injections
+    link.sleep(0.05)
+    assert link.status().motor == "tripped" and link.status().fault == "kill"
+    assert link.port.board.signals["cmd"] == 0.0
+
+
+def _crc(body: bytes) -> int:
+    from rigbench.wire.crc import crc16
+    return crc16(body)

@@ -35,6 +35,7 @@ from rigbench.wire.messages import (
 )
 
 from rigbench.link.channel import Channel
+from rigbench.link.killing import CONFIRM_S, kill_and_confirm
 from rigbench.link.errors import (
     BoardRefused, IncompatibleBoard, LinkError, LinkLost, LinkTimeout, SaveMismatch, open_error,
 )
@@ -291,13 +292,20 @@ class Link:
         except RemoteProtocolError as exc:
             raise LinkError(f"board at {self.url} sent a bad status reply: {exc}") from None
 
-    def kill(self, *, framed: bool = False, repeat: int = 3) -> float:
+    def kill(self, *, framed: bool = False, repeat: int = 3, reason: str = "user") -> float:
         """Kill byte ×``repeat`` ahead of anything queued (PROTOCOL.md §7.1); returns the
-        link-clock time it was written. ``framed`` also sends ``kill`` and awaits its reply."""
-        t = self.channel.write_kill(repeat)
+        link-clock time it was written. ``framed`` also sends ``kill`` and awaits its reply.
+        ``reason``: ``user`` (a person, a signal) or the experiment guard that sent it."""
+        t = self.channel.write_kill(repeat, reason=reason)
         if framed:
             self.request(Kill)
         return t
+
+    def kill_confirmed(self, *, reason: str = "user", confirm_s: float | None = None):
+        """Kill and wait for the board to confirm; escalate when it does not (killing.py).
+        Returns a KillOutcome."""
+        return kill_and_confirm(self, reason=reason,
+                                confirm_s=CONFIRM_S if confirm_s is None else confirm_s)
 
     # ------------------------------------------------------------------ observing
 
@@ -344,6 +352,11 @@ class Link:
     @property
     def last_status(self) -> BoardStatus | None:
         return self.channel.ingest.last_status
+
+    @property
+    def user_kills(self) -> int:
+        """Kills sent for a person (a key, a signal, `rigbench kill`), not by a guard."""
+        return self.channel.user_kills
 
     @property
     def motor_state(self) -> str | None:
