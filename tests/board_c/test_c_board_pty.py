@@ -224,7 +224,16 @@ def test_a_restarted_host_gets_back_into_a_tripped_board(board):
     assert json.loads(proc.stdout)["board"]["board"].endswith("plant-1")
 
 
-def test_clear_after_a_kill_lets_tune_run_again_and_never_starts_the_motor(board):
+@pytest.fixture
+def py_board():
+    """The Python board only: for host-side behaviour that does not depend on the board."""
+    b = Board("python")
+    yield b
+    b.stop()
+
+
+def test_clear_after_a_kill_lets_tune_run_again_and_never_starts_the_motor(py_board):
+    board = py_board
     assert rigbench("kill", "--port", board.path).returncode == 0
     proc = rigbench("tune", "--port", board.path, "--loop", "main")
     assert proc.returncode == 4 and "rigbench clear" in proc.stderr, proc.stderr
@@ -234,3 +243,63 @@ def test_clear_after_a_kill_lets_tune_run_again_and_never_starts_the_motor(board
     assert out["cleared"] and out["fault_was"] == "kill" and out["motor"] == "off"
     proc = rigbench("clear", "--port", board.path)
     assert proc.returncode == 0 and "no fault latched" in proc.stdout
+
+
+def _start_tune(board) -> subprocess.Popen:
+    """`rigbench tune` on the board in the background, once it holds the port and has
+    had time to arm (its quiet hold runs for seconds before the relay)."""
+    from rigbench.link.killsock import request_kill, socket_path
+
+    proc = subprocess.Popen([sys.executable, "-m", "rigbench", "tune", "--port", board.path,
+                             "--loop", "main", "--json"], stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE, text=True)
+    deadline = time.monotonic() + 20.0
+    while request_kill(str(socket_path(board.path)), probe=True, timeout_s=0.5) is None:
+        assert proc.poll() is None and time.monotonic() < deadline, proc.communicate()
+        time.sleep(0.05)
+    time.sleep(1.0)
+    assert proc.poll() is None, proc.communicate()
+    return proc
+
+
+def _board_status(board) -> dict:
+    proc = rigbench("info", "--port", board.path, "--json", "--listen", "0.3")
+    assert proc.returncode == 0, proc.stderr
+    return json.loads(proc.stdout)["status"]
+
+
+def test_rigbench_kill_from_a_second_process_stops_a_running_tune(board):
+    tune = _start_tune(board)
+    try:
+        proc = rigbench("kill", "--port", board.path, "--json", timeout=20)
+    finally:
+        _, err = tune.communicate(timeout=30)
+    assert proc.returncode == 0, proc.stderr
+    out = json.loads(proc.stdout)
+    assert out["confirmed"] and out["via"].startswith("process ") and not out["escalated"]
+    # on the board's clock: its trip event came within 50 ms of the newest sample the
+    # holder had when it wrote the kill bytes (PROTOCOL.md §7.1); the figure over many
+    # runs is scripts/bench_kill.py's
+    assert out["latency_board_s"] is not None and out["latency_board_s"] < 0.05
+    assert tune.returncode not in (0, 1), err        # stopped by the trip, not a crash
+    st = _board_status(board)
+    assert st["motor"] == "tripped" and st["fault"] == "kill"
+
+
+def test_sigint_stops_a_running_tune_with_the_kill(py_board):
+    board = py_board
+    tune = _start_tune(board)
+    tune.send_signal(signal.SIGINT)
+    _, err = tune.communicate(timeout=30)
+    assert tune.returncode == 130, err
+    st = _board_status(board)
+    assert st["motor"] == "tripped" and st["fault"] == "kill"
+
+
+def test_rigbench_kill_says_so_when_the_port_is_held_by_a_program_that_does_not_answer(
+        py_board):
+    board = py_board
+    with serial.Serial(board.path, exclusive=True):   # holds the port, no kill socket
+        proc = rigbench("kill", "--port", board.path, timeout=20)
+    assert proc.returncode == 3
+    assert "busy" in proc.stderr and "cut" in proc.stderr and "power" in proc.stderr

@@ -24,6 +24,7 @@ from rigbench.commands._common import CommandError
 from rigbench.experiments.sweep import GainSet, run_sweep
 from rigbench.profiles.model import SchemaError, check_against_board, load_profile
 
+from rigbench.commands._signals import kill_on_signal
 from rigbench.commands._common import add_json_option, add_port_option, open_link, plain, print_json, table
 from rigbench.commands._progress import experiment_run
 
@@ -165,7 +166,7 @@ def run(args) -> int:
     out_dir = Path(args.out) if args.out else None
     if out_dir is not None:
         out_dir.mkdir(parents=True, exist_ok=True)
-    with open_link(args) as link:
+    with open_link(args) as link, kill_on_signal(link):
         sets = _load_sets(args, link)
         with experiment_run() as bar:
             sw = run_sweep(link, sets, loop=args.loop, amplitudes=amplitudes,

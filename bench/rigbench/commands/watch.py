@@ -13,6 +13,7 @@ from rigbench.commands._common import CommandError
 from rigbench.recordings.recording import Recorder, RecordingError
 
 from rigbench.commands._common import add_port_option, open_link
+from rigbench.commands._signals import kill_on_signal
 
 
 def add_parser(subparsers):
@@ -57,7 +58,7 @@ def run(args) -> int:
         raise CommandError(EXIT_USAGE, "--seconds must be positive")
     if args.every <= 0:
         raise CommandError(EXIT_USAGE, "--every must be positive")
-    with open_link(args) as link:
+    with open_link(args) as link, kill_on_signal(link, only_if_moving=True):
         if args.csv:
             rate = args.rate if args.rate is not None else 100.0
             try:

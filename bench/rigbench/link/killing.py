@@ -49,11 +49,17 @@ def _stopped_reports(link) -> int:
 
 
 def kill_and_confirm(link, *, reason: str = "user", confirm_s: float = CONFIRM_S,
-                     watchdog_margin_s: float = 0.3) -> KillOutcome:
-    """Kill, wait for the board to confirm, escalate if it does not (module docstring)."""
+                     watchdog_margin_s: float = 0.3, on_sent=None) -> KillOutcome:
+    """Kill, wait for the board to confirm, escalate if it does not (module docstring).
+    ``on_sent(t)`` is called as soon as the kill bytes are written."""
     ch = link.channel
     before = _stopped_reports(link)
     t = ch.write_kill(3, reason=reason)
+    if on_sent is not None:
+        try:
+            on_sent(t)
+        except OSError:
+            pass
 
     def reported() -> bool:
         return _stopped_reports(link) > before

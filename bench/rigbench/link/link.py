@@ -36,6 +36,7 @@ from rigbench.wire.messages import (
 
 from rigbench.link.channel import Channel
 from rigbench.link.killing import CONFIRM_S, kill_and_confirm
+from rigbench.link.killsock import KillService
 from rigbench.link.errors import (
     BoardRefused, IncompatibleBoard, LinkError, LinkLost, LinkTimeout, SaveMismatch, open_error,
 )
@@ -77,6 +78,7 @@ class Link:
         self.loops: dict[str, LoopInfo] = {}
         self._stream_rate_hz: float | None = None
         self._resync_thread: threading.Thread | None = None
+        self._kill_service: KillService | None = None
 
     # ------------------------------------------------------------------ opening
 
@@ -93,8 +95,12 @@ class Link:
             port = serial.serial_for_url(url, **options)
         except (OSError, ValueError) as exc:
             raise open_error(url, exc) from None
-        return cls.attach(port, url=url, reply_timeout_s=reply_timeout_s,
+        link = cls.attach(port, url=url, reply_timeout_s=reply_timeout_s,
                           heartbeat_s=heartbeat_s, ring_rows=ring_rows, **kwargs)
+        if "://" not in url:
+            # `rigbench kill` in another terminal reaches this program's link (killsock.py)
+            link._kill_service = KillService(link, url).start()
+        return link
 
     @classmethod
     def attach(cls, port, *, kill_first: bool = False, **kwargs) -> "Link":
@@ -119,6 +125,8 @@ class Link:
 
     def close(self) -> None:
         """Stop the threads promptly and close the port. Safe to call twice."""
+        if self._kill_service is not None:
+            self._kill_service.close()
         self.channel.close()
         self.channel.ingest.reset_seen.set()  # wakes the resync thread, which sees the stop
         if self._resync_thread is not None and self._resync_thread is not threading.current_thread():
