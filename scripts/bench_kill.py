@@ -8,8 +8,9 @@ arms and holds, then asks for the kill through the socket as a second terminal d
 
 - ``answer``: wall time from the request to the holder's "sent" answer (the kill bytes are
   written), target < 50 ms;
-- ``board``: board-clock time from the newest telemetry sample the holder had when it
-  wrote the kill to the board's trip event (what PROTOCOL.md §7.1 bounds), target < 50 ms;
+- ``board``: from the kill bytes being written to the board's trip time stamp (board clock
+  mapped onto the host's by the telemetry, link latency taken out; what PROTOCOL.md §7.1
+  bounds), target < 50 ms;
 - ``confirmed``: wall time until the holder reports the board confirmed.
 
 Not a test: the figures depend on the machine and its load (printed).

@@ -6,8 +6,9 @@ and passes a kill request on to its link at once.
   ``sim://`` or other URLs). A client that connects and sends ``kill\\n`` gets one JSON line
   as soon as the kill bytes are written (``{"sent": true, ...}``), then one with the
   outcome of ``rigbench.link.killing.kill_and_confirm`` (confirmed, escalated, motor,
-  ``latency_board_s``: board-clock seconds from the newest telemetry sample the host had
-  when it wrote the kill to the board's trip event, when both are known).
+  ``latency_board_s``: from the kill bytes being written to the time stamp of the board's
+  trip event, that stamp mapped onto the link clock by the telemetry's clock map (which
+  takes out the link's latency, timebase.ClockMap); None without a trip event).
 - ``request_kill(port, timeout_s)``: the client side (``rigbench kill``). Returns None when
   no program answers on the port's socket.
 
@@ -121,8 +122,6 @@ class KillService:
         if line != b"kill":
             return
         link = self.link
-        newest = link.snapshot(rows=1)
-        sample_s = float(newest.board_time_s[-1]) if len(newest) else None
         cursor = link.event_cursor()
 
         def sent(t: float) -> None:
@@ -135,9 +134,9 @@ class KillService:
             conn.sendall((json.dumps({"confirmed": False, "error": str(exc)}) + "\n").encode())
             return
         _, events = link.events_since(cursor)
-        trip_s = next((e.board_time_s for e in events if e.source == "board"
-                       and e.kind == "trip" and e.board_time_s is not None), None)
-        latency = None if trip_s is None or sample_s is None else trip_s - sample_s
+        trip_s = next((e.host_time_s for e in events if e.source == "board"
+                       and e.kind == "trip"), None)
+        latency = None if trip_s is None else trip_s - out.sent_s
         conn.sendall((json.dumps({"confirmed": out.confirmed, "escalated": out.escalated,
                                   "motor": out.motor, "steps": list(out.steps),
                                   "latency_board_s": latency}) + "\n").encode())
