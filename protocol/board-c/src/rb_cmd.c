@@ -590,6 +590,8 @@ static void bad(rb_ctx *c, const char *code, int reply, const char *text)
     uint16_t seq;
     c->b->rx_err++;
     c->b->last_rx_error = code;
+    if (rb_token_is(c->body, &c->t[0], "kill"))
+        rb_trip_cause(c->b, "kill", 0, 0.0);     /* §7.1: a kill that fails to parse stops */
     if (reply && all_digits_seq(c, &seq)) {
         rb_line *l = &c->b->out_reply;
         refuse(c, reply == 2 ? "unknown_verb" : "bad_args", "%s", text);

@@ -157,6 +157,8 @@ class SimBoard(BoardCommands):
                 self._hb_ref_us = self.time_us
             elif kind is BadFrame:
                 self.rx_err += 1
+                if ev.code in _MESSAGE_ERRORS and ev.raw.split(b" ", 1)[0] == b"kill":
+                    self._trip("kill")                  # §7.1: a kill that fails to parse stops
                 self._answer_bad(ev)
             else:
                 self._command(ev, body)
@@ -227,8 +229,13 @@ class SimBoard(BoardCommands):
 
     def _telemetry(self) -> None:
         values = tuple(self.signals[s.name] for s in self.rig.signals)
-        frame = self._encode(m.Telemetry(self.frame, self.time_us, values))
+        try:
+            frame = self._encode(m.Telemetry(self.frame, self.time_us, values))
+        except LocalProtocolError:                   # §3: a value not finite cannot be sent
+            frame = None
         self.frame = (self.frame + 1) % U32          # counts dropped frames too (§6.1)
+        if frame is None:
+            return
         if not self.tx.put(frame, "telemetry"):
             self.drops += 1
 
