@@ -49,9 +49,13 @@ def socket_path(port: str) -> Path:
     """The socket of the program holding ``port`` (a device path, links resolved)."""
     real = os.path.realpath(port)
     name = re.sub(r"[^A-Za-z0-9]+", "_", real).strip("_") or "port"
+    digest = hashlib.sha1(real.encode()).hexdigest()
     if len(name) > 48:   # a Unix socket path has about 100 bytes
-        name = name[:32] + "_" + hashlib.sha1(real.encode()).hexdigest()[:12]
-    return runtime_dir() / f"{name}.kill"
+        name = name[:32] + "_" + digest[:12]
+    path = runtime_dir() / f"{name}.kill"
+    if len(str(path)) > 100:
+        path = runtime_dir() / f"{digest[:16]}.kill"
+    return path
 
 
 class KillService:
