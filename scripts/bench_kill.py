@@ -10,7 +10,9 @@ arms and holds, then asks for the kill through the socket as a second terminal d
   written), target < 50 ms;
 - ``board``: from the kill bytes being written to the board's trip time stamp (board clock
   mapped onto the host's by the telemetry, link latency taken out; what PROTOCOL.md §7.1
-  bounds), target < 50 ms;
+  bounds), target < 50 ms. Negative: the board stamps its trip with the time of the last
+  sample it read (rigbench's simulated board does, PROTOCOL.md §6.3), up to one loop
+  period before the moment it acted;
 - ``confirmed``: wall time until the holder reports the board confirmed.
 
 Not a test: the figures depend on the machine and its load (printed).
@@ -66,9 +68,9 @@ def main() -> int:
             xs = [x for x in xs if x == x]   # board: runs without a trip event (already
             if not xs:                       # tripped, e.g. the rig fell) are left out
                 continue
+            ratio = f"{50e-3 / max(xs):.1f}x" if max(xs) > 0 else "met: never after the send"
             print(f"{name:9s} median {statistics.median(xs) * 1e3:6.2f} ms  max "
-                  f"{max(xs) * 1e3:6.2f} ms  (target < 50 ms: ratio "
-                  f"{50e-3 / max(max(xs), 1e-9):.1f}x)")
+                  f"{max(xs) * 1e3:6.2f} ms  (target < 50 ms: {ratio})")
         print(f"load average {load:.2f}")
     finally:
         sim.terminate()
