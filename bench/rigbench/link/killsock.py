@@ -35,7 +35,7 @@ from rigbench.link.killing import kill_and_confirm
 
 __all__ = ["KillService", "request_kill", "socket_path"]
 
-_HAS_UNIX = hasattr(socket, "AF_UNIX")
+_HAS_UNIX = hasattr(socket, "AF_UNIX") and os.name == "posix"
 
 
 def runtime_dir() -> Path:
