@@ -252,3 +252,34 @@ def test_a_cascade_set_pulls_pushes_and_reads_back_as_one(tmp_path, capsys):
     assert main(["pull", "-o", str(again), "--loop", "tilt", "--loop", "trim",
                  "--port", port]) == 0
     assert load_profile(again).values() == pytest.approx(load_profile(both).values())
+def test_a_board_refusal_of_the_set_is_exit_4_with_the_boards_code(monkeypatch, capsys):
+    from rigbench.link import BoardRefused
+
+    def refuse(self, **values):
+        raise BoardRefused("busy", "relay test running", "set")
+
+    monkeypatch.setattr(Link, "set", refuse)
+    profile = str(ROOT / "profiles" / "demo-balance-soft.yaml")
+    assert main(["push", profile, "--port", URL, "--json"]) == 4
+    out = json.loads(capsys.readouterr().out)
+    assert out["exit"] == 4 and out["code"] == "busy" and out["text"] == "relay test running"
+    assert main(["push", profile, "--port", URL]) == 4
+    assert "busy" in capsys.readouterr().err
+
+
+@pytest.mark.parametrize("command", ["push", "pull", "diff"])
+def test_profile_commands_open_the_port_at_the_baud_given(command, monkeypatch, tmp_path):
+    seen = []
+    real_open = Link.open.__func__
+
+    def spy(cls, url, **kw):
+        seen.append(kw.get("baudrate"))
+        return real_open(cls, url, **kw)
+
+    monkeypatch.setattr(Link, "open", classmethod(spy))
+    profile = str(ROOT / "profiles" / "demo-balance-soft.yaml")
+    argv = {"push": ["push", profile, "--dry-run"],
+            "pull": ["pull", "-o", str(tmp_path / "p.yaml"), "--loop", "tilt"],
+            "diff": ["diff", profile, "board"]}[command]
+    assert main(argv + ["--port", URL, "--baud", "57600"]) == 0
+    assert seen == [57600]

@@ -5,6 +5,7 @@ import os
 import signal
 import subprocess
 import sys
+import threading
 import time
 from pathlib import Path
 
@@ -135,3 +136,33 @@ def test_csv_without_sidecar_loads_and_bad_sidecar_is_named(tmp_path):
     with pytest.raises(RecordingError) as info:
         load_recording(path)
     assert f"{sidecar_path(path)}:8" in str(info.value) and "surprise" in str(info.value)
+
+
+def test_the_periodic_sidecar_rewrite_runs_off_the_pulling_thread(tmp_path, sim_link,
+                                                                   monkeypatch):
+    # an experiment pulls (poll) from the thread that checks its guards: a slow sidecar
+    # rewrite there once stopped a long sweep as "stale telemetry"; it runs on the
+    # recorder's own thread, and the last sidecar written is the complete one
+    writers = []
+    dump = Recorder._dump_sidecar
+
+    def spy(self, doc):
+        writers.append((threading.current_thread(), doc["complete"]))
+        dump(self, doc)
+
+    monkeypatch.setattr(Recorder, "_dump_sidecar", spy)
+    sim_link.stream(100)
+    rec = Recorder(tmp_path / "r.csv", sim_link, background=False, flush_s=0.01).start()
+    for _ in range(5):
+        sim_link.sleep(0.2)
+        time.sleep(0.02)          # flush_s is wall time
+        rec.poll()
+    deadline = time.monotonic() + 5.0
+    while len(writers) < 2 and time.monotonic() < deadline:
+        time.sleep(0.01)          # the writer thread takes the latest periodic sidecar
+    rec.close()
+    me = threading.current_thread()
+    periodic = [t for t, complete in writers[1:-1]]
+    assert periodic and all(t is not me for t in periodic)
+    assert writers[-1] == (me, True)
+    assert load_recording(tmp_path / "r.csv").complete

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import ast
 import os
+import socket
 import signal
 import subprocess
 import sys
@@ -21,6 +22,7 @@ import yaml
 
 from rigbench.cli import main
 from rigbench.link import Link
+from rigbench.link.killsock import socket_path
 from rigbench.profiles.model import load_profile, load_profile_text
 from rigbench.recordings.recording import RecordingError, load_recording
 from rigbench.sequences.file import load_sequence, load_sequence_text
@@ -290,6 +292,12 @@ def _net_entries() -> dict[str, list[tuple[str, str, str]]]:
     return tables
 
 
+# The one listening socket rigbench has: the kill socket of the program holding a device
+# port (rigbench.link.killsock), a Unix-domain socket in an owner-only folder that takes
+# only "kill" (stop the motor) or "ping". Nothing else may listen.
+KILL_SOCKET_MODULE = "killsock.py"
+
+
 def test_no_module_opens_a_server_socket():
     # common practice, no source: these are the standard library's ways to listen
     forbidden_imports = ("socketserver", "http.server", "xmlrpc.server", "wsgiref",
@@ -298,6 +306,8 @@ def test_no_module_opens_a_server_socket():
                        "start_unix_server", "serve_forever", "Listener"}
     found = []
     for path, tree in _trees():
+        if path.name == KILL_SOCKET_MODULE and path.parent.name == "link":
+            continue   # checked by test_the_kill_socket_is_owner_only_and_takes_only_kill
         for node in ast.walk(tree):
             if isinstance(node, (ast.Import, ast.ImportFrom)):
                 names = [a.name for a in node.names] if isinstance(node, ast.Import) \
@@ -336,8 +346,11 @@ def test_rigbench_sim_pty_is_owner_only_and_no_process_listens(tmp_path):
                     for inode, state, local in rows:
                         if inode in mine:
                             # an inet socket of any kind, or a listening unix socket (flag
-                            # __SO_ACCEPTCON 0x10000), would be a way in
-                            assert name == "unix" and not int(state, 16) & 0x10000, \
+                            # __SO_ACCEPTCON 0x10000), would be a way in; the host's kill
+                            # socket (owner-only folder, takes only "kill") is the exception
+                            listening = name == "unix" and int(state, 16) & 0x10000
+                            assert name == "unix" and (not listening or (
+                                pid == os.getpid() and local == str(socket_path(path)))), \
                                 (pid, name, local)
     finally:
         if server.poll() is None:
@@ -348,3 +361,41 @@ def test_rigbench_sim_pty_is_owner_only_and_no_process_listens(tmp_path):
                 server.kill()
                 server.wait(10)
     assert server.returncode == 0
+
+
+@pytest.mark.skipif(not hasattr(socket, "AF_UNIX"), reason="needs Unix-domain sockets")
+def test_the_kill_socket_is_owner_only_and_takes_only_kill(monkeypatch):
+    # the holder of a port answers `rigbench kill` from another terminal: its socket lives
+    # in a folder only this user can enter, and anything but "kill" or "ping" does nothing
+    import shutil
+    import tempfile
+
+    tmp_path = Path(tempfile.mkdtemp(prefix="rk"))   # short: a socket path has ~100 bytes
+    monkeypatch.setenv("XDG_RUNTIME_DIR", str(tmp_path))
+    kills = []
+
+    class FakeLink:
+        def event_cursor(self):
+            return 0
+
+    import rigbench.link.killsock as ks
+
+    monkeypatch.setattr(ks, "kill_and_confirm",
+                        lambda link, **kw: kills.append(kw) or kw["on_sent"](1.0))
+    service = ks.KillService(FakeLink(), str(tmp_path / "ttyX")).start()
+    try:
+        folder = service.path.parent
+        assert folder.stat().st_mode & 0o777 == 0o700 and folder.stat().st_uid == os.getuid()
+        for junk in (b"arm\n", b"mode 1 hold\n", b"\x00" * 64):
+            with socket.socket(socket.AF_UNIX, socket.SOCK_STREAM) as c:
+                c.settimeout(2.0)
+                c.connect(str(service.path))
+                c.sendall(junk)
+                assert c.recv(100) == b""          # closed without an answer
+        assert kills == []
+        assert ks.request_kill(str(service.path), probe=True)["pid"] == os.getpid()
+        assert kills == []
+    finally:
+        service.close()
+        shutil.rmtree(tmp_path, ignore_errors=True)
+    assert not service.path.exists()

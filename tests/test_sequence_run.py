@@ -275,3 +275,19 @@ def test_every_step_kind_has_one_action_and_the_run_gives_what_steps_use():
     source = inspect.getsource(_Run)
     missing = [n for n in names if f"self.{n}" not in source and f"def {n}(" not in source]
     assert not missing, missing
+def test_a_clear_step_lets_a_sequence_run_after_a_kill(tmp_path):
+    # PROTOCOL.md §7.3: after a kill `arm` is refused (interlock fault) until `clear`;
+    # clearing leaves the motor off and a new `arm` is needed
+    refused = load_sequence(_write(tmp_path, _seq("  - arm\n  - hold\n  - disarm\n"),
+                                   name="a.yaml"))
+    cleared = load_sequence(_write(tmp_path, _seq("  - clear\n  - arm\n  - hold\n"
+                                                  "  - wait: 0.5\n  - disarm\n"), name="b.yaml"))
+    with Link.open(SIM) as link:
+        link.kill()
+        link.sleep(0.05)
+        first = run_sequence(link, sequence=refused, results_dir=tmp_path / "r1")
+        assert first.stopped_by == "refused" and "clear" in first.detail
+        second = run_sequence(link, sequence=cleared, results_dir=tmp_path / "r2")
+        assert link.status().fault is None
+    assert second.stopped_by == "done" and second.motor_after == "off"
+    assert second.steps[0].detail == "motor off (fault cleared)"

@@ -36,8 +36,8 @@ from rigbench.base.version import package_version
 from rigbench.commands._common import DEFAULT_PORT, CommandError  # noqa: F401
 
 # Subcommand modules under bench/rigbench/commands/, in the order --help shows them.
-COMMANDS = ["ui", "ports", "info", "watch", "kill", "sim", "tune", "sweep", "push", "pull",
-            "diff", "run", "report", "examples"]
+COMMANDS = ["ui", "ports", "info", "watch", "kill", "clear", "sim", "tune", "sweep", "push",
+            "pull", "diff", "run", "report", "examples"]
 DEFAULT_COMMAND = "ui"  # what plain ``rigbench`` runs
 
 

@@ -145,6 +145,50 @@ STREAMS = [
     ("\n\n" + _ST + "AT\r\n", ["junk"], ["status 7"], 0),
 ]
 
+# Exchanges with a board just booted, heartbeats flowing, motor off (PROTOCOL.md §4.2, §7):
+# each step sends a body (or "KILL": one kill byte 0x18) and lists what the board answers
+# before the next step, in order: the start of each reply body (`ok <seq>` or `err <seq>
+# <code>`) and each event without its time (`ev trip cause=kill`); status and telemetry
+# frames are left out. (name, [(send, [answers])])
+EXCHANGES = [
+    ("a restarted host sends the same hello after a trip and is answered",
+     [("hello 1 1.0", ["ok 1 proto=1.0"]), ("KILL", ["ev trip cause=kill"]),
+      ("hello 1 1.0", ["ok 1 proto=1.0"]), ("status 2", ["ok 2 mode=off"])]),
+    ("a resend after a trip gets state and is not acted on again",
+     [("clear 5", ["ok 5 motor=off"]), ("KILL", ["ev trip cause=kill"]),
+      ("clear 5", ["err 5 state"]), ("status 6", ["ok 6 mode=off loop=- motor=tripped"])]),
+    ("a hello clears the resend memory",
+     [("status 5", ["ok 5 mode=off"]), ("hello 6 1.0", ["ok 6 proto=1.0"]),
+      ("KILL", ["ev trip cause=kill"]), ("status 5", ["ok 5 mode=off loop=- motor=tripped"])]),
+    ("three kill bytes latch one trip and send one event",
+     [("KILL", ["ev trip cause=kill"]), ("KILL", []), ("KILL", []),
+      ("kill 3", ["ok 3 motor=tripped"]), ("clear 4", ["ev clear", "ok 4 motor=off"]),
+      ("clear 4", ["ok 4 motor=off"])]),
+    ("disarm leaves a tripped motor tripped",
+     [("kill 1", ["ev trip cause=kill", "ok 1 motor=tripped"]),
+      ("disarm 2", ["ok 2 motor=tripped"]), ("arm 3", ["err 3 interlock fault"])]),
+    ("an unknown verb is refused with unknown_verb",
+     [("jump 3", ["err 3 unknown_verb"]), ("status 4", ["ok 4 mode=off"])]),
+    ("a kill that fails to parse still stops",
+     [("kill x", ["ev trip cause=kill"]), ("clear 1", ["ev clear", "ok 1 motor=off"]),
+      ("kill 2 now", ["ev trip cause=kill", "err 2 bad_args"]),
+      ("status 3", ["ok 3 mode=off loop=- motor=tripped fault=kill"])]),
+    ("a trip forces mode off",
+     [("arm 1", ["ok 1 motor=armed"]), ("mode 2 hold", ["ev mode mode=hold", "ok 2 mode=hold"]),
+      ("KILL", ["ev trip cause=kill", "ev mode mode=off loop=-"])]),
+    ("numbers and sequence numbers",
+     [("status 007", ["ok 7 mode=off"]), ("set 1 tilt_kp=1e999", ["err 1 bad_args"]),
+      ("set 2 tilt_kp=1e-999", ["ok 2 tilt_kp=0"]),
+      ("stream 3 rate_hz=9999", ["ok 3 rate_hz=500"]), ("stream 4 rate_hz=0", ["ok 4 rate_hz=0"])]),
+    ("the first error in argument order wins; names and ranges before the motor state",
+     [("set 1 nope=1 tilt_kp=99", ["err 1 unknown_name"]),
+      ("set 2 tilt_kp=99 nope=1", ["err 2 range tilt_kp 0..10"]),
+      ("set 3 tilt_kp=1 tilt_kp=2", ["err 3 bad_args"]),
+      ("mode 4 open loop=tilt out=0 time_s=99", ["err 4 range time_s 0..10"]),
+      ("mode 5 open loop=nope out=0 time_s=1", ["err 5 unknown_name"]),
+      ("mode 6 hold", ["err 6 not_armed"])]),
+]
+
 _LOOP_DECL = {"index": 1, "name": "tilt", "measure": "tilt", "output": "cmd",
               "gains": ["tilt_kp", "tilt_ki", "tilt_kd"], "plant": "unstable",
               "relay": "integral"}
@@ -177,7 +221,10 @@ def main() -> None:
         "with 'error' (PROTOCOL.md §2-§3). direction = who sends it. 'streams' are byte "
         "streams ('bytes', same escapes) with the frame errors a receiver counts in them in "
         "order, the bodies it reads and the kill bytes it sees, however the bytes are split "
-        "into reads. 'loop_replies' are "
+        "into reads. 'exchanges' are steps with a board just booted (heartbeats flowing, "
+        "motor off): 'send' is a body, or KILL for one kill byte; 'answers' are the starts of "
+        "the replies and events (time left out) it sends before the next step, status and "
+        "telemetry left out (§4.2, §7). 'loop_replies' are "
         "board replies to `loop` (§5.4) that every codec reads; their fields declare the "
         "loop in 'declares' (optional fields absent: null) or must be refused with 'error'.",
         "crc_check": {"algorithm": "CRC-16/IBM-3740", "poly": "0x1021", "init": "0xFFFF",
@@ -187,6 +234,9 @@ def main() -> None:
         "bad": [{"direction": d, "frame": raw, "error": e} for d, raw, e in BAD],
         "streams": [{"bytes": raw, "errors": e, "bodies": b, "kills": k}
                     for raw, e, b, k in STREAMS],
+        "exchanges": [{"about": name, "steps": [{"send": send, "answers": answers}
+                                                 for send, answers in steps]}
+                      for name, steps in EXCHANGES],
         "loop_replies": [
             {"frame": frame(b), **({"error": r} if isinstance(r, str) else {"declares": r})}
             for b, r in LOOP_REPLIES],

@@ -254,3 +254,31 @@ def test_stream_vectors_whole_and_byte_by_byte(vec):
         assert len(replies) == len(vec["bodies"]), size
         assert t.differences() == [], size
         assert (t.c.fault == "kill") == (vec["kills"] > 0), size
+
+
+def _answers_of(lines: list[str]) -> list[str]:
+    out = []
+    for line in lines:
+        tokens = line.split(" ")
+        if tokens[0] in ("ok", "err"):
+            out.append(line)
+        elif tokens[0] == "ev":
+            out.append(" ".join(["ev"] + tokens[2:]))
+    return out
+
+
+@pytest.mark.parametrize("vec", VECTORS["exchanges"], ids=lambda v: v["about"][:40])
+def test_exchange_vectors_on_both_boards(vec):
+    # PROTOCOL.md §4.2, §7: each step's replies and events, on the C board and the Python
+    # simulated board alike
+    t = Twin("balance")
+    t.run(0.2)
+    for step in vec["steps"]:
+        seen = {key: len(t.lines(key)) for key, _ in t.boards}
+        t.send(b"\x18" if step["send"] == "KILL" else encode_frame(step["send"]))
+        for key, _ in t.boards:
+            got = _answers_of(t.lines(key)[seen[key]:])
+            assert len(got) == len(step["answers"]), (key, step, got)
+            for g, want in zip(got, step["answers"]):
+                assert g.startswith(want), (key, step, got)
+    assert t.differences() == []

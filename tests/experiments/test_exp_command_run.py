@@ -9,6 +9,7 @@ import pytest
 
 from rigbench.commands._common import CommandError
 from rigbench.commands._progress import experiment_run
+from rigbench.experiments.guards import CLEAR_HINT
 from rigbench.experiments.runner import ArmRefused, Progress
 
 
@@ -33,7 +34,8 @@ def test_a_refusal_to_arm_is_exit_4_with_the_boards_reasons(monkeypatch):
             raise ArmRefused(("tilt", "fault"))
     # exit codes as the tune and sweep help text lists them (common practice, no source)
     assert caught.value.code == 4
-    assert str(caught.value) == "the board refused to arm: tilt, fault"
+    assert str(caught.value) == "the board refused to arm: tilt, fault; " + CLEAR_HINT
+    assert "rigbench clear" in CLEAR_HINT
     assert terminal.getvalue().startswith("\r") and terminal.getvalue().endswith("\n")
 
 

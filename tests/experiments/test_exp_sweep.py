@@ -107,3 +107,35 @@ def test_every_set_is_completed_from_one_baseline_not_from_the_set_before(open_s
                    baseline={"trim_kp": boot["trim_kp"] * 0.8})
     assert sw.by_name("tilt only").applied["trim_kp"] == pytest.approx(boot["trim_kp"] * 0.8)
     assert link.get("trim_kp")["trim_kp"] == pytest.approx(boot["trim_kp"])  # restored
+@pytest.mark.parametrize("how", ["link", "byte", "framed"])
+def test_a_kill_during_a_rearming_sweep_ends_it_with_the_motor_tripped(open_sim, how):
+    # re-arming after a fall is asked for; a kill a person caused must end the sweep
+    # whatever the way it reached the board: this program's kill (a key, a signal, a
+    # `rigbench kill` passed on), a bare kill byte, or the framed kill from elsewhere
+    link = open_sim("sim://balance?seed=7")
+    start = link.get("tilt_kp", "tilt_ki", "tilt_kd")
+    fired = []
+
+    def progress(p):
+        if p.phase == "sweep" and not fired:
+            fired.append(link.now())
+            if how == "link":
+                link.kill()
+            elif how == "byte":
+                link.port.write(b"\x18")          # not through the link: no user count
+            else:
+                link.port.board.receive(b"@kill 60000|" + b"%04X" % _crc(b"kill 60000") + b"\n")
+
+    sw = run_sweep(link, [("start", start), ("again", start), ("third", start)],
+                   amplitudes=(0.02,), repeats=2, settle_s=1.0, rearm_after_fall=True,
+                   progress=progress)
+    assert fired and sw.stopped_by == "trip" and "kill" in sw.detail
+    assert not sw.by_name("third").injections
+    link.sleep(0.05)
+    assert link.status().motor == "tripped" and link.status().fault == "kill"
+    assert link.port.board.signals["cmd"] == 0.0
+
+
+def _crc(body: bytes) -> int:
+    from rigbench.wire.crc import crc16
+    return crc16(body)

@@ -179,7 +179,8 @@ class RecordingCheck:
 
 def check_recording(path: Path, *, fault_board_s: float | None = None) -> RecordingCheck:
     """Load a recording and check its order; the last row before the fault is the last
-    row of the first board boot."""
+    row of the first board boot stamped no later than the fault (a host that waits for its
+    kill to be confirmed goes on recording after a stall)."""
     rec = load_recording(path)
     frames, host_t = rec.frame, rec.host_time_s
     boots = np.flatnonzero(np.diff(rec.board_time_s) < 0) + 1   # a restart starts a segment
@@ -189,7 +190,8 @@ def check_recording(path: Path, *, fault_board_s: float | None = None) -> Record
     gap = None
     if fault_board_s is not None and len(rec):
         first_boot = np.split(rec.board_time_s, boots)[0]
-        gap = fault_board_s - float(first_boot[-1])
+        before = first_boot[first_boot <= fault_board_s + 1e-9]
+        gap = fault_board_s - float(before[-1] if len(before) else first_boot[-1])
     return RecordingCheck(len(rec), ok, gap)
 
 

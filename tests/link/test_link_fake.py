@@ -13,7 +13,7 @@ from rigbench.link import (
     BoardRefused, IncompatibleBoard, Link, LinkLost, LinkTimeout,
 )
 from rigbench.wire import KILL
-from rigbench.wire.messages import Arm, Get, Set
+from rigbench.wire.messages import Arm, Err, Get, Set
 
 
 def frames_of(port, verb):
@@ -256,3 +256,13 @@ def test_a_silent_port_gives_a_hello_timeout_with_a_hint(thread_errors):
     assert "\n" not in str(info.value)
     hellos = [m for _, m in board.received if type(m).__name__ == "Hello"]
     assert len(hellos) == 2 and len({m.seq for m in hellos}) == 1  # resent, same seq
+
+
+def test_a_hello_refused_with_state_is_sent_again_under_a_new_number(thread_errors):
+    # a board following the older PROTOCOL.md §4.2 takes a restarted host's `hello 1` for a
+    # resend of the previous host's and answers `err 1 state` after a trip: the host asks
+    # again with the next number, a new command
+    board = FakeBoard()
+    board.last_seq, board.last_reply = 1, Err(1, "state", "tripped since this command")
+    with Link.attach(FakePort(board), url="fake://board") as link:
+        assert link.info is not None and link.info.params == len(board.params)

@@ -15,6 +15,7 @@ from contextlib import contextmanager
 
 from rigbench.base.stops import EXIT_REFUSED, EXIT_USAGE  # noqa: F401
 from rigbench.commands._common import CommandError
+from rigbench.experiments.guards import CLEAR_HINT
 from rigbench.experiments.runner import ArmRefused
 
 
@@ -67,8 +68,9 @@ def experiment_run() -> Iterator[ProgressBar]:
     try:
         yield bar
     except ArmRefused as exc:
+        hint = f"; {CLEAR_HINT}" if "fault" in exc.reasons else ""
         raise CommandError(EXIT_REFUSED, f"the board refused to arm: "
-                                         f"{', '.join(exc.reasons) or exc}") from None
+                                         f"{', '.join(exc.reasons) or exc}{hint}") from None
     except ValueError as exc:
         raise CommandError(EXIT_USAGE, str(exc)) from None
     finally:

@@ -38,7 +38,7 @@ def run(args) -> int:
         b = None if args.b == BOARD else read_profile(args.b)
         if a is None or b is None:
             ref = a or b
-            with open_link(args.port) as link:
+            with open_link(args) as link:
                 if ref.loop not in link.loops:
                     return fail(args, EXIT_USAGE, f"the board has no loop {ref.loop!r}; it has:"
                                 f" {', '.join(link.loops)}")

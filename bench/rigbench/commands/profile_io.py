@@ -14,8 +14,9 @@ from contextlib import contextmanager
 from rigbench.base.stops import EXIT_CHECK, EXIT_LINK, EXIT_OK, EXIT_REFUSED, EXIT_USAGE  # noqa: F401
 from rigbench.commands._common import add_json_option as add_json  # noqa: F401
 from rigbench.commands._common import add_port_option as add_port  # noqa: F401
-from rigbench.link import BoardRefused, Link, LinkError
+from rigbench.link import BoardRefused, Link, LinkError  # noqa: F401
 from rigbench.profiles.model import Profile, dump_profile, load_profile, load_profile_text
+from rigbench.commands._common import open_link as _open_link
 from rigbench.profiles.push import PushRefused
 from rigbench.base.yamlload import SchemaError
 
@@ -37,8 +38,9 @@ def write_profile_stdout(profile: Profile) -> None:
 
 
 @contextmanager
-def open_link(url: str):
-    link = Link.open(url)
+def open_link(args):
+    """The link of ``args.port`` at ``args.baud`` (the one way commands open a link)."""
+    link = _open_link(args)
     try:
         yield link
     finally:
@@ -49,13 +51,14 @@ def problem_dict(p) -> dict:
     return {"field": p.field, "message": p.message, "line": p.line, "severity": p.severity}
 
 
-def fail(args, code: int, message: str, **extra) -> int:
-    """Report a failure as one line on stderr (or a JSON object on stdout); return ``code``."""
+def fail(args, exit_code: int, message: str, /, **extra) -> int:
+    """Report a failure as one line on stderr (or a JSON object on stdout); return
+    ``exit_code``. ``extra`` goes into the JSON object (a board refusal's ``code`` too)."""
     if getattr(args, "json", False):
-        print(json.dumps({"ok": False, "error": message, "exit": code, **extra}))
+        print(json.dumps({"ok": False, "error": message, "exit": exit_code, **extra}))
     else:
         print(f"rigbench {args.command}: {message}", file=sys.stderr)
-    return code
+    return exit_code
 
 
 def guarded(args, body) -> int:

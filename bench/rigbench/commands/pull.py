@@ -47,7 +47,7 @@ def run(args) -> int:
                         "choose one")
         if not to_stdout and os.path.exists(args.output) and not args.force:
             return fail(args, EXIT_USAGE, f"{args.output} exists; give --force to replace it")
-        with open_link(args.port) as link:
+        with open_link(args) as link:
             chosen = list(dict.fromkeys(args.loop))
             if not chosen:
                 if len(link.loops) != 1:

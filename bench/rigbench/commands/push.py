@@ -36,7 +36,7 @@ def add_parser(subparsers):
 def run(args) -> int:
     def body():
         profile = read_profile(args.profile)
-        with open_link(args.port) as link:
+        with open_link(args) as link:
             report = push_profile(link, profile, persist=args.persist, dry_run=args.dry_run)
             url, info = link.url, link.info
         if args.json:

@@ -25,6 +25,7 @@ from rigbench.base.yamlload import SchemaError
 from rigbench.link import Link
 
 from rigbench.commands._common import add_json_option, print_json
+from rigbench.commands._signals import kill_on_signal
 
 
 
@@ -92,7 +93,7 @@ def run(args) -> int:
     out = sys.stderr if args.json else sys.stdout
     print(f"running {seq.name!r} ({len(steps)} steps) on {port}; results in {folder}",
           file=out, flush=True)
-    with Link.open(port) as link:
+    with Link.open(port) as link, kill_on_signal(link):
         if link.simulated:
             print("board: SIMULATED", file=out, flush=True)
         result = run_sequence(link, sequence=seq, results_dir=folder,

@@ -22,6 +22,7 @@ from rigbench.base.stops import exit_code_for, EXIT_INTERNAL, EXIT_INTERRUPTED, 
 from rigbench.commands._common import CommandError, help_text
 from rigbench.profiles.model import SchemaError, check_against_board, load_profile
 
+from rigbench.commands._signals import kill_on_signal
 from rigbench.commands._common import add_json_option, add_port_option, open_link, plain, print_json, table
 from rigbench.commands._progress import experiment_run
 
@@ -183,7 +184,7 @@ def run(args) -> int:
     out_dir = Path(args.out) if args.out else None
     if out_dir is not None:
         out_dir.mkdir(parents=True, exist_ok=True)
-    with open_link(args) as link:
+    with open_link(args) as link, kill_on_signal(link):
         sets = _load_sets(args, link)
         baseline = _checked_profile(args.baseline, link).values() if args.baseline else None
         with experiment_run() as bar:

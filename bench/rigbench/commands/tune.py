@@ -24,6 +24,7 @@ from rigbench.experiments.conventions import primary_loop
 from rigbench.experiments.proposals import propose
 from rigbench.experiments.relay import run_relay
 
+from rigbench.commands._signals import kill_on_signal
 from rigbench.commands._common import add_json_option, add_port_option, open_link, plain, print_json, table
 from rigbench.commands._progress import experiment_run
 
@@ -220,7 +221,7 @@ def run(args) -> int:
             out_dir.mkdir(parents=True, exist_ok=True)
         except OSError as exc:
             raise CommandError(EXIT_USAGE, f"--out {out_dir}: {exc.strerror or exc}") from None
-    with open_link(args) as link:
+    with open_link(args) as link, kill_on_signal(link):
         loop = args.loop
         if loop is None:
             if len(link.loops) != 1:

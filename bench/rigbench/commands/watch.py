@@ -15,6 +15,7 @@ from rigbench.commands._common import CommandError, help_text
 from rigbench.recordings.recording import Recorder, RecordingError
 
 from rigbench.commands._common import add_port_option, open_link
+from rigbench.commands._signals import kill_on_signal
 
 
 def add_parser(subparsers):
@@ -64,7 +65,7 @@ def run(args) -> int:
         raise CommandError(EXIT_USAGE, "--csv -: a recording is a CSV file with a YAML sidecar "
                            "beside it, which standard output cannot hold; give a file name, "
                            "or leave out --csv to print columns to standard output")
-    with open_link(args) as link:
+    with open_link(args) as link, kill_on_signal(link, only_if_moving=True):
         if args.csv:
             rate = args.rate if args.rate is not None else 100.0
             try:

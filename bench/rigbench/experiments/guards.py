@@ -11,7 +11,11 @@ from pathlib import Path
 import numpy as np
 
 __all__ = ["ExperimentResult", "ExperimentStopped", "ArmRefused", "Guards", "Progress",
-           "STOP_REASONS", "guard_limits"]
+           "STOP_REASONS", "CLEAR_HINT", "guard_limits"]
+
+# what a refusal because of a latched fault tells the user to do (never done for them)
+CLEAR_HINT = ("check the rig, then clear the fault with `rigbench clear` (in a sequence: a "
+              "`clear` step before `arm`); clearing never starts the motor")
 
 STOP_REASONS = ("done", "cancelled", "guard", "trip", "stale", "lost", "reset", "error")
 
@@ -21,7 +25,10 @@ class ArmRefused(Exception):
 
     def __init__(self, reasons: tuple[str, ...], text: str = "") -> None:
         self.reasons = tuple(reasons)
-        super().__init__(text or f"the board refused to arm: {', '.join(self.reasons)}")
+        text = text or f"the board refused to arm: {', '.join(self.reasons)}"
+        if "fault" in self.reasons and CLEAR_HINT not in text:
+            text += f"; {CLEAR_HINT}"
+        super().__init__(text)
 
 
 class ExperimentStopped(Exception):

@@ -43,6 +43,7 @@ from pathlib import Path
 import numpy as np
 
 from rigbench.link import BoardRefused, LinkError, LinkLost
+from rigbench.link.killing import CUT_POWER
 from rigbench.recordings.recording import Recorder
 
 from rigbench.base.stops import kills_motor
@@ -99,8 +100,7 @@ class Experiment:
         st = link.status()
         self.found_motor, self.found_mode = st.motor, st.mode
         if st.motor == "tripped":
-            raise ArmRefused(("fault",), f"the board has a latched fault ({st.fault}): "
-                                         "clear it (and check the rig) before an experiment")
+            raise ArmRefused(("fault",), f"the board has a latched fault ({st.fault})")
         self.restore_values = link.get(*self.restore) if self.restore else {}
         self.signals = tuple(s.name for s in link.signals)
         self.units = tuple(s.unit for s in link.signals)
@@ -150,14 +150,22 @@ class Experiment:
     def mode(self, name: str, **fields) -> dict:
         """Change the board's mode (PROTOCOL.md §8); returns the applied fields."""
         self._check()
-        applied = self.link.mode(name, **fields)
+        try:
+            applied = self.link.mode(name, **fields)
+        except BoardRefused:
+            self._pull()   # a trip the board sent before refusing stops the run as a trip
+            raise
         self.mark(f"mode {name}" + "".join(f" {k}={v}" for k, v in fields.items()))
         return applied
 
     def set(self, **values) -> dict:
         """Set parameters atomically (PROTOCOL.md §5.5); refused ones raise BoardRefused."""
         self._check()
-        applied = self.link.set(**values)
+        try:
+            applied = self.link.set(**values)
+        except BoardRefused:
+            self._pull()
+            raise
         self.mark("set " + " ".join(f"{k}={v:g}" for k, v in applied.items()
                                     if isinstance(v, float)))
         return applied
@@ -256,12 +264,15 @@ class Experiment:
             return
         self._killed = True
         try:
-            self.link.kill()
-        except LinkError as exc:
-            # nothing left to send it on; the board's watchdog turns the motor off
-            log.warning("experiment %r: kill not sent (%s); relying on the board's watchdog",
-                        self.name, exc)
+            # a kill the board does not confirm escalates (framed kill, disarm, heartbeat
+            # stopped for its watchdog: rigbench.link.killing)
+            outcome = self.link.kill_confirmed(reason=f"guard:{self._stop[0]}")
+        except LinkError:
+            outcome = None  # nothing left to send it on; the board's watchdog stops the motor
         self._marks.append((self.link.now(), "kill"))
+        if outcome is not None and outcome.escalated:
+            self._marks.append((self.link.now(), "kill unconfirmed: " + ", ".join(outcome.steps)))
+            self._stop = (self._stop[0], f"{self._stop[1]}; {CUT_POWER}")
 
     def data(self) -> tuple[np.ndarray, np.ndarray]:
         """All rows so far: (t_s, values)."""

@@ -23,7 +23,10 @@ A **fall** (|measure| beyond its guard, or a board trip) kills the motor (runner
 is recorded for that set; with ``rearm_after_fall`` the fault is cleared and the sweep
 goes on with the next set once the board's interlock would allow arming again (within
 ``rearm_wait_s``: a person stands the rig up and the wheel runs down; on the simulated rig
-a hand lifts it while the motor is off), otherwise the sweep stops there. The original
+a hand lifts it while the motor is off), otherwise the sweep stops there. Only a fall
+re-arms: a signal beyond its guard or a board ``<signal>_limit`` trip. A kill a person
+caused (the kill byte or framed kill from this or another program, a signal, the
+watchdog) ends the sweep with the motor tripped, never re-armed. The original
 values of every parameter a set changes are restored at the end, whatever happened.
 """
 
@@ -172,6 +175,7 @@ def run_sweep(link, gain_sets, *, loop: str | None = None, amplitudes=(0.02, 0.0
     total = len(sets) * len(amplitudes) * repeats
     counter = {"done": 0}
     pending = list(range(len(sets)))
+    user_kills = link.user_kills
     try:
         while pending:
             current = {"i": None}
@@ -190,14 +194,14 @@ def run_sweep(link, gain_sets, *, loop: str | None = None, amplitudes=(0.02, 0.0
             if res.stopped_by == "done":
                 break
             i = current["i"]
-            fell = res.stopped_by in ("guard", "trip") and i is not None
+            fell = i is not None and _is_fall(res)
             if fell:
                 r = results[i]
                 r.fell, r.detail = True, res.detail
                 r.injections.append(Injection(r.name, float("nan"), -1, res.ended_s, None, True,
                                               res.detail))
                 pending.remove(i)
-            if fell and rearm_after_fall and pending and _rearm(link, rearm_wait_s):
+            if fell and rearm_after_fall and pending and _rearm(link, rearm_wait_s, user_kills):
                 continue
             stop, detail = ("fell" if fell else res.stopped_by), res.detail
             break
@@ -219,12 +223,29 @@ def run_sweep(link, gain_sets, *, loop: str | None = None, amplitudes=(0.02, 0.0
                        experiments)
 
 
-def _rearm(link, wait_s: float) -> bool:
+def _is_fall(res) -> bool:
+    """The rig fell: a signal beyond its guard (the experiment killed), or the board tripped
+    on a ``<signal>_limit``. A kill, the watchdog or any other cause is not a fall."""
+    if res.stopped_by == "guard":
+        return res.detail.startswith("|")
+    if res.stopped_by == "trip":
+        cause = res.detail.removeprefix("the board tripped: ").split(" ")[0]
+        return cause.endswith("_limit")
+    return False
+
+
+def _rearm(link, wait_s: float, user_kills: int) -> bool:
     """Clear the fault and wait (up to ``wait_s``) until the interlock would allow arming:
-    someone has to stand the rig up and the wheel has to run down first."""
+    someone has to stand the rig up and the wheel has to run down first. Never after a
+    person's kill (``link.user_kills`` grew) or with a kill latched that this fall did not
+    explain; a kill during the wait leaves the motor tripped and ends the sweep."""
+    if link.user_kills != user_kills:
+        return False
     link.clear()
-    return link.wait_until(lambda: link.last_status is not None and link.last_status.motor
-                           == "off" and not link.last_status.why, wait_s)
+    ok = link.wait_until(lambda: link.user_kills != user_kills or (
+        link.last_status is not None and link.last_status.motor == "off"
+        and not link.last_status.why), wait_s)
+    return ok and link.user_kills == user_kills and link.status().motor == "off"
 
 
 def _run_set(exp: Experiment, ls, gs: GainSet, out: SetResult, amplitudes, repeats, kind, at,

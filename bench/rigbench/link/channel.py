@@ -98,6 +98,8 @@ class Channel:
         t = self.clock.now()
         self._last_rx: float | None = None
         self._next_hb = t
+        self._hb_stopped = False   # a kill the board did not confirm stops it (killing.py)
+        self.user_kills = 0        # kills not sent by an experiment's own guards
         # counters: requesters and the reader both count, under a small lock
         self.c = dict(timeouts=0, resends=0, late_replies=0, heartbeats=0, rx_bytes=0,
                       tx_bytes=0)
@@ -186,8 +188,22 @@ class Channel:
             self._raw_write(data)
             return self.clock.now()
 
-    def write_kill(self, repeat: int = 3) -> float:
-        """Write the kill byte ``repeat`` times ahead of anything queued; return the time."""
+    def stop_heartbeat(self) -> None:
+        """Send no more heartbeats: the board's watchdog trips the motor (PROTOCOL.md §7.2)."""
+        self._hb_stopped = True
+        self.events.append(LinkEvent(self.clock.now(), None, "link", "heartbeat_stopped", {}))
+
+    def resume_heartbeat(self) -> None:
+        self._hb_stopped = False
+
+    @property
+    def heartbeat_stopped(self) -> bool:
+        return self._hb_stopped
+
+    def write_kill(self, repeat: int = 3, *, reason: str = "user") -> float:
+        """Write the kill byte ``repeat`` times ahead of anything queued; return the time.
+        ``reason``: who asked (``user`` for a person or a signal; an experiment's guard
+        names itself) — a sweep never re-arms after a user's kill."""
         if self._lost:
             raise LinkLost(self._lost)
         self._kill_pending = True
@@ -201,7 +217,10 @@ class Channel:
             if got:
                 self._wlock.release()
         t = self._kill_time if self._kill_time is not None else self.clock.now()
-        self.events.append(LinkEvent(t, None, "link", "kill", {"repeat": str(repeat)}))
+        if reason == "user":
+            self.user_kills += 1
+        self.events.append(LinkEvent(t, None, "link", "kill",
+                                     {"repeat": str(repeat), "by": reason}))
         return t
 
     # ------------------------------------------------------------------ waiting
@@ -266,7 +285,7 @@ class Channel:
                 if self.waits.idle():
                     continue
                 now = self.clock.now()
-                if now >= self._next_hb:
+                if now >= self._next_hb and not self._hb_stopped:
                     self.write(self._hb_frame)
                     self.c["heartbeats"] += 1
                     self._next_hb = max(self._next_hb + self.heartbeat_s, now)

@@ -35,6 +35,7 @@ class Ingest:
         self.handshake_needed = True  # latched from open or a restart until a handshake
         self.last_status: BoardStatus | None = None
         self.motor_state: str | None = None
+        self.stop_reports = 0  # frames that reported the motor off or tripped (killing.py)
         self.bad_frames: dict[str, int] = {}
         self.c = dict(rx_frames=0, tm_rows=0, lost_frames=0, repeated=0, resets=0,
                       resyncs=0, unplaced_rows=0)
@@ -89,6 +90,8 @@ class Ingest:
                 replies.append(ev)
                 if kind is Ok and ev.get("motor"):
                     self.motor_state = ev.get("motor")
+                    if self.motor_state in ("off", "tripped"):
+                        self.stop_reports += 1
             elif kind is Status:
                 self.c["rx_frames"] += 1
                 self._status(ev, now)
@@ -149,6 +152,8 @@ class Ingest:
             return
         self.last_status = st
         self.motor_state = st.motor
+        if st.motor in ("off", "tripped"):
+            self.stop_reports += 1
         self.statuses.append(st)
 
     def _event(self, ev: Event, now: float) -> None:
@@ -159,5 +164,6 @@ class Ingest:
                                      dict(ev.fields)))
         if ev.kind == "trip":
             self.motor_state = "tripped"
+            self.stop_reports += 1
         elif ev.kind == "clear" and self.motor_state == "tripped":
             self.motor_state = "off"

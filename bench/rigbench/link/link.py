@@ -34,6 +34,8 @@ from rigbench.wire.messages import (
 )
 
 from rigbench.link.channel import Channel
+from rigbench.link.killing import CONFIRM_S, kill_and_confirm
+from rigbench.link.killsock import KillService
 from rigbench.link.errors import (
     BoardRefused, IncompatibleBoard, LinkError, LinkLost, LinkTimeout, SaveMismatch, open_error,
 )
@@ -77,6 +79,7 @@ class Link:
         self.loops: dict[str, LoopInfo] = {}
         self._stream_rate_hz: float | None = None
         self._resync_thread: threading.Thread | None = None
+        self._kill_service: KillService | None = None
 
     # ------------------------------------------------------------------ opening
 
@@ -93,8 +96,12 @@ class Link:
             port = serial.serial_for_url(url, **options)
         except (OSError, ValueError) as exc:
             raise open_error(url, exc) from None
-        return cls.attach(port, url=url, reply_timeout_s=reply_timeout_s,
+        link = cls.attach(port, url=url, reply_timeout_s=reply_timeout_s,
                           heartbeat_s=heartbeat_s, ring_rows=ring_rows, **kwargs)
+        if "://" not in url:
+            # `rigbench kill` in another terminal reaches this program's link (killsock.py)
+            link._kill_service = KillService(link, url).start()
+        return link
 
     @classmethod
     def attach(cls, port, *, kill_first: bool = False, **kwargs) -> "Link":
@@ -119,6 +126,8 @@ class Link:
 
     def close(self) -> None:
         """Stop the threads promptly and close the port. Safe to call twice."""
+        if self._kill_service is not None:
+            self._kill_service.close()
         self.channel.close()
         self.channel.ingest.reset_seen.set()  # wakes the resync thread, which sees the stop
         if self._resync_thread is not None and self._resync_thread is not threading.current_thread():
@@ -136,7 +145,14 @@ class Link:
         ch = self.channel
         tries = max(1, int(round(hello_timeout_s / ch.reply_timeout_s)))
         try:
-            reply = ch.request(Hello, retries=tries - 1)
+            try:
+                reply = ch.request(Hello, retries=tries - 1)
+            except BoardRefused as exc:
+                if exc.code != "state":
+                    raise
+                # a board following the older §4.2 took our hello for a resend of a previous
+                # host's (same number, same bytes, a trip since): a new number is a new command
+                reply = ch.request(Hello, retries=tries - 1)
         except LinkTimeout:
             baud = getattr(self.port, "baudrate", None)
             at = f" at {baud} baud" if baud and not self.url.startswith("sim://") else ""
@@ -288,13 +304,20 @@ class Link:
         except RemoteProtocolError as exc:
             raise LinkError(f"board at {self.url} sent a bad status reply: {exc}") from None
 
-    def kill(self, *, framed: bool = False, repeat: int = 3) -> float:
+    def kill(self, *, framed: bool = False, repeat: int = 3, reason: str = "user") -> float:
         """Kill byte ×``repeat`` ahead of anything queued (PROTOCOL.md §7.1); returns the
-        link-clock time it was written. ``framed`` also sends ``kill`` and awaits its reply."""
-        t = self.channel.write_kill(repeat)
+        link-clock time it was written. ``framed`` also sends ``kill`` and awaits its reply.
+        ``reason``: ``user`` (a person, a signal) or the experiment guard that sent it."""
+        t = self.channel.write_kill(repeat, reason=reason)
         if framed:
             self.request(Kill)
         return t
+
+    def kill_confirmed(self, *, reason: str = "user", confirm_s: float | None = None):
+        """Kill and wait for the board to confirm; escalate when it does not (killing.py).
+        Returns a KillOutcome."""
+        return kill_and_confirm(self, reason=reason,
+                                confirm_s=CONFIRM_S if confirm_s is None else confirm_s)
 
     # ------------------------------------------------------------------ observing
 
@@ -341,6 +364,11 @@ class Link:
     @property
     def last_status(self) -> BoardStatus | None:
         return self.channel.ingest.last_status
+
+    @property
+    def user_kills(self) -> int:
+        """Kills sent for a person (a key, a signal, `rigbench kill`), not by a guard."""
+        return self.channel.user_kills
 
     @property
     def motor_state(self) -> str | None:

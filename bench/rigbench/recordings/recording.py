@@ -95,6 +95,12 @@ class Recorder:
         self._fd: int | None = None
         self._closed = False
         self._meta: dict = {}
+        # the periodic sidecar rewrite runs on its own thread: a slow disk must not stall
+        # the caller (an experiment polls from the thread that checks its guards)
+        self._side_cond = threading.Condition()
+        self._side_doc: dict | None = None
+        self._side_thread: threading.Thread | None = None
+        self._side_stop = False
 
     # ------------------------------------------------------------------ life cycle
 
@@ -133,6 +139,9 @@ class Recorder:
         self._write_all(header.encode("ascii"))
         self._last_flush = time.monotonic()
         self._write_sidecar(stopped=None, complete=False)
+        self._side_thread = threading.Thread(target=self._sidecar_loop, daemon=True,
+                                             name=f"recorder sidecar {self.path.name}")
+        self._side_thread.start()
         if self.background:
             self._thread = threading.Thread(target=self._run, daemon=True,
                                             name=f"recorder {self.path.name}")
@@ -152,6 +161,7 @@ class Recorder:
         self._stop.set()
         if self._thread is not None:
             self._thread.join(5.0)
+        self._stop_sidecar_thread()   # the final sidecar below is the last one written
         with self._lock:
             try:
                 self._pull()
@@ -240,9 +250,36 @@ class Recorder:
             self._pending.clear()
             self._write_all(data)  # whole lines in one write: a crash cannot cut one
         self._last_flush = time.monotonic()
-        self._write_sidecar(stopped=None, complete=False)
+        doc = self._sidecar_doc(stopped=None, complete=False)
+        with self._side_cond:             # the writer thread takes the newest one
+            self._side_doc = doc
+            self._side_cond.notify()
+
+    def _sidecar_loop(self) -> None:
+        while True:
+            with self._side_cond:
+                while self._side_doc is None and not self._side_stop:
+                    self._side_cond.wait()
+                doc, self._side_doc = self._side_doc, None
+                if doc is None:
+                    return
+            try:
+                self._dump_sidecar(doc)
+            except Exception as exc:  # noqa: BLE001 - kept and raised by close()
+                self.error = exc
+
+    def _stop_sidecar_thread(self) -> None:
+        with self._side_cond:
+            self._side_stop = True
+            self._side_doc = None         # close() writes the final one itself
+            self._side_cond.notify()
+        if self._side_thread is not None:
+            self._side_thread.join(10.0)
 
     def _write_sidecar(self, *, stopped, complete: bool) -> None:
+        self._dump_sidecar(self._sidecar_doc(stopped=stopped, complete=complete))
+
+    def _sidecar_doc(self, *, stopped, complete: bool) -> dict:
         health = None
         try:
             h = self.link.health()
@@ -254,6 +291,9 @@ class Recorder:
         doc.update({"stopped": stopped, "complete": complete, "rows": self.rows,
                     "rows_skipped": self.rows_skipped, "notes": list(self._notes),
                     "events": list(self._events), "link_health": health})
+        return doc
+
+    def _dump_sidecar(self, doc: dict) -> None:
         write_text_atomic(self.sidecar, yaml.safe_dump(doc, sort_keys=False,
                                                        default_flow_style=None, width=100))
 

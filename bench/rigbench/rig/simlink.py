@@ -114,6 +114,9 @@ class SimLink:
         they queue behind those."""
         if self.unplugged:
             return
+        if self.options.drop_kill and b"\x18" in data:   # test knob: kill bytes lost
+            self.counts.dropped += data.count(b"\x18")
+            data = data.replace(b"\x18", b"")
         data = self._line.carry(data)
         if self.stalled or self._fifo:
             room = RX_FIFO_BYTES - len(self._fifo)

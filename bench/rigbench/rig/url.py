@@ -9,8 +9,10 @@ Common options: ``seed`` (whole number ≥ 0, default 0), ``noise`` (scale of se
 (default real), ``state=PATH`` (file of the board's non-volatile storage).
 Faults: ``corrupt=P`` and ``drop=P`` (probability per byte, 0..1, both directions),
 ``stall=AFTER:FOR`` (seconds: the board stops stepping and sending for FOR s),
-``reset=AFTER`` (the board reboots), ``unplug=AFTER`` (the port goes away). Times are
-simulated seconds since the port was opened.
+``reset=AFTER`` (the board reboots), ``unplug=AFTER`` (the port goes away), ``dropkill=1``
+(the line loses every kill byte 0x18 the host sends, and nothing else: for testing that a
+kill the board never confirms is escalated). Times are simulated seconds since the port was
+opened.
 
 Every option may appear once; unknown options, options of another rig and bad values
 raise ValueError naming the option. Pure function, no I/O: fuzzed in the tests.
@@ -26,7 +28,7 @@ from urllib.parse import parse_qsl, quote, urlsplit
 __all__ = ["SimOptions", "parse_sim_url", "format_sim_url"]
 
 _COMMON = ("seed", "noise", "rate", "clock", "state", "corrupt", "drop", "stall", "reset",
-           "unplug")
+           "unplug", "dropkill")
 _BY_RIG = {"balance": ("drive",), "wheel": (), "plant": ("num", "den", "delay")}
 _SEED_RE = re.compile(r"[0-9]{1,19}")
 
@@ -51,6 +53,7 @@ class SimOptions:
     stall_for_s: float = 0.0
     reset_after_s: float | None = None
     unplug_after_s: float | None = None
+    drop_kill: bool = False
 
 
 _NUMBER_RE = re.compile(r"[-+]?(\d+\.?\d*|\.\d+)([eE][-+]?\d+)?\Z")
@@ -143,6 +146,10 @@ def parse_sim_url(url: str) -> SimOptions:
             kw["reset_after_s"] = _number(key, text, 0.0)
         elif key == "unplug":
             kw["unplug_after_s"] = _number(key, text, 0.0)
+        elif key == "dropkill":
+            if text not in ("0", "1"):
+                raise ValueError(f"sim:// option dropkill={text!r} must be 0 or 1")
+            kw["drop_kill"] = text == "1"
     opts = SimOptions(**kw)
     if rig == "plant" and len(opts.num) > len(opts.den):
         raise ValueError("sim://plant: num has a higher degree than den (improper)")
@@ -169,5 +176,7 @@ def format_sim_url(o: SimOptions) -> str:
             q.append((key, value if isinstance(value, str) else repr(value)))
     if o.stall_after_s is not None:
         q.append(("stall", f"{o.stall_after_s!r}:{o.stall_for_s!r}"))
+    if o.drop_kill:
+        q.append(("dropkill", "1"))
     query = "&".join(f"{k}={quote(v, safe='/,.:-_')}" for k, v in q)
     return f"sim://{o.rig}" + (f"?{query}" if query else "")

@@ -178,7 +178,10 @@ class StepRunner:
             self.link.arm()
         except BoardRefused as exc:
             if exc.code == "interlock":
-                raise StepAbort("refused", f"the board refused to arm: {exc.text}") from None
+                hint = ("; check the rig, then clear the fault (a `clear` step before "
+                        "`arm`, or `rigbench clear`)" if "fault" in exc.text.split(",") else "")
+                raise StepAbort("refused", f"the board refused to arm: {exc.text}{hint}") \
+                    from None
             raise
 
     def _do_hold(self, i, step, out, stop) -> None:
@@ -186,6 +189,14 @@ class StepRunner:
 
     def _do_disarm(self, i, step, out, stop) -> None:
         out.detail = f"motor {self.link.disarm()}"
+
+    def _do_clear(self, i, step, out, stop) -> None:
+        # a latched fault is cleared only because the file says so; the motor ends off
+        # (PROTOCOL.md §7.3) and a later `arm` step is needed before anything moves
+        before = motor_state(self.link)
+        after = self.link.clear()
+        out.detail = f"motor {after}" + (" (fault cleared)" if before == "tripped"
+                                         else " (no fault was latched)")
 
     def _do_set(self, i, step, out, stop) -> None:
         applied = self.link.set(**step.values)
@@ -334,6 +345,7 @@ STEP_ACTIONS: dict[str, Callable[..., None]] = {
     "arm": StepRunner._do_arm,
     "hold": StepRunner._do_hold,
     "disarm": StepRunner._do_disarm,
+    "clear": StepRunner._do_clear,
     "set": StepRunner._do_set,
     "wait": StepRunner._do_wait,
     "record": StepRunner._do_record,

@@ -28,8 +28,8 @@ from rigbench.profiles.model import load_profile
 from rigbench.rig.url import parse_sim_url
 from rigbench.sequences.steps import *  # noqa: F401,F403  (the step types are this module's API)
 from rigbench.sequences.steps import (
-    GUARD_KEYS, MAX_STEPS, METRICS, OPS, ArmStep, CheckStep, DisarmStep, Guards, HoldStep,
-    PushStep, RecordStep, RelayStep, RepeatStep, Sequence, Settled, SetStep, Step, SweepStep,
+    GUARD_KEYS, MAX_STEPS, METRICS, OPS, ArmStep, CheckStep, ClearStep, DisarmStep, Guards,
+    HoldStep, PushStep, RecordStep, RelayStep, RepeatStep, Sequence, Settled, SetStep, Step, SweepStep,
     WaitStep, count_steps, expand,
 )
 from rigbench.wire.messages import NAME_RE
@@ -337,6 +337,7 @@ STEP_KINDS = {
     "set": (_Reader.set, None, None, ()),
     "check": (_Reader.check, "text", (), ("metric", "op", "value", "text")),
     "disarm": (lambda r, m, c, p: DisarmStep(**c), None, (), ()),
+    "clear": (lambda r, m, c, p: ClearStep(**c), None, (), ()),
     "repeat": (_Reader.repeat, None, ("for", "steps"), ()),
 }
 

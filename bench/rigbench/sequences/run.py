@@ -36,6 +36,7 @@ from datetime import datetime
 from pathlib import Path
 
 from rigbench.experiments.runner import ArmRefused
+from rigbench.link.killing import CUT_POWER
 from rigbench.link import BoardRefused, LinkError, LinkLost
 from rigbench.profiles.push import PushRefused
 from rigbench.recordings.recording import RecordingError
@@ -214,6 +215,12 @@ class _Run:
                 raise StepAbort("guard" if ev.kind == "reset" else "lost",
                              f"link {ev.kind}: the board restarted or went away")
 
+    def _kill(self, r) -> None:
+        """The kill, confirmed by the board or escalated (rigbench.link.killing)."""
+        outcome = self.link.kill_confirmed(reason="sequence")
+        if outcome.escalated:
+            r.detail = f"{r.detail}; {CUT_POWER}" if r.detail else CUT_POWER
+
     def _finish(self, stop: StepAbort | None) -> None:
         r, link = self.result, self.link
         if stop is not None:
@@ -229,16 +236,16 @@ class _Run:
                     link.disarm()
                 else:
                     r.abort_action = "kill"
-                    link.kill()
+                    self._kill(r)
             motor = motor_state(link)
             if motor not in ("off", "tripped"):
                 r.abort_action = "kill"
-                link.kill()
+                self._kill(r)
                 motor = motor_state(link)
         except (LinkError, BoardRefused):
             try:
                 r.abort_action = "kill"
-                link.kill()
+                self._kill(r)
             except LinkError:
                 pass  # the link is gone: the board's watchdog turns the motor off
             motor = motor_state(link)

@@ -1,7 +1,8 @@
 """Steps of a scripted test sequence as typed dataclasses, and the unrolling of repeats.
 
 The step vocabulary (sequences/README.md) is fixed: ``push``, ``arm``, ``hold``, ``wait``,
-``relay``, ``sweep``, ``record``, ``set``, ``check``, ``disarm`` and ``repeat``. Reading
+``relay``, ``sweep``, ``record``, ``set``, ``check``, ``disarm``, ``clear`` and
+``repeat``. Reading
 and checking files is rigbench.sequences.file; running a sequence is the runner's business.
 ``expand`` gives the steps in run order with repeats unrolled, values substituted and the
 guards in force filled in: what a dry run prints and what a runner executes.
@@ -20,7 +21,7 @@ from rigbench.profiles.model import Profile
 from rigbench.wire.describe import format_value
 
 __all__ = ["METRICS", "OPS", "GUARD_KEYS", "MAX_STEPS", "Guards", "Settled", "Step", "PushStep",
-           "ArmStep", "HoldStep", "DisarmStep", "WaitStep", "RelayStep", "SweepStep",
+           "ArmStep", "HoldStep", "DisarmStep", "ClearStep", "WaitStep", "RelayStep", "SweepStep",
            "RecordStep", "SetStep", "CheckStep", "RepeatStep", "Sequence", "expand",
            "count_steps", "describe_step"]
 
@@ -114,6 +115,13 @@ class HoldStep(Step):
 @dataclass(frozen=True, kw_only=True)
 class DisarmStep(Step):
     kind: str = "disarm"
+
+
+@dataclass(frozen=True, kw_only=True)
+class ClearStep(Step):
+    """Clear a latched fault (PROTOCOL.md §7.3): the motor goes to off, never starts."""
+
+    kind: str = "clear"
 
 
 @dataclass(frozen=True, kw_only=True)

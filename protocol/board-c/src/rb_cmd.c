@@ -590,6 +590,8 @@ static void bad(rb_ctx *c, const char *code, int reply, const char *text)
     uint16_t seq;
     c->b->rx_err++;
     c->b->last_rx_error = code;
+    if (rb_token_is(c->body, &c->t[0], "kill"))
+        rb_trip_cause(c->b, "kill", 0, 0.0);     /* §7.1: a kill that fails to parse stops */
     if (reply && all_digits_seq(c, &seq)) {
         rb_line *l = &c->b->out_reply;
         refuse(c, reply == 2 ? "unknown_verb" : "bad_args", "%s", text);
@@ -739,8 +741,9 @@ void rb_command(rb_board *b, const char *body, size_t n)
             return;
         }
     }
-    /* §4.2: the same sequence number and the same body as the last command answered */
-    if (b->has_last && b->last_seq == c.seq && strlen(b->last_body) == n &&
+    /* §4.2: the same sequence number and the same body as the last command answered;
+     * a `hello` is never a resend (a restarted host sends the same bytes again) */
+    if (strcmp(verb, "hello") != 0 && b->has_last && b->last_seq == c.seq && strlen(b->last_body) == n &&
         memcmp(b->last_body, body, n) == 0) {
         /* the stored reply is already a frame: queue it as it is */
         if (b->last_line_len > 0 && b->tx_used + b->last_line_len <= RB_TX_SIZE) {
@@ -780,7 +783,7 @@ void rb_command(rb_board *b, const char *body, size_t n)
     memcpy(b->last_body, body, n);
     b->last_body[n] = '\0';
     b->last_seq = c.seq;
-    b->has_last = 1;
+    b->has_last = strcmp(verb, "hello") != 0;   /* §4.2: a hello clears the resend memory */
     b->last_line_len = (uint16_t)rb_frame((char *)b->last_line, sizeof b->last_line,
                                           c.reply->s, c.reply->n);
     rb_tx_put(b, c.reply, RB_TX_REPLY);

@@ -12,7 +12,7 @@ What it implements (PROTOCOL.md section beside the code):
 - §4 every command gets exactly one reply; a command repeated with the sequence number and
   the body text of the last answered one gets that reply again and is not acted on (§4.2).
   A repeated number with another body is taken as a new command (a new host session may
-  restart its numbering). Every ``err`` text passes through ``refusal_text`` (the one
+  restart its numbering); a ``hello`` is never a resend and clears that memory. Every ``err`` text passes through ``refusal_text`` (the one
   place that makes it legal in a frame body, §2).
 - §5 discovery from the rig's declaration (rigbench.rig.firmware.boards); atomic ``set``; ``save`` /
   ``restore`` through ``NvStore``; the board boots with its stored values.
@@ -155,6 +155,8 @@ class SimBoard(BoardCommands):
                 self._hb_ref_us = self.time_us
             elif kind is BadFrame:
                 self.rx_err += 1
+                if ev.code in _MESSAGE_ERRORS and ev.raw.split(b" ", 1)[0] == b"kill":
+                    self._trip("kill")                  # §7.1: a kill that fails to parse stops
                 self._answer_bad(ev)
             else:
                 self._command(ev, body)
@@ -225,8 +227,13 @@ class SimBoard(BoardCommands):
 
     def _telemetry(self) -> None:
         values = tuple(self.signals[s.name] for s in self.rig.signals)
-        frame = self._encode(m.Telemetry(self.frame, self.time_us, values))
+        try:
+            frame = self._encode(m.Telemetry(self.frame, self.time_us, values))
+        except LocalProtocolError:                   # §3: a value not finite cannot be sent
+            frame = None
         self.frame = (self.frame + 1) % U32          # counts dropped frames too (§6.1)
+        if frame is None:
+            return
         if not self.tx.put(frame, "telemetry"):
             self.drops += 1
 
@@ -348,7 +355,7 @@ class SimBoard(BoardCommands):
         parsed command) compares the canonical text instead."""
         body = m.format_body(cmd) if body is None else body
         if self._last_cmd is not None and cmd.seq == self._last_cmd.seq \
-                and body == self._last_body:        # §4.2: resend, do not act again
+                and body == self._last_body and cmd.VERB != "hello":   # §4.2: resend
             self.tx.put(self._last_reply, "reply")
             return
         handler = getattr(self, "_on_" + cmd.VERB)
@@ -361,7 +368,10 @@ class SimBoard(BoardCommands):
             data = self._encode(reply)
         except LocalProtocolError:      # e.g. a `get` of many long names (§2: 200 bytes)
             data = self._encode(m.Err(cmd.seq, "bad_args", REPLY_TOO_LONG + "ask for fewer"))
-        self._last_cmd, self._last_body, self._last_reply = cmd, body, data
+        if cmd.VERB == "hello":          # §4.2: a hello clears the resend memory
+            self._last_cmd, self._last_body, self._last_reply = None, "", b""
+        else:
+            self._last_cmd, self._last_body, self._last_reply = cmd, body, data
         self.tx.put(data, "reply")
 
 
