@@ -159,6 +159,7 @@ def test_a_kill_that_cannot_be_sent_is_logged(open_sim, monkeypatch, caplog):
         with Experiment(link, name="stall", guards=Guards(stale_s=0.3)) as exp:
             exp.hold()
             monkeypatch.setattr(link, "kill", gone)
+            monkeypatch.setattr(link, "kill_confirmed", lambda **kw: gone())
             exp.wait(10.0)
     assert exp.result.stopped_by == "stale"
     assert any("kill not sent" in r.getMessage() for r in caplog.records)

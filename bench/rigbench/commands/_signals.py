@@ -2,8 +2,6 @@
 first, from the signal handler, then the command unwinds (KeyboardInterrupt) through the
 experiment's own clean-up. A software kill is not an emergency stop: the hardware cut-off
 stays the real one.
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations

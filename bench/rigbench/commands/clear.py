@@ -1,22 +1,20 @@
 """``rigbench clear``: clear the board's latched fault (after a kill or a trip) and report
 the motor state. Clearing never starts the motor: it leaves it off (PROTOCOL.md §7.3) and a
 new deliberate ``arm`` is needed before anything moves. Check the rig first.
-
-Must not import Textual or rigbench.ui.
 """
 
 from __future__ import annotations
 
 from rigbench.base.stops import EXIT_CHECK, EXIT_LINK  # noqa: F401
 from rigbench.commands._common import (
-    CommandError, add_json_option, add_port_option, open_link, print_json,
+    CommandError, add_json_option, add_port_option, help_text, open_link, print_json,
 )
 from rigbench.link import LinkError
 
 
 def add_parser(subparsers):
     p = subparsers.add_parser("clear", help="clear a latched fault (never starts the motor)",
-                              description=__doc__.split("\n\n")[0])
+                              description=help_text(__doc__))
     add_port_option(p)
     add_json_option(p)
     return p

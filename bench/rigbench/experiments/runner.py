@@ -267,8 +267,10 @@ class Experiment:
             # a kill the board does not confirm escalates (framed kill, disarm, heartbeat
             # stopped for its watchdog: rigbench.link.killing)
             outcome = self.link.kill_confirmed(reason=f"guard:{self._stop[0]}")
-        except LinkError:
+        except LinkError as exc:
             outcome = None  # nothing left to send it on; the board's watchdog stops the motor
+            log.warning("experiment %r: kill not sent (%s); relying on the board's watchdog",
+                        self.name, exc)
         self._marks.append((self.link.now(), "kill"))
         if outcome is not None and outcome.escalated:
             self._marks.append((self.link.now(), "kill unconfirmed: " + ", ".join(outcome.steps)))

@@ -9,8 +9,6 @@ still reports nothing stopped the heartbeat is stopped so that the board's watch
 the motor within its ``watchdog_ms`` (§7.2); the link waits that long for the trip. Every
 step is logged as a link event; the outcome (a ``KillOutcome``) says whether the board
 confirmed and whether it took escalation, so a command can tell the user to cut power.
-
-Must not import rigbench.rig, rigbench.ui or domain modules.
 """
 
 from __future__ import annotations

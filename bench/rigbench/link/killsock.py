@@ -15,8 +15,6 @@ and passes a kill request on to its link at once.
 The folder is ``$XDG_RUNTIME_DIR/rigbench`` or ``<tmp>/rigbench-<uid>``, mode 0700: only
 the same user can ask. POSIX only (``socket.AF_UNIX``); elsewhere the service does not
 start and ``request_kill`` returns None.
-
-Must not import rigbench.rig, rigbench.ui or domain modules.
 """
 
 from __future__ import annotations
