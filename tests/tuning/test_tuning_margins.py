@@ -195,8 +195,9 @@ def test_simulate_disturbance_matches_python_control_discrete():
     cd = pid_z(kp, ki, kd, tf, h) * control.tf([1.0], [1.0, 0.0], h)
     ref = control.forced_response(control.feedback(gd, cd), r.t_s, r.disturbance)
     assert np.allclose(r.y, ref.outputs, atol=1e-9)
-    # the controller output is −C·y (reverse acting, set-point 0)
-    ref_u = control.forced_response(-cd, r.t_s, r.y)
+    # u is the command as the board computes it, −C·y (reverse acting, set-point 0); the
+    # sample of delay lies between it and the plant
+    ref_u = control.forced_response(-pid_z(kp, ki, kd, tf, h), r.t_s, r.y)
     assert np.allclose(r.u, ref_u.outputs, atol=1e-9)
 
 
