@@ -58,6 +58,21 @@ def _hidden_at_one(a, b, c, d) -> int:
     return n
 
 
+def _balance(a, b, c):
+    """A diagonal change of state coordinates (and one scale for input and output) that
+    evens out the rows and columns of [[A, B], [C, 0]]: a loop assembled from a plant
+    realised from polynomials in s and a PID with 1/h terms can mix entries of 1e10 and
+    1e-8, and a solve with such an A loses digits the transfer function does not need
+    to lose. The transfer function is unchanged."""
+    n = a.shape[0]
+    if not n:
+        return a, b, c
+    big = np.block([[a, b], [c, np.zeros((1, 1))]])
+    _, (t, _) = linalg.matrix_balance(big, permute=False, separate=True)
+    tx, tio = t[:n], t[n]
+    return a * (tx[None, :] / tx[:, None]), b * (tio / tx[:, None]), c * (tx[None, :] / tio)
+
+
 def _deflate_at_one(a, b, c, d):
     """Take the hidden modes at z = 1 out (module docstring), one at a time: in an
     orthonormal basis whose first vector is the mode's left eigenvector (nothing drives it)
@@ -104,6 +119,7 @@ class SampledLoop:
         b = np.asarray(b, dtype=float).reshape(n, 1)
         c = np.asarray(c, dtype=float).reshape(1, n)
         d = float(np.asarray(d).reshape(-1)[0])
+        a, b, c = _balance(a, b, c)
         a, b, c, drift = _deflate_at_one(a, b, c, d)
         return cls(a, b, c, d, float(h_s), int(delay_samples), drift, description)
 

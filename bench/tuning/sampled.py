@@ -266,10 +266,15 @@ class FrequencyEvaluator:
         self.n = a.shape[0] if a.size else 0
         self.d = float(np.asarray(d, dtype=float).reshape(-1)[0])
         if self.n:
+            # a diagonal similarity first (badly scaled realisations lose digits in the
+            # solve), then an orthogonal one to Hessenberg form
+            a, (t, _) = linalg.matrix_balance(a, permute=False, separate=True)
+            b = np.asarray(b, dtype=float).reshape(self.n) / t
+            c = np.asarray(c, dtype=float).reshape(self.n) * t
             hm, q = linalg.hessenberg(a, calc_q=True)
             self.h = np.triu(hm, -1)
-            self.b = q.T @ np.asarray(b, dtype=float).reshape(self.n)
-            self.c = np.asarray(c, dtype=float).reshape(self.n) @ q
+            self.b = q.T @ b
+            self.c = c @ q
 
     def __call__(self, z) -> np.ndarray:
         z = np.atleast_1d(np.asarray(z, dtype=complex))
