@@ -18,7 +18,10 @@ matrices of a state-space model keep the information: Φ = e^{Ah} is exact to ro
   w[k] for the rest, so x[k+1] = Φx + Γ0·w[k] + Γ1·w[k−1] with
   Γ0 = ∫0^{h−f} e^{Av}dv·B, Γ1 = e^{A(h−f)}·∫0^f e^{Av}dv·B, and w[k−1] is one more state.
   Every integral comes from one matrix exponential of a block matrix (Van Loan 1978,
-  "Computing integrals involving the matrix exponential", IEEE TAC 23(3)).
+  "Computing integrals involving the matrix exponential", IEEE TAC 23(3)). A direct
+  feed-through D is read as the board reads it, by the sample taken just before the
+  period's command is written: y[k] = C·x[k] + D·u[k − m − 1] (so a biproper plant never
+  closes an algebraic loop).
 - :func:`board_pid`: the PID of bench/rig/firmware_control.py and
   protocol/board-c/src/rb_control.c (PROTOCOL.md §5.4) as a system from (measurement,
   set-point[, rate]) to the command, linear part only (output limit and anti-windup
@@ -164,7 +167,10 @@ def sample_ss(a, b, c, d, h_s: float, *, delays_s=None, inputs=None, outputs=Non
     frac = delays_s - whole * h_s
     frac[frac < 1e-9 * h_s] = 0.0
     phi, gam = _van_loan(a, b, h_s)
-    fr = [j for j in range(m) if frac[j] > 0]
+    # an input with a fraction of a sample of dead time, or a direct feed-through, needs
+    # w_j[k−1] as a state: the board samples y at t_k before it writes the command of
+    # period k, so a feed-through is seen one period late (y = Cx + D·w[k−1])
+    fr = [j for j in range(m) if frac[j] > 0 or np.any(d[:, j] != 0)]
     nx = n + len(fr)
     ad = np.zeros((nx, nx))
     bd = np.zeros((nx, m))
@@ -172,10 +178,11 @@ def sample_ss(a, b, c, d, h_s: float, *, delays_s=None, inputs=None, outputs=Non
     dd = d.copy()
     ad[:n, :n], bd[:n, :], cd[:, :n] = phi, gam, c
     for i, j in enumerate(fr):
-        e_hf, g0 = _van_loan(a, b[:, [j]], h_s - frac[j])
-        g1 = e_hf @ _van_loan(a, b[:, [j]], frac[j])[1]
-        bd[:n, j] = g0[:, 0]
-        ad[:n, n + i] = g1[:, 0]
+        if frac[j] > 0:
+            e_hf, g0 = _van_loan(a, b[:, [j]], h_s - frac[j])
+            g1 = e_hf @ _van_loan(a, b[:, [j]], frac[j])[1]
+            bd[:n, j] = g0[:, 0]
+            ad[:n, n + i] = g1[:, 0]
         bd[n + i, j] = 1.0               # the state holds w_j[k−1]
         cd[:, n + i], dd[:, j] = d[:, j], 0.0   # y sees u(t_k − τ) = w_j[k−1]
     return SampledSystem(ad, bd, cd, dd, h_s, inputs, tuple(outputs), tuple(whole))

@@ -108,8 +108,11 @@ def check(m, ref, tol=1e-3):
     assert m.ms == pytest.approx(ref.ms, rel=tol)
 
 
+# The reference's eigenvalues of loops with 1000 or more delay registers take seconds each:
+# e^{−3s}/(8s+1)² only at 500 Hz (1500 samples), e^{−0.5s}/(s+1)³ at 2 kHz only with ZN.
 CASES = [(p, rate, rule) for p in PLANTS for rate in RATES_HZ for rule in ("ZN", "TL", "AMIGO")
-         if not (p == "dead3-lag8x2" and rate > 500.0)]   # 1500 samples of dead time at 500 Hz
+         if not (p == "dead3-lag8x2" and rate > 500.0)
+         and not (p == "dead0.5-lag3" and rate > 1000.0 and rule != "ZN")]
 
 
 @pytest.mark.parametrize("plant, rate_hz, rule", CASES)
