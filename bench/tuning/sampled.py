@@ -33,9 +33,10 @@ matrices of a state-space model keep the information: Φ = e^{Ah} is exact to ro
   board reads its sensors, runs the loops and writes the output in one step (rb_step;
   SimBoard.step holds it over [t_k, t_k+1)). The time the board takes between reading and
   writing is a dead time to add to the plant's (``latency_s`` of LoopController).
-- :class:`FrequencyEvaluator`: C(zI − A)^{-1}B + D at many z after one reduction of A to
-  Hessenberg form, each z solved by elimination along the subdiagonal (Laub 1981,
-  "Efficient multivariable frequency response computations", IEEE TAC 26(2)).
+- :class:`FrequencyEvaluator`: C(zI − A)^{-1}B + D at many z after one unitary reduction
+  of A to triangular (complex Schur) form, each z one back substitution — the idea of
+  Laub (1981), "Efficient multivariable frequency response computations", IEEE TAC 26(2),
+  who uses Hessenberg form; never a polynomial in z.
 
 Must not import: bench.link, bench.ui, bench.rig, serial, textual, control.
 """
@@ -266,22 +267,24 @@ def board_pid(kp: float, ki: float, kd: float, tf_s: float, h_s: float, *,
 class FrequencyEvaluator:
     """G(z) = C(zI − A)^{-1}B + D of a single-input single-output system at many z."""
 
-    CHUNK = 2048
+    CHUNK = 4096
 
     def __init__(self, a, b, c, d):
         a = np.atleast_2d(np.asarray(a, dtype=float))
         self.n = a.shape[0] if a.size else 0
         self.d = float(np.asarray(d, dtype=float).reshape(-1)[0])
         if self.n:
-            # a diagonal similarity first (badly scaled realisations lose digits in the
-            # solve), then an orthogonal one to Hessenberg form
+            # a diagonal similarity first (badly scaled realisations lose digits), then a
+            # unitary one to the complex Schur form T = Zᴴ·A·Z, upper triangular: each z
+            # is one back substitution, backward stable without pivoting
             a, (t, _) = linalg.matrix_balance(a, permute=False, separate=True)
             b = np.asarray(b, dtype=float).reshape(self.n) / t
             c = np.asarray(c, dtype=float).reshape(self.n) * t
-            hm, q = linalg.hessenberg(a, calc_q=True)
-            self.h = np.triu(hm, -1)
-            self.b = q.T @ b
-            self.c = c @ q
+            tm, zm = linalg.schur(a, output="complex")
+            self.t = np.triu(tm)
+            self.diag = np.diag(tm).copy()
+            self.b = zm.conj().T @ b
+            self.c = c @ zm
 
     def __call__(self, z) -> np.ndarray:
         z = np.atleast_1d(np.asarray(z, dtype=complex))
@@ -295,26 +298,13 @@ class FrequencyEvaluator:
         return out
 
     def _solve(self, z: np.ndarray) -> np.ndarray:
-        n, rng = self.n, np.arange(self.n)
-        m = np.broadcast_to(-self.h, (len(z), n, n)).astype(complex)
-        m[:, rng, rng] += z[:, None]
-        r = np.broadcast_to(self.b, (len(z), n)).astype(complex)
-        with np.errstate(divide="ignore", invalid="ignore"):
-            for j in range(n - 1):
-                # partial pivoting between rows j and j+1 (the only nonzeros below j)
-                sw = np.abs(m[:, j + 1, j]) > np.abs(m[:, j, j])
-                if sw.any():
-                    top = m[sw, j, j:].copy()
-                    m[sw, j, j:] = m[sw, j + 1, j:]
-                    m[sw, j + 1, j:] = top
-                    rt = r[sw, j].copy()
-                    r[sw, j] = r[sw, j + 1]
-                    r[sw, j + 1] = rt
-                f = m[:, j + 1, j] / m[:, j, j]
-                m[:, j + 1, j:] -= f[:, None] * m[:, j, j:]
-                r[:, j + 1] -= f * r[:, j]
-            x = np.empty((len(z), n), dtype=complex)
+        # products written out as broadcasts: BLAS calls this small cost more than the sums
+        n = self.n
+        x = np.empty((n, len(z)), dtype=complex)
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
             for i in range(n - 1, -1, -1):
-                acc = r[:, i] - np.einsum("ij,ij->i", m[:, i, i + 1:], x[:, i + 1:])
-                x[:, i] = acc / m[:, i, i]
-        return x @ self.c + self.d
+                acc = self.b[i]
+                if i < n - 1:
+                    acc = acc + (self.t[i, i + 1:, None] * x[i + 1:]).sum(axis=0)
+                x[i] = acc / (z - self.diag[i])
+            return (self.c[:, None] * x).sum(axis=0) + self.d

@@ -195,8 +195,11 @@ def ref_margins(loop: RefLoop, *, lo: float | None = None, n_log: int = 3000,
         v = loop.response(x)[0]
         if v.real < 0:
             crit.append(1.0 / abs(v))
-    for z, val in ((1.0, lw[0]), (-1.0, lw[-1])):
-        if np.isfinite(val) and val.real < 0 and abs(val.imag) < 1e-6 * abs(val):
+    # the ends ω = 0 and ω = π/h, where L is real: ω = 0 only when L is flat there (no
+    # integrator, whose |L| grows without bound)
+    flat = abs(abs(loop.response(10 * w[0])[0]) / abs(lw[0]) - 1) < 1e-3
+    for val, ok in ((lw[0], flat), (lw[-1], True)):
+        if ok and np.isfinite(val) and val.real < 0 and abs(val.imag) < 1e-6 * abs(val):
             crit.append(1.0 / abs(val.real))
     stable = loop.stable()
     sens = np.abs(1.0 + lw)
