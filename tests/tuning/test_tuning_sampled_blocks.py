@@ -287,3 +287,28 @@ def test_close_loops_refuses_bad_wiring():
     with pytest.raises(ValueError, match="algebraic loop"):
         close_loops([p, c, a, b], "u")
     assert shift_register(0, h).nstates == 0
+
+
+def test_nyquist_count_on_an_open_loop_unstable_plant():
+    # The speed-drive balance loop with 6 ms of dead time at 500 Hz: one open-loop pole
+    # outside the unit circle (P = 1), a lower and an upper gain margin. Gains 2% either
+    # side of each: the state-space Nyquist count, python-control's closed-loop
+    # eigenvalues (its one eigenvalue at z = 1, the wheel-speed drift, set aside) and the
+    # expected verdict agree.
+    h = 0.002
+    num, den = [-C, 0.0], np.polymul([0.008, 1.0], [1.0, 0.0, -A * A])
+    plant = PlantModel(num, den, 0.006)
+    base = margins(LoopController(40.0, 2500.0, 0.5, 0.004, h_s=h, direct_acting=True), plant)
+    assert base.stable and base.gain_margin_lower and base.gain_margin_upper
+    for edge, inside in ((base.gain_margin_lower, 1.02), (base.gain_margin_upper, 0.98)):
+        for factor, stable in ((inside, True), (1 / inside, False)):
+            g = edge * factor
+            ctrl = LoopController(40.0 * g, 2500.0 * g, 0.5 * g, 0.004, h_s=h, direct_acting=True)
+            lt = loop_transfer(ctrl, plant)
+            assert np.sum(np.abs(lt.open_loop_poles()) > 1) == 1
+            sp = _Split(lt)
+            count = _nyquist(lt, sp, grid(sp, *_range(lt, sp))[0])
+            ref = pid_loop(num, den, 0.006, ctrl.kp, ctrl.ki, ctrl.kd, 0.004, h, direct=True)
+            ref_poles = ref.closed_loop_poles()
+            ref_stable = bool(np.all(np.abs(ref_poles[np.abs(ref_poles - 1) > 1e-8]) < 1))
+            assert (count == 0) == ref_stable == stable == margins(ctrl, plant).stable
