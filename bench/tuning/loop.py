@@ -32,14 +32,14 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg, signal
+from scipy import signal
 
 from .interconnect import SampledLoop, close_loops, loop_from_state_feedback
 from .sampled import board_pid, sample_ss, sample_tf
 
 __all__ = ["PlantModel", "LoopController", "LoopTransfer", "SampledLoop", "loop_transfer",
-           "discretise_plant", "state_feedback_loop", "simulate_disturbance",
-           "DisturbanceResponse", "as_plant", "sampled_blocks"]
+           "state_feedback_loop", "simulate_disturbance", "DisturbanceResponse", "as_plant",
+           "sampled_blocks"]
 
 
 def _trim(p) -> np.ndarray:
@@ -151,36 +151,6 @@ class LoopTransfer:
             return np.polyval(self.num, s) / np.polyval(self.den, s) * np.exp(-s * self.delay_s)
         z = np.exp(1j * w * self.h_s)
         return np.polyval(self.num, z) / np.polyval(self.den, z)
-
-
-def _zoh_integrals(a, b, t):
-    """(e^{At}, ∫0^t e^{Av} dv B) by one matrix exponential."""
-    n, m = b.shape
-    big = np.zeros((n + m, n + m))
-    big[:n, :n], big[:n, n:] = a * t, b * t
-    e = linalg.expm(big)
-    return e[:n, :n], e[:n, n:]
-
-
-def discretise_plant(plant: PlantModel, h_s: float):
-    """Exact ZOH state-space of a plant with dead time τ = m·h + f, 0 <= f < h.
-
-    Returns (phi, gamma0, gamma1, c, d, m, frac) with
-    x[k+1] = phi x[k] + gamma0 u[k−m] + gamma1 u[k−m−1],
-    y[k] = c x[k] + d u[k − m − (1 if frac > 0 else 0)].
-    """
-    a, b, c, d = signal.tf2ss(plant.num, plant.den)
-    m = int(np.floor(plant.delay_s / h_s + 1e-9))
-    f = plant.delay_s - m * h_s
-    if f < 1e-9 * h_s:
-        f = 0.0
-    phi, gam = _zoh_integrals(a, b, h_s)
-    if f == 0.0:
-        g0, g1 = gam, np.zeros_like(gam)
-    else:
-        e_hf, g0 = _zoh_integrals(a, b, h_s - f)
-        g1 = e_hf @ _zoh_integrals(a, b, f)[1]
-    return phi, g0, g1, c, d, m, f
 
 
 def _cancel(num, den, root: float):
