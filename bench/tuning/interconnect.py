@@ -33,7 +33,7 @@ from dataclasses import dataclass
 import numpy as np
 from scipy import linalg
 
-from .sampled import FrequencyEvaluator, SampledSystem, with_delays
+from .sampled import FrequencyEvaluator, with_delays
 
 __all__ = ["SampledLoop", "close_loops", "loop_from_state_feedback"]
 

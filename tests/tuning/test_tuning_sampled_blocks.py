@@ -236,27 +236,24 @@ def test_nyquist_count_and_eigenvalues_agree_at_the_gain_margin(factor):
 
 
 def test_state_feedback_loop_matches_python_control():
-    # A sampled double integrator with one sample of command delay under u = −K·x; the
-    # loop broken at the plant input is L = K(zI − A)^{-1}B (python-control state space).
+    # A sampled double integrator with one sample of command delay, x = (position,
+    # velocity, u[k−1]), under u = −K·x; the loop broken at the plant input is
+    # L = K(zI − A)^{-1}B (python-control state space, evaluated per frequency).
+    from bench.tuning.margins import loop_margins
+
     h = 0.002
     a = np.array([[1.0, h, h * h / 2], [0.0, 1.0, h], [0.0, 0.0, 0.0]])
-    a[0, 2], a[1, 2] = h * h / 2, h                     # x[k+1] = Φx + Γ·u[k−1]
-    a[0, 1] = h
     b = np.array([0.0, 0.0, 1.0])
     k = np.array([400.0, 40.0, 0.3])
-    m = margins_of = None
     lt = state_feedback_loop(a, b, k, h)
-    ref = RefLoop(control.ss(a, b.reshape(-1, 1), k.reshape(1, -1), [[0.0]], h), 0, h)
     assert np.allclose(np.sort_complex(np.linalg.eigvals(lt.closed_loop_matrix())),
                        np.sort_complex(np.linalg.eigvals(a - np.outer(b, k))), atol=1e-12)
-    from bench.tuning.margins import loop_margins
-    m = loop_margins(lt)
-    rm = ref_margins(ref)
+    ref = RefLoop(control.ss(a, b.reshape(-1, 1), k.reshape(1, -1), [[0.0]], h), 0, h)
+    m, rm = loop_margins(lt), ref_margins(ref)
     assert m.stable == rm.stable
     assert m.phase_margin_deg == pytest.approx(rm.pm_deg, rel=1e-4)
     assert m.gain_margin_upper == pytest.approx(rm.gm_upper, rel=1e-4)
     assert m.ms == pytest.approx(rm.ms, rel=1e-4)
-    del margins_of
 
 
 def test_missing_margins_say_why():
