@@ -6,8 +6,8 @@ import control
 import numpy as np
 import pytest
 
-from rigbench.tuning.loop import (LoopController, PlantModel, discretise_plant, loop_transfer,
-                               simulate_disturbance)
+from rigbench.tuning.loop import LoopController, PlantModel, loop_transfer, simulate_disturbance
+from rigbench.tuning.sampled import sample_tf
 from rigbench.tuning.margins import margins
 
 LAG3 = PlantModel([1.0], [1.0, 3.0, 3.0, 1.0])
@@ -93,14 +93,14 @@ def test_fractional_dead_time_discretisation_is_exact():
     # Step response of e^{-τs}/(s+1) sampled at h with τ = 2.4h: y(t_k) = 1 − e^{−(t_k − τ)}
     # for t_k >= τ (analytic).
     h, tau = 0.1, 0.24
-    phi, g0, g1, c, d, m, f = discretise_plant(PlantModel([1.0], [1.0, 1.0], tau), h)
-    assert m == 2 and f == pytest.approx(0.04)
-    x = np.zeros(phi.shape[0])
+    p = sample_tf([1.0], [1.0, 1.0], h, delay_s=tau)
+    assert p.input_delays == (2,)
+    x = np.zeros(p.n_states)
     ys = []
     for k in range(30):
-        ys.append(float(c[0] @ x))
-        u_m, u_m1 = (1.0 if k - m >= 0 else 0.0), (1.0 if k - m - 1 >= 0 else 0.0)
-        x = phi @ x + g0[:, 0] * u_m + g1[:, 0] * u_m1
+        u = 1.0 if k - 2 >= 0 else 0.0          # the input after the whole-sample delay
+        ys.append(float(p.c[0] @ x + p.d[0, 0] * u))
+        x = p.a @ x + p.b[:, 0] * u
     t = np.arange(30) * h
     expect = np.where(t >= tau, 1 - np.exp(-(t - tau)), 0.0)
     assert np.allclose(ys, expect, atol=1e-12)
@@ -195,8 +195,9 @@ def test_simulate_disturbance_matches_python_control_discrete():
     cd = pid_z(kp, ki, kd, tf, h) * control.tf([1.0], [1.0, 0.0], h)
     ref = control.forced_response(control.feedback(gd, cd), r.t_s, r.disturbance)
     assert np.allclose(r.y, ref.outputs, atol=1e-9)
-    # the controller output is −C·y (reverse acting, set-point 0)
-    ref_u = control.forced_response(-cd, r.t_s, r.y)
+    # u is the command as the board computes it, −C·y (reverse acting, set-point 0); the
+    # sample of delay lies between it and the plant
+    ref_u = control.forced_response(-pid_z(kp, ki, kd, tf, h), r.t_s, r.y)
     assert np.allclose(r.u, ref_u.outputs, atol=1e-9)
 
 

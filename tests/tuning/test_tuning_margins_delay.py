@@ -9,7 +9,7 @@ import numpy as np
 import pytest
 
 from rigbench.tuning.loop import LoopController, PlantModel, loop_transfer
-from rigbench.tuning.margins import ROOTS_MAX_DEGREE, margins
+from rigbench.tuning.margins import EIG_MAX_STATES, margins
 
 pytestmark = pytest.mark.filterwarnings("ignore:stability_margins:UserWarning")
 
@@ -17,23 +17,27 @@ H, K_DELAY, KI = 0.002, 500, 0.5
 
 
 def integrator_with_delay(ki=KI):
-    """I-only discrete control of a pure dead time of K_DELAY samples:
-    L(z) = ki·h·z/(z − 1)·z^−K = ki·h/(z − 1)·z^−(K−1)."""
+    """I-only discrete control of a pure dead time of K_DELAY samples. The board reads its
+    input just before it writes the period's command, so a plant output that follows the
+    input without lag (this pure dead time) shows the command K + 1 samples later
+    (bench/rigbench/rig/plants/tfplant.py reads the same left limit): L(z) = ki·h·z/(z − 1)·z^−(K+1)
+    = ki·h/(z − 1)·z^−K."""
     return LoopController(0.0, ki, h_s=H), PlantModel([1.0], [1.0], K_DELAY * H)
 
 
 def test_discrete_integrator_with_long_dead_time_is_exact():
     # Analytic: z − 1 = 2j·sin(ωh/2)·e^{jωh/2}, so |L| = ki·h/(2 sin(ωh/2)) and
-    # arg L = −π/2 − ωh·(K − 1/2). Crossover sin(ωc·h/2) = ki·h/2; phase crossover
-    # ω·h·(K − 1/2) = π/2; GM = 2 sin(ω180·h/2)/(ki·h); PM = 90° − ωc·h·(K − 1/2).
+    # arg L = −π/2 − ωh·(K + 1/2). Crossover sin(ωc·h/2) = ki·h/2; phase crossover
+    # ω·h·(K + 1/2) = π/2; GM = 2 sin(ω180·h/2)/(ki·h); PM = 90° − ωc·h·(K + 1/2).
     ctrl, plant = integrator_with_delay()
     m = margins(ctrl, plant)
-    assert len(loop_transfer(ctrl, plant).den) - 1 > ROOTS_MAX_DEGREE
+    lt = loop_transfer(ctrl, plant)
+    assert lt.n_states + lt.delay_samples > EIG_MAX_STATES
     assert m.method.startswith("Nyquist") and m.stable
     wc = 2 / H * math.asin(KI * H / 2)
-    w180 = math.pi / (2 * H * (K_DELAY - 0.5))
+    w180 = math.pi / (2 * H * (K_DELAY + 0.5))
     gm = 2 * math.sin(w180 * H / 2) / (KI * H)
-    pm = 90 - math.degrees(wc * H * (K_DELAY - 0.5))
+    pm = 90 - math.degrees(wc * H * (K_DELAY + 0.5))
     assert m.crossover_rad_s == pytest.approx(wc, rel=1e-9)
     assert m.phase_margin_deg == pytest.approx(pm, rel=1e-9)
     assert m.delay_margin_s == pytest.approx(math.radians(pm) / wc, rel=1e-9)
@@ -47,7 +51,7 @@ def test_discrete_integrator_with_long_dead_time_is_exact():
 def test_long_dead_time_peak_sensitivity_matches_a_dense_python_control_sweep():
     ctrl, plant = integrator_with_delay()
     m = margins(ctrl, plant)
-    loop = control.tf([KI * H], [1.0, -1.0] + [0.0] * (K_DELAY - 1), H)
+    loop = control.tf([KI * H], [1.0, -1.0] + [0.0] * K_DELAY, H)
     w = np.linspace(1e-3, math.pi / H, 400_000)
     ms_ref = float(np.max(1.0 / np.abs(1.0 + loop(np.exp(1j * w * H)))))
     assert m.ms == pytest.approx(ms_ref, rel=1e-4)
@@ -55,9 +59,10 @@ def test_long_dead_time_peak_sensitivity_matches_a_dense_python_control_sweep():
 
 @pytest.mark.parametrize("factor", [0.5, 0.95, 1.05, 2.0])
 def test_high_degree_discrete_stability_agrees_with_python_control_poles(factor):
-    # 1/(s+1)^3 under a sampled PI with 65 samples of dead time: degree ~70, decided by the
-    # Nyquist count; the closed-loop poles from python-control decide it independently.
-    h, delay_n, kp, ki = 0.05, 65, 0.3, 0.15
+    # 1/(s+1)^3 under a sampled PI with 130 samples of dead time: more states than
+    # EIG_MAX_STATES, decided by the Nyquist count; the closed-loop poles from
+    # python-control decide it independently.
+    h, delay_n, kp, ki = 0.05, 130, 0.3, 0.15
     plant = PlantModel([1.0], [1.0, 3.0, 3.0, 1.0], delay_n * h)
     base = margins(LoopController(kp, ki, h_s=h), plant)
     assert base.method.startswith("Nyquist") and base.stable

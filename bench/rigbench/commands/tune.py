@@ -58,6 +58,17 @@ def add_parser(subparsers):
     return p
 
 
+def _gm(m: dict, key: str, field: str) -> str:
+    """A gain margin cell: the number; ∞ for an upper margin no phase crossover limits;
+    '?' when it could not be computed; '–' otherwise (no lower limit, unstable loop)."""
+    if m.get(key) is not None:
+        return _num(m[key], ".3g")
+    why = (m.get("reasons") or {}).get(field, "")
+    if why.startswith("not computed"):
+        return "?"
+    return "∞" if why == "no phase crossover above 1" else "–"
+
+
 def _margins_doc(m) -> dict | None:
     if m is None:
         return None
@@ -65,7 +76,7 @@ def _margins_doc(m) -> dict | None:
             "gain_margin_db": m.gain_margin_upper_db, "gain_margin_lower": m.gain_margin_lower,
             "gain_margin_lower_db": m.gain_margin_lower_db,
             "phase_margin_deg": m.phase_margin_deg, "crossover_rad_s": m.crossover_rad_s,
-            "delay_margin_s": m.delay_margin_s, "ms": m.ms}
+            "delay_margin_s": m.delay_margin_s, "ms": m.ms, "reasons": dict(m.reasons)}
 
 
 def _proposal_doc(p, units: dict) -> dict | None:
@@ -179,7 +190,8 @@ def tune_text(doc: dict) -> str:
             if it.get("target_margin_deg"):
                 pm += f" ({it['target_margin_deg']:g})"
             rows.append([rank, it["rule"], _num(it["kp"]), _num(it["ki"]), _num(it["kd"]),
-                         _num(m.get("gain_margin"), ".3g"), _num(m.get("gain_margin_lower"), ".3g"),
+                         _gm(m, "gain_margin", "gain_margin_upper"),
+                         _gm(m, "gain_margin_lower", "gain_margin_lower"),
                          pm, _num(m.get("ms"), ".3g"), _num(resp.get("iae"), ".3g")])
         lines.append(table(rows))
         own = set(doc["gain_names"])

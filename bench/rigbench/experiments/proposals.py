@@ -20,11 +20,11 @@ units, for its sample time):
   wheel-speed terms).
 
 Predictions, for every proposal that applies and for the board's current gains:
-- margins (rigbench.tuning.margins) of the discrete controller at the board's sample time,
-  with the derivative filter the board declares (``dfilt=``, else ``<loop>_dfilt_s``), on the exact
-  zero-order-hold model, however long its dead time (margins splits the dead time off
-  and counts stability by the Nyquist criterion, so hundreds of samples cost
-  milliseconds); unstable loops get lower and upper gain margins;
+- margins (rigbench.tuning.margins) of the board's PID as it runs at its sample time, with
+  the derivative filter the board declares (``dfilt=``, else ``<loop>_dfilt_s``) and on its
+  rate signal when it declares one, on the exact zero-order-hold model in state space,
+  however long its dead time (the dead time is kept as an exact factor, so hundreds of
+  samples cost milliseconds); unstable loops get lower and upper gain margins;
 - a simulated disturbance on the model: a load step at the plant input of the relay's
   amplitude (stable loops), or an input pulse as large as the output's swing in the relay
   test and a quarter period long (unstable loops); metrics per docs/METHODS.md §5 with a band
@@ -147,12 +147,14 @@ class _Judge:
         self.h = run.board.dt_s if run.board else 0.002
         self.tf = ls.dfilt_s or 0.0
         self.limit = ls.output_limit
+        # the board's derivative reads the declared rate signal (a gyro) when there is one
+        self.rate_derivative = bool(ls.rate)
 
     def rate(self, item: Rated) -> None:
         if not item.applies or self.plant is None:
             return
         ctrl = LoopController(item.kp, item.ki, item.kd, tf_s=self.tf, h_s=self.h,
-                              direct_acting=self.direct)
+                              direct_acting=self.direct, rate_derivative=self.rate_derivative)
         try:
             item.margins = margins(ctrl, self.plant)
         except (ValueError, np.linalg.LinAlgError, ZeroDivisionError) as exc:

@@ -3,24 +3,26 @@
 - :class:`PlantModel`: continuous transfer function num(s)/den(s) (descending powers of s)
   times e^{−s·delay_s}, from controller output to measurement.
 - :class:`LoopController`: parallel PID C = kp + ki/s + kd·s/(1 + tf_s·s), continuous or
-  discrete. Discrete (``h_s`` given) it is the usual board implementation, stated here so
-  margins predict what the board runs:
-      I[k] = I[k−1] + ki·h·e[k]                        (backward Euler integral)
-      D[k] = (tf·D[k−1] + kd·(e[k] − e[k−1]))/(tf + h)  (backward Euler filtered derivative)
-      u[k] = kp·e[k] + I[k] + D[k], applied ``delay_samples`` samples later.
-  Derivative on the measurement instead of the error gives the same loop transfer.
-  ``direct_acting`` is the board's tilt-loop convention e = measurement − set-point (the
-  loop then sees −C·P); the default is e = set-point − measurement.
-- :class:`LoopTransfer`: L = num/den (in s, with e^{−s·delay_s}; or in z when ``h_s``).
-  A discrete loop uses the exact zero-order-hold equivalent of the plant, dead time
-  included (integer and fractional part; Åström & Wittenmark, Computer-Controlled Systems,
-  ch. 2), so its closed-loop poles are exact. Common factors at s = 0 (z = 1) between
-  controller and plant are cancelled: in the speed-drive balance loop that mode is the
-  wheel-speed drift, which the tilt loop neither sees nor controls (the outer loop does).
+  sampled. Sampled (``h_s`` given) it is the board's PID exactly as it runs
+  (bench/rigbench/rig/firmware/control.py, protocol/board-c/src/rb_control.c, PROTOCOL.md §5.4;
+  written out in rigbench.tuning.sampled): backward-Euler integral, derivative on the
+  measurement through a first-order filter (backward Euler), the command computed from
+  the samples at t_k applied at t_k. ``latency_s`` (the board's time from reading the
+  sensors to writing the output) and ``delay_samples`` (firmware that applies the
+  command whole periods later; 0 on rigbench boards) add to the plant's dead time.
+  ``rate_derivative``: the derivative term reads a rate sensor (a gyro) instead of the
+  sample difference. ``direct_acting`` is the board's action=direct, e = measurement −
+  set-point (the loop then sees −C·P); the default is e = set-point − measurement.
+- :func:`loop_transfer`: a continuous controller gives a :class:`LoopTransfer` (polynomials
+  in s, times e^{−s·delay_s}); a sampled one a rigbench.tuning.interconnect.SampledLoop in
+  state space (exact zero-order-hold plant with whole and fractional dead time; Åström &
+  Wittenmark, Computer-Controlled Systems, §2.3), broken at the plant input. Common
+  factors at s = 0 between a continuous controller and plant are cancelled; in a sampled
+  loop the same mode (the wheel-speed drift of the speed-drive balance loop, which the
+  tilt loop neither sees nor controls — the outer loop does) is taken out of the state
+  space and counted.
 - :func:`state_feedback_loop`: the loop broken at the plant input for u = −K·x.
 - :func:`simulate_disturbance`: step or pulse disturbance on the closed loop.
-
-Must not import: rigbench.link, rigbench.ui, rigbench.rig, serial, textual, control.
 """
 
 from __future__ import annotations
@@ -28,11 +30,14 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
-from scipy import linalg, signal
+from scipy import signal
 
-__all__ = ["PlantModel", "LoopController", "LoopTransfer", "loop_transfer",
-           "discretise_plant", "state_feedback_loop", "simulate_disturbance",
-           "DisturbanceResponse", "as_plant"]
+from .interconnect import SampledLoop, close_loops, loop_from_state_feedback
+from .sampled import board_pid, sample_ss, sample_tf
+
+__all__ = ["PlantModel", "LoopController", "LoopTransfer", "SampledLoop", "loop_transfer",
+           "state_feedback_loop", "simulate_disturbance", "DisturbanceResponse", "as_plant",
+           "sampled_blocks"]
 
 
 def _trim(p) -> np.ndarray:
@@ -83,17 +88,28 @@ class LoopController:
     kd: float = 0.0
     tf_s: float = 0.0               # derivative filter time constant
     h_s: float | None = None        # sample time; None = continuous
-    delay_samples: int = 0          # computational delay (discrete only)
+    delay_samples: int = 0          # whole periods from computing to applying (sampled only)
     direct_acting: bool = False     # e = measurement − set-point
+    latency_s: float = 0.0          # sensor read to output write (sampled only)
+    rate_derivative: bool = False   # derivative from a rate sensor (sampled only)
 
     def __post_init__(self):
-        if self.h_s is None and self.delay_samples:
-            raise ValueError("delay_samples needs a sample time h_s")
-        if (self.h_s is not None and self.h_s <= 0) or self.tf_s < 0 or self.delay_samples < 0:
-            raise ValueError("h_s > 0, tf_s >= 0, delay_samples >= 0")
+        if self.h_s is None and (self.delay_samples or self.latency_s or self.rate_derivative):
+            raise ValueError("delay_samples, latency_s and rate_derivative need a sample "
+                             "time h_s")
+        if (self.h_s is not None and self.h_s <= 0) or self.tf_s < 0 or self.delay_samples < 0 \
+                or self.latency_s < 0:
+            raise ValueError("h_s > 0, tf_s >= 0, delay_samples >= 0, latency_s >= 0")
+
+    @property
+    def added_delay_s(self) -> float:
+        """Dead time the board adds in front of the plant (latency and whole periods)."""
+        return self.latency_s + self.delay_samples * (self.h_s or 0.0)
 
     def rational(self) -> tuple[np.ndarray, np.ndarray]:
-        """C as num/den in s (continuous) or z (discrete), computational delay included."""
+        """C as num/den in s (continuous) or z (sampled, from the error, without the added
+        dead time). Low order, so well conditioned; the loop itself is built in state
+        space (rigbench.tuning.sampled.board_pid)."""
         n, d = np.array([self.kp]), np.array([1.0])
         h, tf = self.h_s, self.tf_s
         if h is None:
@@ -106,11 +122,10 @@ class LoopController:
                 n, d = _add(n, d, [self.ki * h, 0.0], [1.0, -1.0])
             if self.kd:
                 n, d = _add(n, d, [self.kd, -self.kd], [tf + h, -tf])
-            d = np.polymul(d, np.r_[1.0, np.zeros(self.delay_samples)])
         return _trim(n), _trim(d)
 
     def response(self, omega_rad_s) -> np.ndarray:
-        """C(jω) (C(e^{jωh}) when discrete), without the direct-acting sign."""
+        """C(jω) (C(e^{jωh}) when sampled), without the direct-acting sign or added delay."""
         w = np.asarray(omega_rad_s, dtype=float)
         x = 1j * w if self.h_s is None else np.exp(1j * w * self.h_s)
         n, d = self.rational()
@@ -119,7 +134,8 @@ class LoopController:
 
 @dataclass(frozen=True)
 class LoopTransfer:
-    """L = num/den in s (times e^{−s·delay_s}) or in z when ``h_s`` is set."""
+    """L = num/den in s (times e^{−s·delay_s}); or in z when ``h_s`` is set (accepted by
+    rigbench.tuning.margins, which turns it into state space; loop_transfer never makes one)."""
 
     num: np.ndarray
     den: np.ndarray
@@ -133,45 +149,6 @@ class LoopTransfer:
             return np.polyval(self.num, s) / np.polyval(self.den, s) * np.exp(-s * self.delay_s)
         z = np.exp(1j * w * self.h_s)
         return np.polyval(self.num, z) / np.polyval(self.den, z)
-
-
-def _zoh_integrals(a, b, t):
-    """(e^{At}, ∫0^t e^{Av} dv B) by one matrix exponential."""
-    n, m = b.shape
-    big = np.zeros((n + m, n + m))
-    big[:n, :n], big[:n, n:] = a * t, b * t
-    e = linalg.expm(big)
-    return e[:n, :n], e[:n, n:]
-
-
-def discretise_plant(plant: PlantModel, h_s: float):
-    """Exact ZOH state-space of a plant with dead time τ = m·h + f, 0 <= f < h.
-
-    Returns (phi, gamma0, gamma1, c, d, m, frac) with
-    x[k+1] = phi x[k] + gamma0 u[k−m] + gamma1 u[k−m−1],
-    y[k] = c x[k] + d u[k − m − (1 if frac > 0 else 0)].
-    """
-    a, b, c, d = signal.tf2ss(plant.num, plant.den)
-    m = int(np.floor(plant.delay_s / h_s + 1e-9))
-    f = plant.delay_s - m * h_s
-    if f < 1e-9 * h_s:
-        f = 0.0
-    phi, gam = _zoh_integrals(a, b, h_s)
-    if f == 0.0:
-        g0, g1 = gam, np.zeros_like(gam)
-    else:
-        e_hf, g0 = _zoh_integrals(a, b, h_s - f)
-        g1 = e_hf @ _zoh_integrals(a, b, f)[1]
-    return phi, g0, g1, c, d, m, f
-
-
-def _plant_z(plant: PlantModel, h_s: float) -> tuple[np.ndarray, np.ndarray]:
-    phi, g0, g1, c, d, m, f = discretise_plant(plant, h_s)
-    dd = float(d[0, 0]) if d.size else 0.0
-    n0, den = signal.ss2tf(phi, g0, c, np.array([[dd if f == 0 else 0.0]]))
-    n1, _ = signal.ss2tf(phi, g1, c, np.array([[dd if f else 0.0]]))
-    num = np.polyadd(np.polymul(n0[0], [1.0, 0.0]), n1[0])
-    return _trim(num), np.polymul(den, np.r_[1.0, np.zeros(m + 1)])
 
 
 def _cancel(num, den, root: float):
@@ -188,31 +165,40 @@ def _cancel(num, den, root: float):
     return _trim(num), _trim(den)
 
 
-def loop_transfer(controller: LoopController, plant) -> LoopTransfer:
-    """L = ±C·P for negative feedback (sign − for a direct-acting controller)."""
+def sampled_blocks(controller: LoopController, plant):
+    """(plant, controller) as rigbench.tuning.sampled systems wired by the signals 'u'
+    (command), 'y' (measurement), 'r' (set-point, held at 0) and 'rate'."""
     plant = as_plant(plant)
+    h = controller.h_s
+    if h is None:
+        raise ValueError("the controller has no sample time h_s")
+    rate = "rate" if controller.rate_derivative and controller.kd else None
+    p = sample_tf(plant.num, plant.den, h, delay_s=plant.delay_s + controller.added_delay_s,
+                  input="u", output="y", rate_output=rate)
+    c = board_pid(controller.kp, controller.ki, controller.kd, controller.tf_s, h,
+                  direct_acting=controller.direct_acting, measure="y", setpoint="r",
+                  output="u", rate=rate)
+    return p, c
+
+
+def loop_transfer(controller: LoopController, plant):
+    """L for negative feedback (sign − for a direct-acting controller): a LoopTransfer in
+    s for a continuous controller, a SampledLoop broken at the plant input otherwise."""
+    plant = as_plant(plant)
+    if controller.h_s is not None:
+        return close_loops(sampled_blocks(controller, plant), "u",
+                           description="PID loop broken at the plant input")
     cn, cd = controller.rational()
     sign = -1.0 if controller.direct_acting else 1.0
-    if controller.h_s is None:
-        num, den = np.polymul(cn, plant.num) * sign, np.polymul(cd, plant.den)
-        num, den = _cancel(num, den, 0.0)
-        return LoopTransfer(num, den, plant.delay_s, None)
-    pn, pd = _plant_z(plant, controller.h_s)
-    num, den = np.polymul(cn, pn) * sign, np.polymul(cd, pd)
-    num, den = _cancel(num, den, 1.0)
+    num, den = np.polymul(cn, plant.num) * sign, np.polymul(cd, plant.den)
     num, den = _cancel(num, den, 0.0)
-    return LoopTransfer(num, den, 0.0, controller.h_s)
+    return LoopTransfer(num, den, plant.delay_s, None)
 
 
-def state_feedback_loop(a_d, b_d, k, h_s: float) -> LoopTransfer:
-    """Loop broken at the plant input for x[k+1] = A x + B u, u = −K x: L(z) = K(zI−A)^{-1}B.
-
-    1 + L(z) = det(zI − A + BK)/det(zI − A), so the closed-loop poles are exact.
-    """
-    a_d = np.atleast_2d(a_d)
-    num, den = signal.ss2tf(a_d, np.reshape(b_d, (-1, 1)), np.reshape(k, (1, -1)), [[0.0]])
-    num, den = _cancel(_trim(num[0]), _trim(den), 0.0)
-    return LoopTransfer(num, den, 0.0, h_s)
+def state_feedback_loop(a_d, b_d, k, h_s: float) -> SampledLoop:
+    """Loop broken at the plant input for x[k+1] = A x + B u, u = −K x: L(z) = K(zI−A)^{-1}B,
+    in state space (the closed-loop poles are the eigenvalues of A − BK)."""
+    return loop_from_state_feedback(a_d, b_d, k, h_s)
 
 
 @dataclass(frozen=True)
@@ -231,8 +217,8 @@ def simulate_disturbance(controller: LoopController, plant, *, t_end_s: float,
 
     ``kind`` 'step' or 'pulse' (of ``width_s``), starting at ``start_s``; ``at`` 'input'
     (added to the controller output: a load) or 'output' (added to the measurement). A
-    discrete controller runs at its own h_s; a continuous one is run at ``dt_s`` (default
-    t_end_s/20000) in the discrete form of LoopController.
+    sampled controller runs at its own h_s as the board runs it (rigbench.tuning.sampled); a
+    continuous one is run at ``dt_s`` (default t_end_s/20000) in that sampled form.
     """
     if kind not in ("step", "pulse") or at not in ("input", "output"):
         raise ValueError("kind is 'step' or 'pulse'; at is 'input' or 'output'")
@@ -241,33 +227,38 @@ def simulate_disturbance(controller: LoopController, plant, *, t_end_s: float,
     ctrl = controller if controller.h_s else LoopController(
         controller.kp, controller.ki, controller.kd, controller.tf_s, h, 0,
         controller.direct_acting)
-    phi, g0, g1, c, d, m, f = discretise_plant(plant, h)
-    dd = float(d[0, 0]) if d.size else 0.0
-    lag_d = m + (1 if f else 0)
-    if dd and lag_d == 0:
-        raise ValueError("algebraic loop: biproper plant without dead time")
-    ac, bc, cc, dc = signal.tf2ss(*ctrl.rational())
+    _, c = sampled_blocks(ctrl, plant)
+    # the load enters the plant itself: the board's latency delays only the command
+    a_c, b_c, c_c, d_c = signal.tf2ss(plant.num, plant.den)
+    rate = {"rate": 0} if len(c.inputs) == 3 else None
+    p = sample_ss(a_c, np.hstack([b_c, b_c]), c_c, np.hstack([d_c, d_c]), h,
+                  delays_s=[plant.delay_s + ctrl.added_delay_s, plant.delay_s],
+                  inputs=("u", "load"), outputs=("y",), rate_outputs=rate)
     n = int(round(t_end_s / h)) + 1
     t = np.arange(n) * h
     dist = np.where(t >= start_s - 1e-12, amplitude, 0.0)
     if kind == "pulse":
         dist[t >= start_s + width_s - 1e-12] = 0.0
-    sign = 1.0 if ctrl.direct_acting else -1.0
-    x = np.zeros(phi.shape[0])
-    xc = np.zeros(ac.shape[0])
-    hist = np.zeros(n + m + 2)  # plant inputs, offset by m + 2 so negative indices read 0
+    load = dist if at == "input" else np.zeros(n)
+    m_u, m_l = p.input_delays
+    x = np.zeros(p.n_states)
+    xc = np.zeros(c.n_states)
+    u_hist = np.zeros(n + m_u + 1)  # commands, offset by m_u so negative indices read 0
+    l_hist = np.r_[np.zeros(m_l), load, 0.0]
     y = np.empty(n)
     u = np.empty(n)
-    c0, g0v, g1v = c[0], g0[:, 0], g1[:, 0]
-    bcv, ccv, dcv = bc[:, 0], cc[0] if cc.size else np.zeros(0), float(dc[0, 0])
+    rate_in = len(c.inputs) == 3
+    cc, cd = c.c[0], c.d[0]
     for k in range(n):
-        yk = float(c0 @ x) + dd * hist[k + m + 2 - lag_d]
+        w = np.array([u_hist[k], l_hist[k]])   # the plant inputs after their dead times
+        outs = p.c @ x + p.d @ w
+        yk = float(outs[0])
         meas = yk + (dist[k] if at == "output" else 0.0)
-        e = sign * meas
-        uk = float(ccv @ xc) + dcv * e if ac.size else dcv * e
-        if ac.size:
-            xc = ac @ xc + bcv * e
-        hist[k + m + 2] = uk + (dist[k] if at == "input" else 0.0)
-        x = phi @ x + g0v * hist[k + 2] + g1v * hist[k + 1]
+        cin = np.array([meas, 0.0, float(outs[1])] if rate_in else [meas, 0.0])
+        uk = float(cc @ xc + cd @ cin)
+        xc = c.a @ xc + c.b @ cin
+        u_hist[k + m_u] = uk
+        w[0] = u_hist[k]
+        x = p.a @ x + p.b @ w
         y[k], u[k] = yk, uk
     return DisturbanceResponse(t, y, u, dist)

@@ -7,6 +7,8 @@ Formatting only: every number comes from the domain result objects
 
 from __future__ import annotations
 
+from rigbench.tuning.margin_result import NO_UPPER
+
 
 def num(value, spec: str = ".4g", unit: str = "") -> str:
     if value is None:
@@ -20,7 +22,9 @@ def margins_text(m) -> str:
         return "not predicted"
     if not m.stable:
         return "UNSTABLE on the model"
-    up = f"{m.gain_margin_upper_db:.1f}" if m.gain_margin_upper_db is not None else "∞"
+    # None is "unlimited" only when no phase crossover limits the gain; else not computed
+    up = (f"{m.gain_margin_upper_db:.1f}" if m.gain_margin_upper_db is not None
+          else "∞" if m.reason("gain_margin_upper") == NO_UPPER else "?")
     low = f"/{m.gain_margin_lower_db:.1f}" if m.gain_margin_lower_db is not None else ""
     pm = f"{m.phase_margin_deg:.0f}°" if m.phase_margin_deg is not None else "–"
     return f"GM {up}{low} dB  PM {pm}  Ms {m.ms:.2f}"
