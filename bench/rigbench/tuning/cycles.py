@@ -14,9 +14,8 @@ For each series x over a window of the last n cycles (n ≥ 3):
 - its standard error is se = (n − 1)·σ/√Σ(i − ī)², σ the cycle-to-cycle noise of the
   series estimated robustly from successive differences: σ = 1.4826·MAD(Δx)/√2 (MAD the
   median absolute deviation from their median; Δx of white noise has a standard
-  deviation of √2·σ). A trend shifts all differences alike and a decaying start-up
-  transient changes only the first few, so neither inflates σ (the scatter about the
-  line, or the plain standard deviation, would take a transient for noise). σ is taken
+  deviation of √2·σ). A trend shifts all differences alike, so it does not inflate σ
+  (the scatter about the line, or the plain standard deviation, would). σ is taken
   over the last max(n, ``noise_cycles``) cycles: a few differences cannot tell noise
   from a transient still under way, so with fewer than ``noise_cycles`` cycles recorded
   there is no noise allowance at all (the test is then drift ≤ max(tol, floor));
@@ -25,6 +24,12 @@ For each series x over a window of the last n cycles (n ≥ 3):
   noise), floor the series' resolution: for the period ``resolution_samples`` sample
   intervals (1.5 covers the sawtooth of a period between two whole numbers of samples,
   whose fitted drift over a window reaches up to 1.5 samples), none for the others;
+  when every successive change in the window has the same sign there is no noise
+  allowance (drift ≤ max(tol, floor)): a start-up transient that converges
+  geometrically (a lightly damped plant's limit cycle builds up over many cycles)
+  changes *all* differences and inflates σ; it was accepted 10–12% away from its final
+  amplitude [calc]. White noise gives one sign throughout n − 1 differences with
+  probability 2^(2−n), which only delays convergence by a cycle;
 - and no series scatters by more than ``max_scatter`` (relative standard deviation): a
   relay whose band is too narrow for the noise chatters, each crossing of the band
   making a "cycle" of random length; that is not a limit cycle however long it runs.
@@ -106,6 +111,11 @@ def _series(name: str, x: np.ndarray, tol: float, noise_sigmas: float, floor: fl
     drift = abs(slope) * (n - 1) / scale
     se_drift = (n - 1) * sigma / math.sqrt(sii) / scale
     allowed = max(tol, floor / scale, noise_sigmas * se_drift)
+    steps = np.diff(x)
+    if np.all(steps > 0) or np.all(steps < 0):
+        # every change goes one way: a transient still under way (a slowly converging
+        # limit cycle inflates the noise estimate from its own differences), not noise
+        allowed = max(tol, floor / scale)
     scatter = float(np.std(x, ddof=1)) / scale
     return SeriesCheck(name, mean, scatter, scatter / math.sqrt(n), drift, allowed,
                        drift <= allowed and scatter <= max_scatter)
