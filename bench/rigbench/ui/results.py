@@ -9,6 +9,8 @@ Must not import: rigbench.rig, serial, textual.
 
 from __future__ import annotations
 
+import math
+
 
 def num(value, spec: str = ".4g", unit: str = "") -> str:
     if value is None:
@@ -16,16 +18,22 @@ def num(value, spec: str = ".4g", unit: str = "") -> str:
     return f"{value:{spec}}" + (f" {unit}" if unit else "")
 
 
-def margins_text(m) -> str:
-    """Predicted margins of one gain set, short."""
+def gm_text(gm) -> str:
+    """A gain margin as the CLI shows it: ratio, dB in brackets; None = no limit."""
+    if gm is None:
+        return "inf"
+    return f"{gm:.3g} ({20 * math.log10(gm):.1f} dB)" if gm > 0 else f"{gm:.3g}"
+
+
+def margins_text(m, missing: str = "") -> str:
+    """Predicted margins of one gain set, short. ``missing``: why there are none."""
     if m is None:
-        return "not predicted"
+        return "not predicted" + (f": {missing}" if missing else "")
     if not m.stable:
-        return "UNSTABLE on the model"
-    up = f"{m.gain_margin_upper_db:.1f}" if m.gain_margin_upper_db is not None else "∞"
-    low = f"/{m.gain_margin_lower_db:.1f}" if m.gain_margin_lower_db is not None else ""
-    pm = f"{m.phase_margin_deg:.0f}°" if m.phase_margin_deg is not None else "–"
-    return f"GM {up}{low} dB  PM {pm}  Ms {m.ms:.2f}"
+        return "UNSTABLE on the model"  # no phase margin for an unstable loop
+    low = f", low {gm_text(m.gain_margin_lower)}" if m.gain_margin_lower is not None else ""
+    pm = f"{m.phase_margin_deg:.0f}°" if m.phase_margin_deg is not None else "none"
+    return f"GM {gm_text(m.gain_margin_upper)}{low}  PM {pm}  Ms {m.ms:.2f}"
 
 
 def cycle_row(progress) -> tuple[str, ...] | None:
@@ -57,6 +65,11 @@ def relay_lines(outcome) -> list[str]:
         how = "sized automatically" if st.automatic else "as given"
         lines.append(f"relay amplitude {st.amplitude:.4g} ({how}), hysteresis "
                      f"{st.hysteresis:.3g} {run.loop.measure_unit}, bias {st.bias:.3g}")
+        if st.hysteresis_reason:
+            lines.append(f"hysteresis {st.hysteresis_reason}")
+        grown = [a for a in st.attempts if a.outcome != "kept"]
+        for a in grown:
+            lines.append(f"tried amplitude {a.amplitude:.4g}: {a.outcome}")
     if run.noise_rms is not None:
         lines.append(f"noise RMS in quiet hold {run.noise_rms:.3g} {run.loop.measure_unit}")
     an = run.analysis
@@ -74,9 +87,12 @@ def relay_lines(outcome) -> list[str]:
         lines.append(outcome.proposal_error or "no proposals")
     else:
         best = ps.best()
-        lines.append(f"model: {ps.model_text}")
+        lines.append(f"model: {ps.model_text}" + (f" — {ps.model_missing}"
+                                                  if ps.model_missing else ""))
         lines.append(f"{sum(1 for p in ps.proposals if p.applies)} proposals; best: "
-                     + (f"{best.rule} ({margins_text(best.margins)})" if best else "none")
+                     + (f"{best.rule} ({margins_text(best.margins)})" if best else
+                        "none recommended (no proposal meets the margin limits and the "
+                        "board's ranges; reasons on the Gains screen)")
                      + ". Gains screen (3) to compare and push.")
     return lines
 
@@ -92,8 +108,11 @@ def proposal_rows(proposal_set) -> list[tuple[str, ...]]:
         rank = "now" if p is cur else ("" if p.rank is None else str(p.rank))
         if p.applies:
             iae = getattr(p.response, "iae", None)
-            rows.append((rank, label, p.kind, num(p.kp), num(p.ki), num(p.kd),
-                         margins_text(p.margins), num(iae, ".3g"), p.notes[:40]))
+            why = "; ".join(p.not_recommended) if p is not cur else ""
+            rows.append((rank if p is cur or p.rank is not None else "no", label, p.kind,
+                         num(p.kp), num(p.ki), num(p.kd),
+                         margins_text(p.margins, p.margin_missing), num(iae, ".3g"),
+                         (why or p.notes)[:60]))
         else:
             rows.append((rank, label, p.kind, "", "", "", "", "", p.reason[:60]))
     return rows
