@@ -166,6 +166,9 @@ def tune_text(doc: dict) -> str:
         rest = [it for it in applied if not it["rank"]]
         items = ([doc["current"]] if doc.get("current") else []) + ranked + rest
         lines.append(table([head] + [_row(it, lower) for it in items]))
+        cur = doc.get("current")
+        if cur and cur.get("margin_missing"):
+            lines.append(f"  current gains: no margins: {cur['margin_missing']}")
         own = set(doc["gain_names"])
         for it in applied:
             more = {k: v for k, v in it["gains"].items() if k not in own}

@@ -171,13 +171,15 @@ class _Judge:
         ctrl = LoopController(item.kp, item.ki, item.kd, tf_s=self.tf, h_s=self.h,
                               direct_acting=self.direct)
         try:
-            item.margins = margins(ctrl, self.plant)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                item.margins = margins(ctrl, self.plant)
         except (ValueError, np.linalg.LinAlgError, ZeroDivisionError) as exc:
             item.notes = f"{item.notes}; margins not computed: {exc}".strip("; ")
             item.margin_missing = f"margins not computed: {exc}"
             return
         if self.corners:
-            item.robust = robust_margins(lambda pl: margins(ctrl, pl), self.corners)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                item.robust = robust_margins(lambda pl: margins(ctrl, pl), self.corners)
         item.predicted_stable = item.margins.stable
         if not item.predicted_stable:
             return

@@ -94,7 +94,7 @@ def _margin_reasons(m, limits: RankLimits, unstable_plant: bool, prefix: str = "
     if not m.stable:
         return [f"{prefix}predicted unstable"]
     gm = m.gain_margin_upper
-    if gm is not None and gm < limits.gm_min:
+    if gm is not None and gm < limits.gm_min * (1 - 1e-6):  # a rule at exactly Ku/2 passes
         why.append(f"{prefix}gain margin {gm:.3g} < {limits.gm_min:g}")
     low = m.gain_margin_lower
     if unstable_plant and low is not None and low > limits.gm_lower_max:

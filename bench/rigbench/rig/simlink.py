@@ -88,7 +88,8 @@ class SimLink:
         self.options = options
         if board is None:
             board = make_board(options.rig, drive=options.drive, num=options.num,
-                               den=options.den, delay_s=options.delay_s, seed=options.seed,
+                               den=options.den, delay_s=options.delay_s,
+                               plant_kind=options.plant_kind, seed=options.seed,
                                noise=options.noise, rate_hz=options.rate_hz,
                                state_path=options.state_path, **board_kw)
         self.board = board
