@@ -144,3 +144,19 @@ def test_a_run_that_did_not_converge_says_why(open_sim):
     assert res.exit_code == 6
     again = evaluate(res.run)
     assert again.proposal_error == res.proposal_error
+
+
+@pytest.mark.parametrize("den,plant,relay", [
+    ("1,3,3,1", "stable", "output"),
+    ("1,1,0", "integrating", "output"),      # a pole at 0
+    ("1,0,-1", "unstable", "integral"),      # a pole at +1
+])
+def test_sim_plant_declares_its_kind_from_the_denominator(open_sim, den, plant, relay):
+    # PROTOCOL.md §5.4: the loop reply says what the board author knows of the open loop
+    lp = open_sim(f"sim://plant?num=1&den={den}").loops["main"]
+    assert (lp.plant, lp.relay) == (plant, relay)
+
+
+def test_sim_plant_kind_can_be_declared(open_sim):
+    lp = open_sim("sim://plant?num=1&den=1,1&plant=integrating").loops["main"]
+    assert lp.plant == "integrating"
