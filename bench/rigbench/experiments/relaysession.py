@@ -162,8 +162,11 @@ class RelaySession:
             if got:
                 self.period_s = p
             chatter = got and p < min_period_s
+            # the amplitude grew but the oscillation did not follow (a linear loop's would
+            # grow in proportion; less than the square root of the ratio means the band,
+            # not the phase, sets the cycle)
             stuck = (got and last is not None and last[2] is not None and last[1] == band
-                     and d > 1.4 * last[0] and a < 1.2 * last[2])
+                     and d > 1.4 * last[0] and a < last[2] * math.sqrt(d / last[0]))
             last = (d, band, a)
             if self._out_of_time():
                 self._attempt(d, band, p, a, "the time cap (max_s) ran out")
