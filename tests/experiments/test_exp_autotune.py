@@ -160,3 +160,20 @@ def test_sim_plant_declares_its_kind_from_the_denominator(open_sim, den, plant, 
 def test_sim_plant_kind_can_be_declared(open_sim):
     lp = open_sim("sim://plant?num=1&den=1,1&plant=integrating").loops["main"]
     assert lp.plant == "integrating"
+
+
+@pytest.mark.parametrize("num,consistent", [("1", True), ("-2,1", False)])
+def test_biased_relay_checks_the_model_against_the_static_gain(open_sim, num, consistent):
+    # biased relay: Kp = ∫y dt / ∫u dt over whole periods (Shen, Wu & Yu 1996 [memory]);
+    # both plants have G(0) = num(0)/den(0) = 1 [calc]. (1 − 2s)/(s + 1)³ has a
+    # right-half-plane zero: a lag model fitted to its frequency points alone has the wrong
+    # static gain, and the check says so
+    link = open_sim(f"sim://plant?num={num}&den=1,3,3,1&seed=1")
+    from rigbench.experiments.relay import RelayConfig
+
+    res = autotune(link, "main", AutotuneConfig(relay=RelayConfig(bias=0.4)))
+    assert res.run.converged, res.run.reason
+    assert res.run.static_gain == pytest.approx(1.0, rel=0.01)
+    assert res.proposals.static_consistent is consistent
+    flagged = any("INCONSISTENT" in n for n in res.proposals.notes)
+    assert flagged is not consistent

@@ -93,6 +93,7 @@ def autotune_document(result, *, simulated: bool | None = None) -> dict:
         "model": None if ps is None else {"kind": ps.model_kind, "text": ps.model_text,
                                           "direct_acting": ps.direct_acting},
         "model_missing": result.model_missing,
+        "model_static_gain_consistent": None if ps is None else ps.static_consistent,
         "limits": None if ps is None else asdict(ps.limits),
         "current": None if ps is None else proposal_doc(ps.current, units),
         "proposals": [] if ps is None else [proposal_doc(p, units) for p in ps.proposals],

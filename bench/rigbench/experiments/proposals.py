@@ -106,6 +106,7 @@ class ProposalSet:
     notes: list = field(default_factory=list)
     limits: RankLimits = field(default_factory=RankLimits)
     model_missing: str = ""         # why there is no model ('' when there is one)
+    static_consistent: bool | None = None   # model vs biased relay's ∫y/∫u; None: unchecked
 
     def recommended(self) -> list:
         return sorted((p for p in self.proposals if p.rank is not None), key=lambda p: p.rank)
@@ -229,11 +230,19 @@ def propose(run: RelayRun, *, margin_deg: float = 45.0, limits: RankLimits | Non
                      f"test measured a plant gain of sign {'−' if direct else '+'}, which "
                      f"needs {'direct' if direct else 'reverse'} action: the predictions "
                      "follow the measurement")
-    if static is not None and model.gain and abs(model.gain / static - 1.0) > static_tol:
-        notes.append(f"the fitted model's static gain {model.gain:.4g} disagrees with the "
-                     f"biased relay's ∫y/∫u = {static:.4g} by "
-                     f"{100 * abs(model.gain / static - 1):.0f}% (> {100 * static_tol:g}%): "
-                     "the model is inconsistent with the data; predicted margins are doubtful")
+    consistent = None
+    if static is not None:
+        # the model fitted to the frequency points alone must agree with the measured
+        # static gain; a right-half-plane zero, say, makes the points look like another gain
+        free = fit_process_model(run.points, kind=kind, static_gain=None)
+        off = abs(free.gain / static - 1.0) if static else math.inf
+        consistent = off <= static_tol
+        if not consistent:
+            notes.append(f"MODEL INCONSISTENT WITH THE DATA: fitted to the frequency points "
+                         f"alone its static gain is {free.gain:.4g}, the biased relay "
+                         f"measured ∫y/∫u = {static:.4g} ({100 * off:.0f}% off, > "
+                         f"{100 * static_tol:g}%); the model below is held to the measured "
+                         "gain, and its predicted margins are doubtful")
     elif static is None and kind == "lag":
         notes.append("static gain not measured (unbiased relay): the model's gain comes from "
                      "the points alone and can be far off on a plant with a right-half-plane "
@@ -289,7 +298,7 @@ def propose(run: RelayRun, *, margin_deg: float = 45.0, limits: RankLimits | Non
     judge_and_rank(items, limits, params=run.board.params if run.board else None,
                    unstable_plant=False)
     return ProposalSet(ls, kind, model.describe(), model, plant, direct, ult, current, items,
-                       dist, notes, limits)
+                       dist, notes, limits, static_consistent=consistent)
 
 
 def _sampled_ultimate(plant: PlantModel, h_s: float, direct: bool):
