@@ -55,7 +55,6 @@ For integral relays Ku from 4h/(πa) is not a controller gain, so ``ku`` is None
 
 from __future__ import annotations
 
-import math
 from dataclasses import dataclass, fields, replace
 
 import numpy as np
