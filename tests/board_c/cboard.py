@@ -299,8 +299,10 @@ class CBoard:
 
 def make_c_board(rig: str = "balance", *, drive: str = "speed", num=(1.0,), den=(1.0, 1.0),
                  delay_s: float = 0.0, seed: int = 0, noise: float = 1.0,
-                 rate_hz: float = 500.0, state_path: str | None = None, **board_kw) -> CBoard:
+                 rate_hz: float = 500.0, state_path: str | None = None,
+                 plant_kind: str | None = None, **board_kw) -> CBoard:
     """``rigbench.rig.firmware.board.make_board`` with the C library as the firmware."""
-    rd = rig_def(rig, drive=drive, num=num, den=den, delay_s=delay_s, rate_hz=rate_hz)
+    rd = rig_def(rig, drive=drive, num=num, den=den, delay_s=delay_s, rate_hz=rate_hz,
+                 plant_kind=plant_kind)
     plant = rd.make_plant(np.random.default_rng(seed), noise, rate_hz)
     return CBoard(rd, plant, state_path=state_path, **board_kw)

@@ -79,7 +79,9 @@ def test_automatic_amplitude_and_hysteresis_follow_the_noise(open_sim_shared):
 
 @pytest.mark.filterwarnings("ignore:stability_margins")
 def test_proposals_on_a_stable_plant(open_sim_shared):
-    run = _relay(open_sim_shared, "lag3", 1)
+    # without noise: the upper gain margin of a PID on this plant lies near the Nyquist
+    # frequency, where a dead time of one sample fitted from noisy points moves it by 10%
+    run = _relay(open_sim_shared, "lag3", 0)
     ps = propose(run)
     # the rules take Ku, Tu at the fitted model's −180° crossing: the exact ultimate point
     # of 1/(s+1)^3 is Ku = 8, Tu = 3.6276 s (docs/METHODS.md §3 [calc])

@@ -85,3 +85,33 @@ def test_noisy_relay_with_periods_of_thirty_samples_converges_on_the_plant():
             assert p.period_scatter is not None and p.convergence.settled
     assert settled_at is not None and settled_at < res.cycles
     assert tracker.result() == res
+
+
+def test_a_geometrically_converging_transient_is_not_taken_for_noise():
+    # a limit cycle building up as x_i = x∞ − c·ρ^i (a lightly damped plant under a relay,
+    # ρ ≈ 0.6 per cycle [calc, simulation]): its successive differences shrink together,
+    # so their MAD looks like noise; the window is settled only once the change across it
+    # is within the tolerance (common practice, no source: a trend is not noise)
+    x_inf, c, rho = 3.8, 2.0, 0.6
+    amps = [x_inf - c * rho ** i for i in range(12)]
+    periods = [6.0] * 12
+    for n in range(4, 13):
+        used, check = settled_cycles({"period": periods[:n], "amplitude": amps[:n]},
+                                     min_cycles=4)
+        window = amps[n - 4:n]
+        change = (window[-1] - window[0]) / np.mean(window)
+        assert bool(used) == (change <= 0.02), (n, change)
+    # the accepted cycles are within 1% of the final amplitude
+    used, _ = settled_cycles({"period": periods, "amplitude": amps}, min_cycles=4)
+    assert np.mean(amps[-used:]) == pytest.approx(x_inf, rel=0.01)
+
+
+def test_noise_alone_still_settles_after_a_few_more_cycles():
+    # stationary cycles with 3% noise: one sign throughout a window only delays convergence
+    rng = np.random.default_rng(5)
+    amps = list(1.0 + 0.03 * rng.standard_normal(30))
+    periods = list(2.0 + 0.02 * rng.standard_normal(30))
+    first = next(n for n in range(4, 31)
+                 if settled_cycles({"period": periods[:n], "amplitude": amps[:n]},
+                                   min_cycles=4)[0])
+    assert first <= 12

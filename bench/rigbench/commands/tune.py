@@ -7,9 +7,11 @@ for unstable ones), with the amplitude and hysteresis sized from the noise unles
 Guards stop it (and kill the motor) near the board's trip limits, on stale telemetry or a
 lost link; at the end the motor is off, or back in the closed loop it was found in.
 
-Exit codes: 0 converged (proposals printed); 3 link; 4 the board refused (e.g. to arm:
-its interlock reasons are printed); 5 a guard or the board tripped (motor killed); 6 no
-sustained cycle formed; 130 interrupted (the rig is left safe first).
+Exit codes: 0 converged and at least one proposal recommended; 3 link; 4 the board
+refused (e.g. to arm: its interlock reasons are printed); 5 a guard or the board tripped
+(motor killed); 6 no sustained cycle formed, or nothing recommended (no proposal meets the
+margin limits and the board's ranges); 130 interrupted (the rig is left safe first).
+
 """
 
 from __future__ import annotations
@@ -19,10 +21,13 @@ import math
 from pathlib import Path
 
 from rigbench.base.stops import exit_code_for, EXIT_CHECK, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_LINK, EXIT_OK, EXIT_TRIP, EXIT_USAGE  # noqa: F401
+from rigbench.base.atomic import write_text_atomic
 from rigbench.commands._common import CommandError, help_text
+from rigbench.tuning.margin_result import gain_margin_text
 from rigbench.experiments.conventions import primary_loop
-from rigbench.experiments.proposals import propose
-from rigbench.experiments.relay import run_relay
+from rigbench.experiments.autotune import AutotuneConfig, autotune
+from rigbench.experiments.ranking import RankLimits
+from rigbench.experiments.relay import RelayConfig
 
 from rigbench.commands._signals import kill_on_signal
 from rigbench.commands._common import add_json_option, add_port_option, open_link, plain, print_json, table
@@ -45,106 +50,65 @@ def add_parser(subparsers):
                    help="relay amplitude in the output's units (integral relays: the "
                         "measure's); default: sized from the noise")
     p.add_argument("--hysteresis", type=float, default=None, metavar="X",
-                   help="relay hysteresis in the measure's units (default 2x noise RMS)")
+                   help="relay hysteresis in the measure's units (default 2x noise RMS; "
+                        "5x until the first cycle; wider when the cycle is shorter than 25 "
+                        "samples, and the output says why)")
     p.add_argument("--bias", type=float, default=0.0, metavar="X",
                    help="relay bias; a biased relay also measures the static gain")
     p.add_argument("--cycles", type=int, default=4, metavar="N",
                    help="agreeing cycles needed for convergence (default 4)")
-    p.add_argument("--max-seconds", type=float, default=60.0, metavar="S",
-                   help="give up when no sustained cycle forms within S seconds (default 60)")
+    p.add_argument("--max-seconds", type=float, default=None, metavar="S",
+                   help="cap the relay at S seconds (default: no cap; the wait is counted "
+                        "in the cycle's own periods, 24 periods for convergence)")
+    p.add_argument("--gm-min", type=float, default=2.0, metavar="X",
+                   help="recommend only with a gain margin >= X (ratio; default 2 = 6 dB)")
+    p.add_argument("--pm-min", type=float, default=30.0, metavar="DEG",
+                   help="recommend only with a phase margin >= DEG (default 30)")
+    p.add_argument("--ms-max", type=float, default=2.0, metavar="X",
+                   help="recommend only with a peak sensitivity Ms <= X (default 2)")
+    p.add_argument("--gm-lower-max", type=float, default=0.5, metavar="X",
+                   help="open-loop unstable loops: recommend only with a lower gain margin "
+                        "<= X (default 0.5)")
     p.add_argument("--out", default=None, metavar="DIR",
                    help="write the recording, tune.json and tune.md into DIR")
     add_json_option(p)
     return p
 
 
-def _gm(m: dict, key: str, field: str) -> str:
-    """A gain margin cell: the number; ∞ for an upper margin no phase crossover limits;
-    '?' when it could not be computed; '–' otherwise (no lower limit, unstable loop)."""
-    if m.get(key) is not None:
-        return _num(m[key], ".3g")
-    why = (m.get("reasons") or {}).get(field, "")
-    if why.startswith("not computed"):
-        return "?"
-    return "∞" if why == "no phase crossover above 1" else "–"
-
-
-def _margins_doc(m) -> dict | None:
-    if m is None:
-        return None
-    return {"stable": m.stable, "gain_margin": m.gain_margin_upper,
-            "gain_margin_db": m.gain_margin_upper_db, "gain_margin_lower": m.gain_margin_lower,
-            "gain_margin_lower_db": m.gain_margin_lower_db,
-            "phase_margin_deg": m.phase_margin_deg, "crossover_rad_s": m.crossover_rad_s,
-            "delay_margin_s": m.delay_margin_s, "ms": m.ms, "reasons": dict(m.reasons)}
-
-
-def _proposal_doc(p, units: dict) -> dict | None:
-    if p is None:
-        return None
-    r = p.response
-    return {
-        "rule": p.rule, "kind": p.kind, "applies": p.applies, "reason": p.reason,
-        "kp": p.kp, "ki": p.ki, "kd": p.kd, "form": "parallel",
-        "ideal": None if p.ideal is None else {"k": p.ideal.k, "ti_s": p.ideal.ti_s,
-                                               "td_s": p.ideal.td_s},
-        "units": units, "gains": dict(p.gains), "rank": p.rank,
-        "predicted_stable": p.predicted_stable, "margins": _margins_doc(p.margins),
-        "target_margin_deg": p.details.get("target_margin_deg"),
-        "response": None if r is None else {
-            "iae": r.iae, "peak_abs_error": r.peak_abs_error,
-            "settling_time_s": r.settling_time_s, "opposite_ratio": r.opposite_ratio},
-        "source": p.source, "notes": p.notes,
-    }
-
-
-def tune_document(run, ps, *, simulated: bool | None = None, error: str | None = None) -> dict:
-    """The ``--json`` object (DESIGN.md Decision 4 keys plus details)."""
-    ls, an, s = run.loop, run.analysis, run.settings
-    units = dict(zip(("kp", "ki", "kd"), ls.gain_units))
-    pt = run.point
-    doc = {
-        "loop": ls.name,
-        "board": None if run.board is None else run.board.board, "simulated": simulated,
-        "plant": ls.plant, "relay_kind": ls.relay,
-        "converged": run.converged, "stopped_by": run.stopped_by, "reason": run.reason,
-        "ku": run.ku, "tu_s": run.tu_s,
-        "relay": None if s is None else {
-            "amplitude": s.amplitude, "hysteresis": s.hysteresis, "bias": s.bias,
-            "centre": s.centre, "bound": s.bound, "automatic": s.automatic,
-            "amplitude_unit": ls.output_unit if ls.relay == "output" else ls.measure_unit,
-            "hysteresis_unit": ls.measure_unit},
-        "oscillation": None if an is None else {
-            "amplitude": an.amplitude, "period_s": an.period_s, "cycles": an.cycles,
-            "period_scatter": an.period_scatter, "amplitude_scatter": an.amplitude_scatter,
-            "unit": ls.measure_unit},
-        "point": None if pt is None else {
-            "gain": pt.gain, "phase_deg": pt.phase_deg, "omega_rad_s": pt.omega_rad_s,
-            "unit": f"{ls.measure_unit} per {ls.output_unit}"},
-        "points": [{"gain": p.gain, "phase_deg": p.phase_deg, "omega_rad_s": p.omega_rad_s}
-                   for p in run.points],
-        "static_gain": run.static_gain, "noise_rms": run.noise_rms,
-        "rig_seconds": run.rig_seconds, "time_to_converge_s": run.relay_seconds,
-        "recording": None if run.experiment is None or run.experiment.recording is None
-        else str(run.experiment.recording),
-        "units": {"measure": ls.measure_unit, "output": ls.output_unit, "gains": units},
-        "gain_names": list(ls.gains),
-        "ultimate": None if ps is None else dict(ps.ultimate),
-        "model": None if ps is None else {"kind": ps.model_kind, "text": ps.model_text,
-                                          "direct_acting": ps.direct_acting},
-        "current": None if ps is None else _proposal_doc(ps.current, units),
-        "proposals": [] if ps is None else [_proposal_doc(p, units) for p in ps.proposals],
-        "notes": [] if ps is None else list(ps.notes),
-    }
-    if error:
-        doc["proposals_error"] = error
-    return doc
+def tune_document(result, *, simulated: bool | None = None) -> dict:
+    """The ``--json`` object (rigbench.experiments.autotunedoc)."""
+    return result.to_dict(simulated=simulated)
 
 
 def _num(x, fmt=".4g") -> str:
     if x is None or (isinstance(x, float) and not math.isfinite(x)):
         return "-"
     return format(x, fmt)
+
+
+
+
+def _row(it: dict, lower: bool) -> list:
+    """One table row. '?' = not computed (the reason is listed), 'none' = no such margin,
+    'inf' = no limit; an unstable row shows no phase margin."""
+    m, resp = it["margins"], it["response"] or {}
+    rank = "now" if it["rule"] == "current" else (str(it["rank"]) if it["rank"] else "no")
+    if m is None:
+        cells = ["?", "?", "?", "?"] if lower else ["?", "?", "?"]
+    elif not m["stable"]:
+        cells = ["UNSTABLE", "", "", ""] if lower else ["UNSTABLE", "", ""]
+    else:
+        pm = _num(m["phase_margin_deg"], ".1f") if m["phase_margin_deg"] is not None else "none"
+        if it.get("target_margin_deg"):
+            pm += f" ({it['target_margin_deg']:g})"
+        why = m.get("reasons") or {}
+        cells = [gain_margin_text(m["gain_margin"], why.get("gain_margin_upper", ""))]
+        if lower:
+            cells.append(gain_margin_text(m["gain_margin_lower"],
+                                          why.get("gain_margin_lower", "")))
+        cells += [pm, _num(m["ms"], ".3g")]
+    return ([rank, it["rule"], _num(it["kp"]), _num(it["ki"]), _num(it["kd"])] + cells
+            + [_num(resp.get("iae"), ".3g")])
 
 
 def tune_text(doc: dict) -> str:
@@ -154,9 +118,18 @@ def tune_text(doc: dict) -> str:
              f"{doc['board']}" + (" [SIMULATED]" if doc.get("simulated") else "")]
     r, o, p = doc["relay"], doc["oscillation"], doc["point"]
     if r:
+        ratio = r.get("hysteresis_noise_ratio")
         lines.append(f"relay: amplitude {r['amplitude']:.4g} {r['amplitude_unit']}, hysteresis "
-                     f"{r['hysteresis']:.3g} {r['hysteresis_unit']}, bias {r['bias']:g}; noise "
-                     f"RMS {_num(doc['noise_rms'], '.3g')}")
+                     f"{r['hysteresis']:.3g} {r['hysteresis_unit']}"
+                     + (f" ({ratio:.3g}x noise RMS)" if ratio else "")
+                     + f", bias {r['bias']:g}; noise RMS {_num(doc['noise_rms'], '.3g')}")
+        if r.get("hysteresis_reason"):
+            lines.append(f"  hysteresis {r['hysteresis_reason']}")
+        for a in r.get("attempts") or []:
+            osc = "no whole cycle" if a["oscillation"] is None else (
+                f"oscillation {a['oscillation']:.3g}, period {a['period_s']:.3g} s")
+            lines.append(f"  tried amplitude {a['amplitude']:.4g}, band {a['hysteresis']:.3g}: "
+                         f"{osc} -> {a['outcome']}")
     if not doc["converged"]:
         lines.append(f"NOT CONVERGED ({doc['stopped_by']}): {doc['reason']}")
     if o and o["period_s"]:
@@ -167,39 +140,44 @@ def tune_text(doc: dict) -> str:
     if p:
         lines.append(f"point: |G| = {p['gain']:.4g} {p['unit']}, phase {p['phase_deg']:.2f} deg "
                      f"at {p['omega_rad_s']:.4g} rad/s;  Ku {_num(doc['ku'])}, Tu "
-                     f"{_num(doc['tu_s'])} s")
+                     f"{_num(doc['tu_s'])} s (describing function)")
     if doc.get("model"):
         lines.append(f"model ({doc['model']['kind']}): {doc['model']['text']}")
-    if doc.get("ultimate") and doc["ultimate"].get("ku"):
-        u = doc["ultimate"]
+    if doc.get("model_missing"):
+        lines.append(f"no model: {doc['model_missing']}")
+    u = doc.get("ultimate") or {}
+    if u.get("ku"):
         lines.append(f"rules use Ku {u['ku']:.4g}, Tu {u['tu_s']:.4g} s from the {u['source']}")
     if doc["proposals"]:
         units = doc["units"]["gains"]
+        lim = doc.get("limits") or {}
+        lower = doc["plant"] == "unstable" or doc["relay_kind"] == "integral"
         lines.append(f"proposals (kp [{units['kp']}], ki [{units['ki']}], kd [{units['kd']}]; "
-                     "margins and IAE predicted on the model):")
-        rows = [["rank", "rule", "kp", "ki", "kd", "GM", "GM low", "PM deg", "Ms", "IAE"]]
-        items = ([doc["current"]] if doc.get("current") else []) + doc["proposals"]
-        for it in items:
-            if not it["applies"]:
-                continue
-            m, resp = it["margins"] or {}, it["response"] or {}
-            rank = "now" if it["rule"] == "current" else (
-                str(it["rank"]) if it["rank"] else ("UNST" if it["predicted_stable"] is False
-                                                    else "-"))
-            pm = _num(m.get("phase_margin_deg"), ".1f")
-            if it.get("target_margin_deg"):
-                pm += f" ({it['target_margin_deg']:g})"
-            rows.append([rank, it["rule"], _num(it["kp"]), _num(it["ki"]), _num(it["kd"]),
-                         _gm(m, "gain_margin", "gain_margin_upper"),
-                         _gm(m, "gain_margin_lower", "gain_margin_lower"),
-                         pm, _num(m.get("ms"), ".3g"), _num(resp.get("iae"), ".3g")])
-        lines.append(table(rows))
+                     "margins and IAE predicted on the model; GM as a ratio (dB); "
+                     "? = not computed, none = no such margin, inf = no limit):")
+        head = ["rank", "rule", "kp", "ki", "kd", "GM"] + (["GM low"] if lower else [])             + ["PM deg", "Ms", "IAE"]
+        applied = [it for it in doc["proposals"] if it["applies"]]
+        ranked = sorted((it for it in applied if it["rank"]), key=lambda it: it["rank"])
+        rest = [it for it in applied if not it["rank"]]
+        items = ([doc["current"]] if doc.get("current") else []) + ranked + rest
+        lines.append(table([head] + [_row(it, lower) for it in items]))
+        cur = doc.get("current")
+        if cur and cur.get("margin_missing"):
+            lines.append(f"  current gains: no margins: {cur['margin_missing']}")
         own = set(doc["gain_names"])
-        for it in doc["proposals"]:
+        for it in applied:
             more = {k: v for k, v in it["gains"].items() if k not in own}
-            if it["applies"] and more:
+            if more:
                 lines.append(f"  {it['rule']} also sets " +
                              ", ".join(f"{k} = {v:.4g}" for k, v in more.items()))
+        if rest:
+            lines.append(f"not recommended (limits: GM >= {lim.get('gm_min', 2):g}, PM >= "
+                         f"{lim.get('pm_min_deg', 30):g} deg, Ms <= {lim.get('ms_max', 2):g}"
+                         + (f", lower GM <= {lim.get('gm_lower_max', 0.5):g}" if lower else "")
+                         + ", gains within the board's ranges):")
+            lines += [f"  {it['rule']}: " + "; ".join(it["not_recommended"]) for it in rest]
+        if not ranked:
+            lines.append("NOTHING RECOMMENDED: no proposal meets the limits (exit code 6)")
         skipped = [it for it in doc["proposals"] if not it["applies"]]
         if skipped:
             lines.append("does not apply:")
@@ -207,7 +185,7 @@ def tune_text(doc: dict) -> str:
     for n in doc.get("notes", []):
         lines.append(f"note: {n}")
     if doc.get("proposals_error"):
-        lines.append(f"no proposals: {doc['proposals_error']}")
+        lines.append(doc["proposals_error"])
     return "\n".join(lines)
 
 
@@ -224,8 +202,18 @@ def _which_loop_text(link) -> str:
 
 
 def run(args) -> int:
-    if args.max_seconds <= 0 or args.cycles < 1 or args.margin <= 0 or args.margin >= 90:
+    if (args.max_seconds is not None and args.max_seconds <= 0) or args.cycles < 1 \
+            or args.margin <= 0 or args.margin >= 90:
         raise CommandError(EXIT_USAGE, "--max-seconds > 0, --cycles >= 1, 0 < --margin < 90")
+    try:
+        config = AutotuneConfig(
+            relay=RelayConfig(amplitude=args.amplitude, hysteresis=args.hysteresis,
+                              bias=args.bias, max_s=args.max_seconds, cycles=args.cycles),
+            margin_deg=args.margin,
+            limits=RankLimits(gm_min=args.gm_min, gm_lower_max=args.gm_lower_max,
+                              pm_min_deg=args.pm_min, ms_max=args.ms_max))
+    except ValueError as exc:
+        raise CommandError(EXIT_USAGE, str(exc)) from None
     out_dir = None
     if args.out:
         out_dir = Path(args.out)
@@ -243,24 +231,14 @@ def run(args) -> int:
             raise CommandError(EXIT_USAGE, f"the board has no loop {loop!r}; it has: "
                                + ", ".join(link.loops))
         with experiment_run() as bar:
-            relay = run_relay(link, loop, amplitude=args.amplitude,
-                              hysteresis=args.hysteresis, bias=args.bias,
-                              max_s=args.max_seconds, cycles=args.cycles, progress=bar,
-                              results_dir=out_dir)
-        ps, error = None, None
-        if relay.converged:
-            try:
-                ps = propose(relay, margin_deg=args.margin)
-            except (ValueError, ArithmeticError) as exc:
-                error = str(exc)
-        doc = tune_document(relay, ps, simulated=link.simulated, error=error)
+            result = autotune(link, loop, config, progress=bar, results_dir=out_dir)
+        doc = tune_document(result, simulated=link.simulated)
     text = tune_text(doc)
     if out_dir is not None:
-        (out_dir / "tune.json").write_text(json.dumps(plain(doc), indent=2) + "\n")
-        (out_dir / "tune.md").write_text(f"# rigbench tune\n\n```\n{text}\n```\n")
+        write_text_atomic(out_dir / "tune.json", json.dumps(plain(doc), indent=2) + "\n")
+        write_text_atomic(out_dir / "tune.md", f"# rigbench tune\n\n```\n{text}\n```\n")
     if args.json:
         print_json(doc)
     else:
         print(text)
-    return exit_code_for(relay.stopped_by)
-
+    return result.exit_code

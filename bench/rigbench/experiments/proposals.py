@@ -29,17 +29,22 @@ Predictions, for every proposal that applies and for the board's current gains:
   amplitude (stable loops), or an input pulse as large as the output's swing in the relay
   test and a quarter period long (unstable loops); metrics per docs/METHODS.md §5 with a band
   of ``band_noise`` × the noise RMS measured in the quiet hold.
-Ranking: proposals the model predicts stable, those with Ms ≤ ``ms_max`` first, then by
-predicted IAE. Any proposal the model predicts unstable is marked and not ranked.
+Ranking (ranking.py): a proposal is recommended only when its margins meet the limits
+(GM ≥ 2, lower GM ≤ 0.5 for open-loop unstable loops, PM ≥ 30°, Ms ≤ 2; common practice,
+no source) — on the worst corner of the model's 2σ box where the fit gives standard
+errors — and its gains lie in the board's declared ranges; recommended ones are ranked
+by predicted IAE, the others listed with their reasons. Missing margins say why
+(``margin_missing``), a missing model says why (``ProposalSet.model_missing``).
 
-Must not import: textual, rigbench.ui, rigbench.commands, control.
+The rules take the ultimate point of the **sampled** loop (the board's rate; the model's
+−180° crossing with the discrete P controller) — the continuous one is reported beside it.
 """
 
 from __future__ import annotations
 
 import logging
 import math
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
@@ -53,7 +58,11 @@ from rigbench.base.units import si_factor
 
 from rigbench.experiments.balancefit import board_plant, fit_from_run, lqr_board_gains, simulate_state_feedback
 from rigbench.experiments.pointmodel import fit_process_model
+from rigbench.experiments.ranking import RankLimits, box_corners, judge_and_rank, \
+    robust_margins
 from rigbench.experiments.relay import RelayRun
+from rigbench.experiments.ultimate import model_ultimate as _model_ultimate, \
+    sampled_ultimate as _sampled_ultimate
 
 log = logging.getLogger(__name__)
 
@@ -80,6 +89,11 @@ class Rated:
     response: DisturbanceMetrics | None = None
     rank: int | None = None
     details: dict = field(default_factory=dict)
+    margin_missing: str = ""        # why there are no margins ('' when there are)
+    robust: object = None           # ranking.RobustMargins over the fit's 2σ box, or None
+    nominal_only: bool = False      # margins meet the limits on the nominal model only
+    recommended: bool | None = None
+    not_recommended: list = field(default_factory=list)   # reasons
 
 
 @dataclass
@@ -95,6 +109,12 @@ class ProposalSet:
     proposals: list
     disturbance: dict
     notes: list = field(default_factory=list)
+    limits: RankLimits = field(default_factory=RankLimits)
+    model_missing: str = ""         # why there is no model ('' when there is one)
+    static_consistent: bool | None = None   # model vs biased relay's ∫y/∫u; None: unchecked
+
+    def recommended(self) -> list:
+        return sorted((p for p in self.proposals if p.rank is not None), key=lambda p: p.rank)
 
     def best(self) -> Rated | None:
         ranked = [p for p in self.proposals if p.rank is not None]
@@ -119,29 +139,12 @@ def _from_proposal(p: Proposal, ls, scale: float = 1.0) -> Rated:
                  ParallelPid(kp, ki, kd).to_ideal() if kp else None, details=dict(p.details))
 
 
-def _model_ultimate(plant: PlantModel, omega_hint: float, direct: bool, span: float = 5.0):
-    """(ku, tu_s) where the model's phase (with the loop's sign) crosses −180°, or None."""
-    sign = -1.0 if direct else 1.0
-    w = np.geomspace(omega_hint / span, omega_hint * span, 4000)
-    ph = np.unwrap(np.angle(sign * plant.response(w)))
-    ph -= 2 * math.pi * round(float(ph[0]) / (2 * math.pi))
-    idx = np.flatnonzero(np.diff(np.sign(ph + math.pi)) != 0)
-    if not len(idx):
-        return None
-    i = min(idx, key=lambda j: abs(math.log(w[j] / omega_hint)))
-    # the crossing, linear in log ω between two grid points (0.2% apart)
-    x0, x1 = math.log(w[i]), math.log(w[i + 1])
-    y0, y1 = ph[i] + math.pi, ph[i + 1] + math.pi
-    wu = math.exp(x0 - y0 * (x1 - x0) / (y1 - y0)) if y1 != y0 else w[i]
-    return 1.0 / abs(complex(plant.response(np.array([wu]))[0])), 2 * math.pi / wu
-
-
 class _Judge:
     """Predicts margins and the disturbance response of gains on the model."""
 
     def __init__(self, run: RelayRun, plant, direct: bool, band: float, dist: dict, *,
-                 steps: int = 2000):
-        self.steps = steps
+                 steps: int = 2000, corners=(), missing: str = ""):
+        self.steps, self.corners, self.missing = steps, list(corners), missing
         ls = run.loop
         self.plant, self.direct, self.band, self.dist = plant, direct, band, dist
         self.h = run.board.dt_s if run.board else 0.002
@@ -151,15 +154,23 @@ class _Judge:
         self.rate_derivative = bool(ls.rate)
 
     def rate(self, item: Rated) -> None:
-        if not item.applies or self.plant is None:
+        if not item.applies:
+            return
+        if self.plant is None:
+            item.margin_missing = f"no model ({self.missing or 'not fitted'})"
             return
         ctrl = LoopController(item.kp, item.ki, item.kd, tf_s=self.tf, h_s=self.h,
                               direct_acting=self.direct, rate_derivative=self.rate_derivative)
         try:
-            item.margins = margins(ctrl, self.plant)
+            with np.errstate(divide="ignore", invalid="ignore"):
+                item.margins = margins(ctrl, self.plant)
         except (ValueError, np.linalg.LinAlgError, ZeroDivisionError) as exc:
             item.notes = f"{item.notes}; margins not computed: {exc}".strip("; ")
+            item.margin_missing = f"margins not computed: {exc}"
             return
+        if self.corners:
+            with np.errstate(divide="ignore", invalid="ignore"):
+                item.robust = robust_margins(lambda pl: margins(ctrl, pl), self.corners)
         item.predicted_stable = item.margins.stable
         if not item.predicted_stable:
             return
@@ -184,17 +195,22 @@ class _Judge:
                                    command_limit=self.limit, t0_s=self.dist["start_s"])
 
 
-def propose(run: RelayRun, *, margin_deg: float = 45.0, ms_max: float = 2.0,
-            band_noise: float = 3.0, fit_cutoff_hz: float = 8.0,
-            fit_ok: float = 0.05, df_tol_deg: float = 20.0) -> ProposalSet:
-    """Proposals for the loop of a converged relay run (see the module docstring)."""
+def propose(run: RelayRun, *, margin_deg: float = 45.0, limits: RankLimits | None = None,
+            ms_max: float | None = None, band_noise: float = 3.0, fit_cutoff_hz: float = 8.0,
+            fit_ok: float = 0.05, df_tol_deg: float = 20.0,
+            static_tol: float = 0.1) -> ProposalSet:
+    """Proposals for the loop of a converged relay run (see the module docstring).
+    ``ms_max`` (older callers) overrides ``limits.ms_max``."""
     if not run.converged or run.point is None:
         raise ValueError(f"no proposals: the relay test did not converge ({run.reason})")
+    limits = limits or RankLimits()
+    if ms_max is not None:
+        limits = replace(limits, ms_max=ms_max)
     ls, an = run.loop, run.analysis
     band = band_noise * max(run.noise_rms or 0.0, 1e-12)
     notes: list[str] = []
     if ls.relay == "integral" or ls.plant == "unstable":
-        return _propose_unstable(run, margin_deg, ms_max, band, fit_cutoff_hz, notes)
+        return _propose_unstable(run, margin_deg, limits, band, fit_cutoff_hz, notes)
     kind = "integrating" if ls.plant == "integrating" else "lag"
     static = run.static_gain if kind == "lag" else None
     model = fit_process_model(run.points, kind=kind, static_gain=static)
@@ -205,12 +221,38 @@ def propose(run: RelayRun, *, margin_deg: float = 45.0, ms_max: float = 2.0,
                      f"test measured a plant gain of sign {'−' if direct else '+'}, which "
                      f"needs {'direct' if direct else 'reverse'} action: the predictions "
                      "follow the measurement")
+    consistent = None
+    if static is not None:
+        # the model fitted to the frequency points alone must agree with the measured
+        # static gain; a right-half-plane zero, say, makes the points look like another gain
+        free = fit_process_model(run.points, kind=kind, static_gain=None)
+        off = abs(free.gain / static - 1.0) if static else math.inf
+        consistent = off <= static_tol
+        if not consistent:
+            notes.append(f"MODEL INCONSISTENT WITH THE DATA: fitted to the frequency points "
+                         f"alone its static gain is {free.gain:.4g}, the biased relay "
+                         f"measured ∫y/∫u = {static:.4g} ({100 * off:.0f}% off, > "
+                         f"{100 * static_tol:g}%); the model below is held to the measured "
+                         "gain, and its predicted margins are doubtful")
+    elif static is None and kind == "lag":
+        notes.append("static gain not measured (unbiased relay): the model's gain comes from "
+                     "the points alone and can be far off on a plant with a right-half-plane "
+                     "zero; run with --bias to check it (docs/METHODS.md §3)")
     point = run.point
     off = abs(((point.phase_deg + (180.0 if direct else 0.0)) + 180.0 + 180.0) % 360.0 - 180.0)
     mu = _model_ultimate(plant, point.omega_rad_s, direct) if model.fit_rms <= fit_ok else None
     ult = None
-    if mu is not None:
-        ult = {"ku": mu[0], "tu_s": mu[1],
+    h = run.board.dt_s if run.board else None
+    sampled = _sampled_ultimate(plant, h, direct) if mu is not None and h else None
+    if sampled is not None:
+        ult = {"ku": sampled[0], "tu_s": sampled[1],
+               "continuous": {"ku": mu[0], "tu_s": mu[1]},
+               "sampled": {"ku": sampled[0], "tu_s": sampled[1]},
+               "source": f"fitted model's −180° crossing in the loop sampled at the board's "
+                         f"rate (measured point {off:.1f}° away; continuous Ku {mu[0]:.4g}, "
+                         f"Tu {mu[1]:.4g} s)"}
+    elif mu is not None:
+        ult = {"ku": mu[0], "tu_s": mu[1], "continuous": {"ku": mu[0], "tu_s": mu[1]},
                "source": f"fitted model's −180° crossing (measured point {off:.1f}° away)"}
     elif off <= 3.0:
         ult = {"ku": 1.0 / point.gain, "tu_s": point.period_s,
@@ -244,9 +286,10 @@ def propose(run: RelayRun, *, margin_deg: float = 45.0, ms_max: float = 2.0,
             it.details["target_margin_deg"] = margin_deg
         judge.rate(it)
     current = _current(run, judge)
-    _rank(items, ms_max)
+    judge_and_rank(items, limits, params=run.board.params if run.board else None,
+                   unstable_plant=False)
     return ProposalSet(ls, kind, model.describe(), model, plant, direct, ult, current, items,
-                       dist, notes)
+                       dist, notes, limits, static_consistent=consistent)
 
 
 def _current(run: RelayRun, judge: _Judge) -> Rated | None:
@@ -263,15 +306,7 @@ def _current(run: RelayRun, judge: _Judge) -> Rated | None:
     return cur
 
 
-def _rank(items: list, ms_max: float) -> None:
-    ok = [p for p in items if p.applies and p.predicted_stable]
-    ok.sort(key=lambda p: (p.margins is None or p.margins.ms > ms_max,
-                           p.response.iae if p.response is not None else math.inf))
-    for i, p in enumerate(ok, 1):
-        p.rank = i
-
-
-def _propose_unstable(run, margin_deg, ms_max, band, cutoff_hz, notes) -> ProposalSet:
+def _propose_unstable(run, margin_deg, limits, band, cutoff_hz, notes) -> ProposalSet:
     ls, an, board = run.loop, run.analysis, run.board
     model, why = fit_from_run(run, cutoff_hz=cutoff_hz)
     plant = board_plant(model, ls) if model is not None else None
@@ -284,7 +319,14 @@ def _propose_unstable(run, margin_deg, ms_max, band, cutoff_hz, notes) -> Propos
     swing = 0.5 * float(np.ptp(res.column(ls.output)[sl])) if sl.stop > sl.start else 1.0
     dist = {"kind": "pulse", "amplitude": swing, "width_s": an.period_s / 4, "start_s": 0.0,
             "t_end_s": 15.0 * an.period_s, "at": "input"}
-    judge = _Judge(run, plant, direct, band, dist)
+    corners = []
+    if model is not None:
+        corners = [board_plant(m, ls) for m in box_corners(
+            model, {"a": model.a_sigma, "c_prime": model.c_prime_sigma,
+                    "tau_e_s": model.tau_e_sigma_s if model.tau_e_s else 0.0},
+            make=lambda **kw: replace(model, **kw))]
+    judge = _Judge(run, plant, direct, band, dist, corners=corners,
+                   missing="" if model is not None else why)
     items = [_from_proposal(p, ls) for p in
              propose_from_point(run.point, plant="unstable", margin_deg=margin_deg,
                                 direct_acting=direct)]
@@ -304,7 +346,8 @@ def _propose_unstable(run, margin_deg, ms_max, band, cutoff_hz, notes) -> Propos
         if it.rule != "lqr-nearest-pid":
             judge.rate(it)
     current = _current(run, judge)
-    _rank(items, ms_max)
+    judge_and_rank(items, limits, params=board.params if board else None,
+                   unstable_plant=True)
     text = "none"
     if model is not None:
         text = (f"a = {model.a:.4g} ± {model.a_sigma:.2g} rad/s, c' = {model.c_prime:.4g}, "
@@ -314,7 +357,8 @@ def _propose_unstable(run, margin_deg, ms_max, band, cutoff_hz, notes) -> Propos
     return ProposalSet(ls, f"balance-{model.drive}" if model else "none", text, model, plant,
                        direct, {"ku": None, "tu_s": an.period_s,
                                 "source": "no ultimate point: open-loop unstable"},
-                       current, items, dist, notes)
+                       current, items, dist, notes, limits,
+                       "" if model is not None else str(why))
 
 
 def _lqr_item(model, why, ls, board, judge: _Judge) -> Rated:

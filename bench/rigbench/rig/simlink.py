@@ -85,6 +85,8 @@ class SimLink:
                  **board_kw) -> None:
         self.options = options
         if board is None:
+            if options.plant_kind is not None:
+                board_kw["plant_kind"] = options.plant_kind
             board = make_board(options.rig, drive=options.drive, num=options.num,
                                den=options.den, delay_s=options.delay_s, seed=options.seed,
                                noise=options.noise, rate_hz=options.rate_hz,

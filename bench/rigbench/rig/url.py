@@ -2,11 +2,15 @@
 
     sim://balance[?drive=speed|torque]
     sim://wheel
-    sim://plant?num=1&den=1,3,3,1[&delay=0.5]
+    sim://plant?num=1&den=1,3,3,1[&delay=0.5][&plant=stable|integrating|unstable]
 
 Common options: ``seed`` (whole number ≥ 0, default 0), ``noise`` (scale of sensor noise,
 ≥ 0, default 1), ``rate`` (loop Hz, 10..10000, default 500), ``clock=real|virtual``
 (default real), ``state=PATH`` (file of the board's non-volatile storage).
+``plant`` (sim://plant only) is what the board declares for its loop (PROTOCOL.md §5.4);
+by default it follows the denominator's roots: a root in the right half-plane makes it
+``unstable`` (relay on the integral channel), else a root at 0 ``integrating``, else
+``stable``.
 Faults: ``corrupt=P`` and ``drop=P`` (probability per byte, 0..1, both directions),
 ``stall=AFTER:FOR`` (seconds: the board stops stepping and sending for FOR s),
 ``reset=AFTER`` (the board reboots), ``unplug=AFTER`` (the port goes away), ``dropkill=1``
@@ -29,7 +33,7 @@ __all__ = ["SimOptions", "parse_sim_url", "format_sim_url"]
 
 _COMMON = ("seed", "noise", "rate", "clock", "state", "corrupt", "drop", "stall", "reset",
            "unplug", "dropkill")
-_BY_RIG = {"balance": ("drive",), "wheel": (), "plant": ("num", "den", "delay")}
+_BY_RIG = {"balance": ("drive",), "wheel": (), "plant": ("num", "den", "delay", "plant")}
 _SEED_RE = re.compile(r"[0-9]{1,19}")
 
 
@@ -42,6 +46,7 @@ class SimOptions:
     num: tuple[float, ...] = (1.0,)
     den: tuple[float, ...] = (1.0, 1.0)
     delay_s: float = 0.0
+    plant_kind: str | None = None   # sim://plant: declared plant kind; None = from den
     seed: int = 0
     noise: float = 1.0
     rate_hz: float = 500.0
@@ -121,6 +126,11 @@ def parse_sim_url(url: str) -> SimOptions:
             kw["state_path"] = text
         elif key in ("num", "den"):
             kw[key] = _coefficients(key, text)
+        elif key == "plant":
+            if text not in ("stable", "integrating", "unstable"):
+                raise ValueError(f"sim:// option plant={text!r} must be stable, integrating "
+                                 "or unstable")
+            kw["plant_kind"] = text
         elif key == "delay":
             kw["delay_s"] = _number(key, text, 0.0, 100.0)
         elif key == "seed":
@@ -167,6 +177,8 @@ def format_sim_url(o: SimOptions) -> str:
         q.append(("den", ",".join(repr(v) for v in o.den)))
         if o.delay_s:
             q.append(("delay", repr(o.delay_s)))
+        if o.plant_kind is not None:
+            q.append(("plant", o.plant_kind))
     for key, attr in (("seed", "seed"), ("noise", "noise"), ("rate", "rate_hz"),
                       ("clock", "clock"), ("state", "state_path"), ("corrupt", "corrupt"),
                       ("drop", "drop"), ("reset", "reset_after_s"),

@@ -14,7 +14,6 @@ their predicted margins, the pushes of a sweep with their metrics).
   never settled makes ``settling_s_mean`` and ``settling_s_max`` infinite.
 
 Plain data only in the results (numbers, strings, lists, dicts), so it goes to YAML/JSON.
-Must not import textual, rigbench.ui, rigbench.commands, rigbench.link or control.
 """
 
 from __future__ import annotations
@@ -25,6 +24,7 @@ from pathlib import Path
 
 import numpy as np
 
+from rigbench.experiments.autotune import evaluate
 from rigbench.experiments.relay import noise_rms
 from rigbench.tuning.metrics import disturbance_metrics
 
@@ -107,12 +107,15 @@ def _rated(p) -> dict | None:
             "stable": p.predicted_stable,
             "state_feedback": "trim_loop" in p.details,
             "margins": None if p.margins is None else asdict(p.margins),
+            "margin_missing": p.margin_missing, "recommended": p.recommended,
+            "not_recommended": list(p.not_recommended), "nominal_only": p.nominal_only,
             "iae": None if r is None else r.iae,
             "peak": None if r is None else r.peak_abs_error}
 
 
-def relay_outcome(run, *, propose_kw: dict | None = None) -> tuple[dict, dict]:
-    """(metrics, data) of a relay run; proposals only when it converged."""
+def relay_outcome(run, *, config=None) -> tuple[dict, dict]:
+    """(metrics, data) of a relay run; proposals (rigbench.experiments.autotune.evaluate,
+    the flow the CLI and the UI use) only when it converged, else the reason."""
     an, ls, s = run.analysis, run.loop, run.settings
     point = run.point
     metrics = {
@@ -142,25 +145,25 @@ def relay_outcome(run, *, propose_kw: dict | None = None) -> tuple[dict, dict]:
         "operating_measure": run.operating_measure,
         "h_s": None if run.board is None else run.board.dt_s, "tf_s": ls.dfilt_s,
     }
-    if run.converged:
-        from rigbench.experiments.proposals import propose
-
-        try:
-            ps = propose(run, **(propose_kw or {}))
-        except (ValueError, ArithmeticError, np.linalg.LinAlgError) as exc:
-            data["proposals_error"] = str(exc)
-        else:
-            plant = ps.plant
-            data["model"] = {
-                "kind": ps.model_kind, "text": ps.model_text,
-                "num": None if plant is None else list(plant.num),
-                "den": None if plant is None else list(plant.den),
-                "delay_s": None if plant is None else plant.delay_s,
-                "direct_acting": ps.direct_acting}
-            data["ultimate"] = dict(ps.ultimate)
-            data["proposals"] = [_rated(p) for p in ps.proposals]
-            data["current"] = _rated(ps.current)
-            data["notes"] = list(ps.notes)
+    result = evaluate(run, config)
+    data["model_missing"] = result.model_missing
+    data["recommended"] = [p.rule for p in result.recommended]
+    if result.proposals is None:
+        if run.converged:
+            data["proposals_error"] = result.proposal_error
+    else:
+        ps = result.proposals
+        plant = ps.plant
+        data["model"] = {
+            "kind": ps.model_kind, "text": ps.model_text,
+            "num": None if plant is None else list(plant.num),
+            "den": None if plant is None else list(plant.den),
+            "delay_s": None if plant is None else plant.delay_s,
+            "direct_acting": ps.direct_acting}
+        data["ultimate"] = dict(ps.ultimate)
+        data["proposals"] = [_rated(p) for p in ps.proposals]
+        data["current"] = _rated(ps.current)
+        data["notes"] = list(ps.notes)
     return metrics, data
 
 

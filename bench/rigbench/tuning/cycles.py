@@ -72,6 +72,11 @@ def _series(name: str, x: np.ndarray, tol: float, noise_sigmas: float, floor: fl
     drift = abs(slope) * (n - 1) / scale
     se_drift = (n - 1) * sigma / math.sqrt(sii) / scale
     allowed = max(tol, floor / scale, noise_sigmas * se_drift)
+    steps = np.diff(x)
+    if np.all(steps > 0) or np.all(steps < 0):
+        # every change goes one way: a transient still under way (a slowly converging
+        # limit cycle inflates the noise estimate from its own differences), not noise
+        allowed = max(tol, floor / scale)
     scatter = float(np.std(x, ddof=1)) / scale
     return SeriesCheck(name, mean, scatter, scatter / math.sqrt(n), drift, allowed,
                        drift <= allowed and scatter <= max_scatter)

@@ -17,7 +17,8 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-__all__ = ["Margins", "assemble", "UNSTABLE", "NO_UPPER", "NO_LOWER", "NO_CROSSOVER"]
+__all__ = ["Margins", "assemble", "UNSTABLE", "NO_UPPER", "NO_LOWER", "NO_CROSSOVER",
+           "gain_margin_text"]
 
 UNSTABLE = "closed loop unstable"
 NO_UPPER = "no phase crossover above 1"
@@ -103,3 +104,17 @@ def assemble(stable: bool, method: str, wc, lc, crit, ms: float, *, notes: str =
     return Margins(bool(stable), _f(upper), _db(upper), _f(lower), _db(lower), _f(pm),
                    _f(wgc), _f(dm), float(ms), ms_db, _f(w_up), method, reasons,
                    int(drift_modes), notes)
+
+
+def gain_margin_text(value: float | None, reason: str = "") -> str:
+    """A gain margin as every screen and the CLI show it: the ratio with dB in brackets;
+    for a missing one ``inf`` when no phase crossover limits the gain, ``?`` when it was
+    not computed, ``none`` when the loop has no such margin (reason ``reason``)."""
+    import math
+    if value is None:
+        if reason == NO_UPPER:
+            return "inf"
+        return "?" if (not reason or reason.startswith("not computed")) else "none"
+    if not math.isfinite(value):
+        return "?"
+    return f"{value:.3g} ({20 * math.log10(value):.1f} dB)" if value > 0 else f"{value:.3g}"

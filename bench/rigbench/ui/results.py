@@ -7,7 +7,7 @@ Formatting only: every number comes from the domain result objects
 
 from __future__ import annotations
 
-from rigbench.tuning.margin_result import NO_UPPER
+from rigbench.tuning.margin_result import gain_margin_text
 
 
 def num(value, spec: str = ".4g", unit: str = "") -> str:
@@ -16,18 +16,19 @@ def num(value, spec: str = ".4g", unit: str = "") -> str:
     return f"{value:{spec}}" + (f" {unit}" if unit else "")
 
 
-def margins_text(m) -> str:
-    """Predicted margins of one gain set, short."""
+
+
+def margins_text(m, missing: str = "") -> str:
+    """Predicted margins of one gain set, short. ``missing``: why there are none."""
     if m is None:
-        return "not predicted"
+        return "not predicted" + (f": {missing}" if missing else "")
     if not m.stable:
-        return "UNSTABLE on the model"
-    # None is "unlimited" only when no phase crossover limits the gain; else not computed
-    up = (f"{m.gain_margin_upper_db:.1f}" if m.gain_margin_upper_db is not None
-          else "∞" if m.reason("gain_margin_upper") == NO_UPPER else "?")
-    low = f"/{m.gain_margin_lower_db:.1f}" if m.gain_margin_lower_db is not None else ""
-    pm = f"{m.phase_margin_deg:.0f}°" if m.phase_margin_deg is not None else "–"
-    return f"GM {up}{low} dB  PM {pm}  Ms {m.ms:.2f}"
+        return "UNSTABLE on the model"  # no phase margin for an unstable loop
+    low = (f", low {gain_margin_text(m.gain_margin_lower, m.reason('gain_margin_lower'))}"
+           if m.gain_margin_lower is not None else "")
+    pm = f"{m.phase_margin_deg:.0f}°" if m.phase_margin_deg is not None else "none"
+    up = gain_margin_text(m.gain_margin_upper, m.reason("gain_margin_upper"))
+    return f"GM {up}{low}  PM {pm}  Ms {m.ms:.2f}"
 
 
 def cycle_row(progress) -> tuple[str, ...] | None:
@@ -59,6 +60,11 @@ def relay_lines(outcome) -> list[str]:
         how = "sized automatically" if st.automatic else "as given"
         lines.append(f"relay amplitude {st.amplitude:.4g} ({how}), hysteresis "
                      f"{st.hysteresis:.3g} {run.loop.measure_unit}, bias {st.bias:.3g}")
+        if st.hysteresis_reason:
+            lines.append(f"hysteresis {st.hysteresis_reason}")
+        grown = [a for a in st.attempts if a.outcome != "kept"]
+        for a in grown:
+            lines.append(f"tried amplitude {a.amplitude:.4g}: {a.outcome}")
     if run.noise_rms is not None:
         lines.append(f"noise RMS in quiet hold {run.noise_rms:.3g} {run.loop.measure_unit}")
     an = run.analysis
@@ -76,9 +82,12 @@ def relay_lines(outcome) -> list[str]:
         lines.append(outcome.proposal_error or "no proposals")
     else:
         best = ps.best()
-        lines.append(f"model: {ps.model_text}")
+        lines.append(f"model: {ps.model_text}" + (f" — {ps.model_missing}"
+                                                  if ps.model_missing else ""))
         lines.append(f"{sum(1 for p in ps.proposals if p.applies)} proposals; best: "
-                     + (f"{best.rule} ({margins_text(best.margins)})" if best else "none")
+                     + (f"{best.rule} ({margins_text(best.margins)})" if best else
+                        "none recommended (no proposal meets the margin limits and the "
+                        "board's ranges; reasons on the Gains screen)")
                      + ". Gains screen (3) to compare and push.")
     return lines
 
@@ -94,8 +103,11 @@ def proposal_rows(proposal_set) -> list[tuple[str, ...]]:
         rank = "now" if p is cur else ("" if p.rank is None else str(p.rank))
         if p.applies:
             iae = getattr(p.response, "iae", None)
-            rows.append((rank, label, p.kind, num(p.kp), num(p.ki), num(p.kd),
-                         margins_text(p.margins), num(iae, ".3g"), p.notes[:40]))
+            why = "; ".join(p.not_recommended) if p is not cur else ""
+            rows.append((rank if p is cur or p.rank is not None else "no", label, p.kind,
+                         num(p.kp), num(p.ki), num(p.kd),
+                         margins_text(p.margins, p.margin_missing), num(iae, ".3g"),
+                         (why or p.notes)[:60]))
         else:
             rows.append((rank, label, p.kind, "", "", "", "", "", p.reason[:60]))
     return rows

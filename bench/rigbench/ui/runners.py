@@ -2,40 +2,26 @@
 App's ``experiment`` group, with a cancel flag (a ``threading.Event`` the App also sets on
 kill) and progress handed back through callbacks that post messages.
 
-The domain functions are found by name; one this build lacks is reported in words and
-nothing is simulated in its place.
-
-Must not import: rigbench.rig, serial, rigbench.ui.app.
+The relay test and its proposals run through the one autotune flow
+(rigbench.experiments.autotune), as in the CLI and sequences.
 """
 
 from __future__ import annotations
 
-import importlib
 import threading
-from dataclasses import dataclass
 
-# kind -> (module, function) of the domain runner
-RUNNERS = {
-    "relay": ("rigbench.experiments.relay", "run_relay"),
-    "sweep": ("rigbench.experiments.sweep", "run_sweep"),
-    "sequence": ("rigbench.sequences.run", "run_sequence"),
-}
+from rigbench.experiments.autotune import AutotuneConfig, AutotuneResult, autotune
+from rigbench.experiments.relay import RelayConfig
+from rigbench.experiments.sweep import run_sweep
+from rigbench.sequences.run import run_sequence
+
+# kind -> the domain function it runs
+RUNNERS = {"relay": autotune, "sweep": run_sweep, "sequence": run_sequence}
 
 
 def find(kind: str):
-    """The domain function for ``kind``, or None when this build lacks it."""
-    module_name, func = RUNNERS[kind]
-    try:
-        module = importlib.import_module(module_name)
-    except ImportError:
-        return None
-    return getattr(module, func, None)
-
-
-def missing_text(kind: str) -> str:
-    module_name, func = RUNNERS[kind]
-    return (f"not available in this build: {module_name}.{func} (the {kind} runner) is "
-            "missing, so nothing was started")
+    """The domain function for ``kind``."""
+    return RUNNERS[kind]
 
 
 def error_text(exc: BaseException) -> str:
@@ -45,38 +31,25 @@ def error_text(exc: BaseException) -> str:
     return f"{name}: {words}" if words else name
 
 
-@dataclass
-class RelayOutcome:
-    """A relay run and, when it converged, the proposals made from it."""
-
-    run: object  # rigbench.experiments.relay.RelayRun
-    proposals: object | None  # rigbench.experiments.proposals.ProposalSet
-    proposal_error: str = ""
-
-    @property
-    def loop_name(self) -> str:
-        return self.run.loop.name
+# the UI keeps the autotune result as the last relay outcome
+RelayOutcome = AutotuneResult
 
 
-def relay_and_proposals(link, *, loop: str, cancel, progress, **settings) -> RelayOutcome:
-    """Run the relay test, then propose gains from it (both domain calls)."""
-    from rigbench.experiments.proposals import propose
-
-    run = find("relay")(link, loop, cancel=cancel, progress=progress, **settings)
-    if not run.converged:
-        return RelayOutcome(run, None, f"no proposals: {run.stopped_by} ({run.reason})")
-    try:
-        return RelayOutcome(run, propose(run))
-    except Exception as exc:  # noqa: BLE001 - the measured run is still worth showing
-        return RelayOutcome(run, None, f"no proposals: {error_text(exc)}")
+def relay_and_proposals(link, *, loop: str, cancel, progress, margin_deg: float = 45.0,
+                        **settings) -> AutotuneResult:
+    """The autotune flow on ``loop``; ``settings`` are RelayConfig fields (None: default)."""
+    relay = RelayConfig(**{k: v for k, v in settings.items()
+                           if v is not None or getattr(RelayConfig, k, None) is None})
+    return autotune(link, loop, AutotuneConfig(relay=relay, margin_deg=margin_deg),
+                    cancel=cancel, progress=progress)
 
 
 def sweep(link, *, cancel, progress, gain_sets, **settings):
-    return find("sweep")(link, gain_sets, cancel=cancel, progress=progress, **settings)
+    return run_sweep(link, gain_sets, cancel=cancel, progress=progress, **settings)
 
 
 def sequence(link, *, cancel, progress, sequence):
-    return find("sequence")(link, sequence=sequence, cancel=cancel, progress=progress)
+    return run_sequence(link, sequence=sequence, cancel=cancel, progress=progress)
 
 
 CALLS = {"relay": relay_and_proposals, "sweep": sweep, "sequence": sequence}

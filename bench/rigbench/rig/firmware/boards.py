@@ -30,6 +30,8 @@ import math
 from collections.abc import Callable
 from dataclasses import dataclass, replace
 
+import numpy as np
+
 from rigbench.rig.plants.catalog import ComplementaryFilter, make_balance, make_plant, make_wheel
 from rigbench.wire.describe import LoopInfo
 
@@ -296,8 +298,25 @@ def _wheel() -> RigDef:
 
 # ----------------------------------------------------------------------------- plant
 
-def _plant(num=(1.0,), den=(1.0, 1.0), delay_s=0.0) -> RigDef:
+def plant_kind_of(den) -> str:
+    """'unstable' with a root of den in the right half-plane, else 'integrating' with a root
+    at 0, else 'stable' (tolerance 1e-9 of the largest root's size)."""
+    roots = np.roots(np.asarray(den, dtype=float))
+    if not len(roots):
+        return "stable"
+    tol = 1e-9 * max(1.0, float(np.max(np.abs(roots))))
+    if np.any(roots.real > tol):
+        return "unstable"
+    if np.any(np.abs(roots) <= max(tol, 1e-6)):
+        return "integrating"
+    return "stable"
+
+
+def _plant(num=(1.0,), den=(1.0, 1.0), delay_s=0.0, plant_kind=None) -> RigDef:
     P = ParamDef
+    kind = plant_kind or plant_kind_of(den)
+    if kind not in ("stable", "integrating", "unstable"):
+        raise ValueError(f"plant kind must be stable, integrating or unstable, got {kind!r}")
     params = (
         P("main_kp", "1", 0, 1000, 0.5), P("main_ki", "1/s", 0, 1000, 0.25),
         P("main_kd", "s", 0, 1000, 0.0), P("main_dfilt_s", "s", 0, 10, 0.01),
@@ -305,7 +324,8 @@ def _plant(num=(1.0,), den=(1.0, 1.0), delay_s=0.0) -> RigDef:
         P("trip_y", "1", 0, 1e6, 1000),
     )
     loops = (LoopDef("main", measure="y", output="u", gains=("main_kp", "main_ki", "main_kd"),
-                     plant="stable", relay="output", direct=True, setpoint="main_sp",
+                     plant=kind, relay="integral" if kind == "unstable" else "output",
+                     direct=True, setpoint="main_sp",
                      limit="u_limit", dfilt="main_dfilt_s", setpoint_signal="r"),)
     signals = (SignalDef("r", "1"), SignalDef("y", "1"), SignalDef("u", "1"),
                SignalDef("relay", "1"))
@@ -323,7 +343,8 @@ RIGS = ("balance", "wheel", "plant")
 
 
 def rig_def(rig: str = "balance", *, drive: str = "speed", num=(1.0,), den=(1.0, 1.0),
-            delay_s: float = 0.0, rate_hz: float = 500.0) -> RigDef:
+            delay_s: float = 0.0, rate_hz: float = 500.0,
+            plant_kind: str | None = None) -> RigDef:
     """The declaration of rig ``rig``; ``drive`` for balance, ``num/den/delay_s`` for plant."""
     if rig == "balance":
         if drive not in ("speed", "torque"):
@@ -332,7 +353,7 @@ def rig_def(rig: str = "balance", *, drive: str = "speed", num=(1.0,), den=(1.0,
     elif rig == "wheel":
         rd = _wheel()
     elif rig == "plant":
-        rd = _plant(num, den, delay_s)
+        rd = _plant(num, den, delay_s, plant_kind)
     else:
         raise ValueError(f"unknown rig {rig!r}; known: {', '.join(RIGS)}")
     if not (math.isfinite(rate_hz) and rate_hz > 0):
