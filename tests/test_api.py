@@ -32,8 +32,9 @@ def test_the_readme_example_runs(tmp_path):
     assert proc.returncode == 0, proc.stderr[-3000:]
     lines = proc.stdout.splitlines()
     assert lines[0].startswith("relay test: converged, Ku ")
+    # e^(-0.5s)/(s+1)^3: three proposals meet the ranking limits (docs/METHODS.md §2)
     assert len(lines) == 5 and all("phase margin" in ln for ln in lines[1:4])
-    assert lines[4].startswith("recorded ") and "wheel" in lines[4]
+    assert lines[4].startswith("recorded ") and " y," in lines[4]
     assert list((tmp_path / "results" / "api-demo").glob("*.csv"))
 
 

@@ -9,6 +9,10 @@
 - ``Link.open(url)`` opens a port (device path, any pyserial URL, ``sim://``, ``replay://``)
   and handshakes; ``with`` closes it (the motor state is left as the board has it).
   Errors: ``LinkError`` (port, lost link, no reply), ``BoardRefused`` (the board said no).
+- ``autotune(link, loop, config)`` is the one autotune flow the CLI, the UI and sequences
+  use: the relay test and the proposals, ranked with their margins; ``result.recommended``
+  lists the proposals that meet the limits, ``result.to_dict()`` is ``tune --json``'s
+  document, and every missing figure carries its reason.
 - ``run_relay(link, loop, ...)`` arms the board and runs a guarded relay test (on a real
   rig it moves the motor: ask the user first); it returns a ``RelayRun``:
   ``converged``, ``ku``, ``tu_s`` (s), ``point`` (gain, ``phase_deg``, ``omega_rad_s``);
@@ -31,6 +35,7 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from rigbench.experiments.autotune import AutotuneConfig, AutotuneResult, autotune
 from rigbench.experiments.proposals import ProposalSet, Rated, propose
 from rigbench.experiments.relay import RelayRun, run_relay
 from rigbench.experiments.runner import ArmRefused, Guards
@@ -42,6 +47,7 @@ from rigbench.recordings.recording import Recorder, Recording, RecordingError, l
 
 __all__ = [
     "Link", "LinkError", "BoardRefused", "register_url_handlers",
+    "autotune", "AutotuneConfig", "AutotuneResult",
     "run_relay", "RelayRun", "Guards", "ArmRefused", "propose", "ProposalSet", "Rated",
     "load_recording", "Recording", "RecordingError", "Recorder", "recording_frame",
     "load_profile", "save_profile", "profile_from_board", "push_profile", "Profile",

@@ -7,7 +7,8 @@ from types import SimpleNamespace
 from rigbench.experiments.ranking import RankLimits, judge_and_rank
 from rigbench.experiments.proposals import Rated
 from rigbench.tuning.margins import Margins
-from rigbench.ui.results import gm_text, margins_text, proposal_rows, relay_lines
+from rigbench.tuning.margin_result import NO_UPPER, gain_margin_text
+from rigbench.ui.results import margins_text, proposal_rows, relay_lines
 
 WHY = ("model fit failed: driver lag not identified from this record: α = 1.1786 ± 0.0027, "
        "but a lag needs 0 < α < 1")
@@ -49,6 +50,10 @@ def test_the_missing_model_and_margins_are_explained():
 
 def test_gain_margin_as_a_ratio_with_db_and_no_phase_margin_when_unstable():
     # 20·log10(2) = 6.02 dB (definition of the decibel)
-    assert gm_text(2.0) == "2 (6.0 dB)" and gm_text(None) == "inf"
+    assert gain_margin_text(2.0) == "2 (6.0 dB)"
+    # a missing margin says which kind of missing it is (the CLI and the UI share this)
+    assert gain_margin_text(None, NO_UPPER) == "inf"
+    assert gain_margin_text(None, "not computed: no convergence") == "?"
+    assert gain_margin_text(None, "open-loop stable: no lower limit") == "none"
     assert "PM" not in margins_text(_margins(stable=False))
     assert margins_text(_margins(gm=2.0)).startswith("GM 2 (6.0 dB)")
