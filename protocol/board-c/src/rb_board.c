@@ -366,7 +366,7 @@ rb_decl_error rb_init(rb_board *b, const rb_rig *rig, const rb_port *port,
     b->rig = &b->rig_copy;
     b->port = *port;
     b->out_reply.s = (char *)b->last_line + 1;   /* built in place, framed there */
-    b->out_event.s = b->buf.ev;
+    b->out_event.s = b->buf.ev + 1;
     clear_fault(b);
     err = check_rig(b);
     if (err != RB_DECL_OK) {

@@ -231,57 +231,54 @@ typedef uint32_t rb_tx_index;
 #endif
 
 typedef struct rb_board {
+    /* small fields first: on 8-bit cores a field within 64 bytes of the start is one
+     * instruction away, one further out four */
     const rb_rig *rig;          /* &rig_copy once rb_init accepted it, NULL before */
-    rb_rig rig_copy;            /* the declaration's top level, read once (it may be in flash) */
-    rb_port port;
-    rb_loop_ix lx[RB_MAX_LOOPS];
-    rb_pid_state pid[RB_MAX_LOOPS];
-    rb_limit limits[RB_MAX_LIMITS];
-    uint8_t n_limits;
-    rb_mode_run mode;
     uint8_t motor;              /* rb_motor */
-    uint8_t has_fault;
-    char fault[40];             /* latched trip cause; "none" when none */
-    const char *decl_error;     /* what rb_init refused, NULL when it did not */
+    uint8_t has_fault, hb_seen, has_last, n_limits;
     int8_t command_sig, relay_sig;
-    rb_real dt_s, pending_cmd;
+    /* receive: an interrupt-safe ring, then the line assembler */
+    volatile rb_rx_index rx_head, rx_tail;  /* written by one side each: no lock needed */
+    volatile uint8_t kill_pending;          /* set by the interrupt, cleared by rb_poll */
+    volatile uint8_t rx_lost;               /* bytes the full ring refused (wraps) */
+    uint8_t rx_lost_seen, line_len, rx_state;
+    rb_tx_index tx_head, tx_used;
     uint32_t periods;           /* rb_step calls since boot */
     uint32_t status_every, stream_div;
     uint32_t frame, drops, rx_err;
     uint32_t boot_us, hb_us;
-    uint8_t hb_seen;
-    /* receive: an interrupt-safe ring, then the line assembler */
-    volatile uint8_t rx_ring[RB_RX_RING];
-    volatile rb_rx_index rx_head, rx_tail;  /* written by one side each: no lock needed */
-    volatile uint8_t kill_pending;          /* set by the interrupt, cleared by rb_poll */
-    volatile uint8_t rx_lost;               /* bytes the full ring refused (wraps) */
-    uint8_t rx_lost_seen;
-    uint8_t line[RB_MAX_LINE];
-    uint8_t line_len;
-    uint8_t rx_state;
+    rb_real dt_s, pending_cmd;
     const char *last_rx_error;  /* code of the last unreadable frame (diagnostics) */
+    const char *decl_error;     /* what rb_init refused, NULL when it did not */
     /* last answered command (§4.2): its reply is built in place in last_line and kept
      * there as a whole frame for a resend */
-#if RB_KEEP_LAST_BODY
-    char last_body[RB_MAX_BODY + 1];
-#else
+    uint16_t last_seq;
+    uint8_t last_body_len, last_line_len;
+#if !RB_KEEP_LAST_BODY
     uint16_t last_body_crc;
 #endif
-    uint8_t last_body_len;
+    rb_line out_reply, out_event;
+    rb_port port;
+    rb_mode_run mode;
+    rb_rig rig_copy;            /* the declaration's top level, read once (it may be in flash) */
+    rb_loop_ix lx[RB_MAX_LOOPS];
+    rb_pid_state pid[RB_MAX_LOOPS];
+    rb_limit limits[RB_MAX_LIMITS];
+    char fault[40];             /* latched trip cause; "none" when none */
+    volatile uint8_t rx_ring[RB_RX_RING];
+    uint8_t line[RB_MAX_LINE];
+#if RB_KEEP_LAST_BODY
+    char last_body[RB_MAX_BODY + 1];
+#endif
     uint8_t last_line[RB_MAX_LINE];
-    uint8_t last_line_len;
-    uint16_t last_seq;
-    uint8_t has_last;
-    /* transmit */
-    uint8_t tx[RB_TX_SIZE];
-    rb_tx_index tx_head, tx_used;
-    /* events, telemetry and status are built in ev; the stored image uses the same bytes
-     * while it is read or written (never at the same time as an event) */
+    /* events, telemetry and status are built in ev, from ev + 1 on, so that the frame is
+     * completed around the body in place; the stored image uses the same bytes while it
+     * is read or written (never at the same time as an event) */
     union {
-        char ev[RB_MAX_BODY + 1];
+        char ev[RB_MAX_LINE];
         uint8_t nv[RB_NV_MAX];
     } buf;
-    rb_line out_reply, out_event;
+    uint8_t tx[RB_TX_SIZE];     /* transmit */
 } rb_board;
 
 /* Check the declaration, load stored parameters, send `ev boot`. Returns RB_DECL_OK or
@@ -313,6 +310,9 @@ const char *rb_fault_word(const rb_board *b);     /* "none" when no fault is lat
 uint32_t rb_rx_errors(const rb_board *b);
 uint32_t rb_tx_drops(const rb_board *b);
 const char *rb_last_rx_error(const rb_board *b);  /* "none" or a §2-§3 error code */
+/* Copy one of the words above into RAM (wherever it is kept) as a '\0'-ended string;
+ * returns its length (cut to cap - 1). */
+size_t rb_text_copy(char *out, size_t cap, const char *word);
 /* Trip from your own code (a limit switch, an over-current comparator): motor off, the
  * cause latched and reported as `ev trip cause=<cause>` (a name, <= 32 characters).
  * Main context only (like rb_poll and rb_step), not from an interrupt: for a hardware

@@ -808,7 +808,7 @@ void rb_command(rb_board *b, const char *body, size_t n)
     /* §4.2: the same sequence number and the same body as the last command answered: the
      * stored reply, already a frame, goes out again */
     if (same_as_last(b, c.seq, body, n)) {
-        rb_tx_put_frame(b, b->last_line, b->last_line_len);
+        rb_tx_put_frame(b, b->last_line, b->last_line_len, RB_TX_REPLY);
         return;
     }
     b->has_last = 0;          /* its reply is overwritten now (a trip must not rewrite it) */
@@ -838,5 +838,5 @@ void rb_command(rb_board *b, const char *body, size_t n)
     b->has_last = 1;
     b->last_line_len = (uint8_t)rb_frame((char *)b->last_line, sizeof b->last_line,
                                          c.reply->s, c.reply->n);
-    rb_tx_put_frame(b, b->last_line, b->last_line_len);
+    rb_tx_put_frame(b, b->last_line, b->last_line_len, RB_TX_REPLY);
 }

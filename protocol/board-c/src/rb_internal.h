@@ -79,7 +79,7 @@ void rb_ln_kv_ram(rb_line *l, const char *rom_key, const char *s, size_t n);
 void rb_ln_kv_u32(rb_line *l, const char *rom_key, uint32_t v);
 void rb_ln_kv_num(rb_line *l, const char *rom_key, rb_real v);   /* 7 significant digits */
 int rb_tx_put(rb_board *b, const rb_line *l, rb_tx_kind kind);  /* 0: dropped */
-int rb_tx_put_frame(rb_board *b, const uint8_t *frame, size_t n);
+int rb_tx_put_frame(rb_board *b, const uint8_t *frame, size_t n, rb_tx_kind kind);
 void rb_tx_flush(rb_board *b);
 void rb_event(rb_board *b, rb_line *l);               /* l started with rb_ev_start */
 rb_line *rb_ev_start(rb_board *b, const char *rom_kind);

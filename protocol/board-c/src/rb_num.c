@@ -151,15 +151,6 @@ typedef struct {
 static const uint32_t POW10[10] = {1u, 10u, 100u, 1000u, 10000u, 100000u, 1000000u,
                                    10000000u, 100000000u, 1000000000u};
 
-static void big_set32(big *b, uint32_t v)
-{
-    b->n = 0;
-    while (v) {
-        b->d[b->n++] = (limb)v;
-        v = (uint32_t)((wide)v >> LIMB_BITS);
-    }
-}
-
 static void big_mul_small(big *b, limb f)
 {
     wide carry = 0;
@@ -265,28 +256,22 @@ static int big_div_pow10(big *b, int k)
     return lost;
 }
 
-static int big_bitlen(const big *b)
+static int bitlen32(uint32_t v)
 {
-    int n;
-    limb top;
-    if (b->n == 0)
-        return 0;
-    n = (b->n - 1) * LIMB_BITS;
-    for (top = b->d[b->n - 1]; top; top = (limb)(top >> 1))
-        n++;
-    return n;
+    /* bits needed for v: a binary search, the same on every compiler */
+    int n = 0;
+    if (v >= 0x10000u) { v >>= 16; n += 16; }
+    if (v >= 0x100u) { v >>= 8; n += 8; }
+    if (v >= 0x10u) { v >>= 4; n += 4; }
+    if (v >= 0x4u) { v >>= 2; n += 2; }
+    if (v >= 0x2u) { v >>= 1; n += 1; }
+    return n + (int)v;
 }
 
-#if RB_DOUBLE64
-static void big_set64(big *b, uint64_t v)
+static int big_bitlen(const big *b)
 {
-    b->n = 0;
-    while (v) {
-        b->d[b->n++] = (limb)v;
-        v >>= LIMB_BITS;
-    }
+    return b->n == 0 ? 0 : (b->n - 1) * LIMB_BITS + bitlen32(b->d[b->n - 1]);
 }
-#endif
 
 static uint32_t big_low32(const big *b)
 {
@@ -305,23 +290,71 @@ static int32_t floor_log10_pow2(int32_t L)
 
 /* ------------------------------------------------------------------ writing */
 
-/* "%.*g" of (neg ? -1 : 1) * B * 2^e2 with B > 0 (B is consumed); see the file comment */
-static size_t format_big(char *out, size_t cap, int neg, big *B, int e2, int digits)
+#if RB_DOUBLE64
+typedef uint64_t mant;                /* a significand with its leading bit */
+#else
+typedef uint32_t mant;
+#endif
+
+#if LIMB_BITS == 32
+/* The usual telemetry value (1e-19 < |v| < 1e8 or so) in 64-bit arithmetic:
+ * floor(m * 10^k / 2^s) and whether anything non-zero was cut off, for m < 2^53,
+ * 0 <= k <= 19, 1 <= s <= 127, when the result is known to be below 2^32. */
+static uint32_t scale_fast(uint64_t m, int k, int s, int *sticky)
 {
-    char tmp[24], dig[8];
-    int32_t X = floor_log10_pow2((int32_t)(e2 + big_bitlen(B) - 1));
+    static const uint64_t P10[20] = {
+        1ull, 10ull, 100ull, 1000ull, 10000ull, 100000ull, 1000000ull, 10000000ull,
+        100000000ull, 1000000000ull, 10000000000ull, 100000000000ull, 1000000000000ull,
+        10000000000000ull, 100000000000000ull, 1000000000000000ull, 10000000000000000ull,
+        100000000000000000ull, 1000000000000000000ull, 10000000000000000000ull};
+    uint64_t p = P10[k], ml = m & 0xFFFFFFFFu, mh = m >> 32, pl = p & 0xFFFFFFFFu, ph = p >> 32;
+    uint64_t ll = ml * pl, lh = ml * ph, hl = mh * pl, hh = mh * ph;
+    uint64_t mid = (ll >> 32) + (lh & 0xFFFFFFFFu) + (hl & 0xFFFFFFFFu);
+    uint64_t lo = (ll & 0xFFFFFFFFu) | (mid << 32);
+    uint64_t hi = hh + (lh >> 32) + (hl >> 32) + (mid >> 32);   /* m * p = hi:lo */
+    if (s >= 64) {
+        s -= 64;
+        *sticky = lo != 0 || (hi & ((1ull << s) - 1u)) != 0;
+        return (uint32_t)(hi >> s);
+    }
+    *sticky = (lo & ((1ull << s) - 1u)) != 0;
+    return (uint32_t)((lo >> s) | (hi << (64 - s)));
+}
+#endif
+
+/* "%.*g" of (neg ? -1 : 1) * m * 2^e2, m > 0 with `bits` significant bits; see the file
+ * comment */
+static size_t format_mant(char *out, size_t cap, int neg, mant m, int bits, int e2,
+                          int digits)
+{
+    char dig[8], tmp[RB_NUM_TEXT], *o = cap >= RB_NUM_TEXT ? out : tmp;
+    int32_t X = floor_log10_pow2((int32_t)(e2 + bits - 1));
     int k = digits - (int)X, sticky = 0, nd, i, d;
     uint32_t T, N;
     size_t len = 0;
-    if (k > 0)
-        big_mul_pow10(B, k);
-    if (e2 > 0)
-        big_shl(B, e2);
-    else if (e2 < 0)
-        sticky = big_shr(B, -e2);
-    if (k < 0)
-        sticky |= big_div_pow10(B, -k);
-    T = big_low32(B);                     /* 10^digits <= T < 10^(digits+2) */
+#if LIMB_BITS == 32
+    if (k >= 0 && k <= 19 && e2 < 0 && e2 > -128) {
+        T = scale_fast((uint64_t)m, k, -e2, &sticky);
+    } else
+#endif
+    {
+        big B;
+        B.n = 0;
+        while (m) {
+            B.d[B.n++] = (limb)m;
+            m = (m >> (LIMB_BITS / 2)) >> (LIMB_BITS / 2);   /* no shift by the full width */
+        }
+        if (k > 0)
+            big_mul_pow10(&B, k);
+        if (e2 > 0)
+            big_shl(&B, e2);
+        else if (e2 < 0)
+            sticky = big_shr(&B, -e2);
+        if (k < 0)
+            sticky |= big_div_pow10(&B, -k);
+        T = big_low32(&B);
+    }
+    /* 10^digits <= T < 10^(digits+2) */
     if (T >= POW10[digits + 1]) {         /* v >= 10^(X+1): one digit more than wanted */
         sticky |= T % 10u != 0;
         T /= 10u;
@@ -335,57 +368,55 @@ static size_t format_big(char *out, size_t cap, int neg, big *B, int e2, int dig
         N /= 10u;
         X++;
     }
-    nd = digits;
-    while (nd > 1 && N % 10u == 0) {      /* %g drops trailing zeros */
-        N /= 10u;
-        nd--;
+    for (nd = digits; nd > 1 && N % 10u == 0; nd--)
+        N /= 10u;                         /* %g drops trailing zeros */
+    for (i = nd - 1; i > 0; i--) {
+        uint32_t q = N / 10u;
+        dig[i] = (char)('0' + (N - q * 10u));
+        N = q;
     }
-    for (i = nd - 1; i >= 0; i--) {
-        dig[i] = (char)('0' + N % 10u);
-        N /= 10u;
-    }
+    dig[0] = (char)('0' + N);
     if (neg)
-        tmp[len++] = '-';
+        o[len++] = '-';
     if (X < -4 || X >= digits) {          /* d.ddde-X */
         int32_t ax = X < 0 ? -X : X;
-        char ex[6];
-        int ne = 0;
-        tmp[len++] = dig[0];
+        o[len++] = dig[0];
         if (nd > 1) {
-            tmp[len++] = '.';
-            memcpy(tmp + len, dig + 1, (size_t)(nd - 1));
-            len += (size_t)(nd - 1);
+            o[len++] = '.';
+            for (i = 1; i < nd; i++)
+                o[len++] = dig[i];
         }
-        tmp[len++] = 'e';
+        o[len++] = 'e';
         if (X < 0)
-            tmp[len++] = '-';
-        do {
-            ex[ne++] = (char)('0' + ax % 10);
-            ax /= 10;
-        } while (ax);
-        while (ne > 0)
-            tmp[len++] = ex[--ne];
+            o[len++] = '-';
+        if (ax >= 100)
+            o[len++] = (char)('0' + ax / 100);
+        if (ax >= 10)
+            o[len++] = (char)('0' + ax / 10 % 10);
+        o[len++] = (char)('0' + ax % 10);
     } else if (X >= 0) {                  /* ddd.ddd or ddd000 */
         int whole = (int)X + 1;
         for (i = 0; i < whole; i++)
-            tmp[len++] = i < nd ? dig[i] : '0';
+            o[len++] = i < nd ? dig[i] : '0';
         if (nd > whole) {
-            tmp[len++] = '.';
-            memcpy(tmp + len, dig + whole, (size_t)(nd - whole));
-            len += (size_t)(nd - whole);
+            o[len++] = '.';
+            for (i = whole; i < nd; i++)
+                o[len++] = dig[i];
         }
     } else {                              /* 0.000ddd */
-        tmp[len++] = '0';
-        tmp[len++] = '.';
+        o[len++] = '0';
+        o[len++] = '.';
         for (i = 0; i < -1 - (int)X; i++)
-            tmp[len++] = '0';
-        memcpy(tmp + len, dig, (size_t)nd);
-        len += (size_t)nd;
+            o[len++] = '0';
+        for (i = 0; i < nd; i++)
+            o[len++] = dig[i];
     }
-    if (len + 1 > cap)
-        return 0;
-    memcpy(out, tmp, len);
-    out[len] = '\0';
+    o[len] = '\0';                       /* len < RB_NUM_TEXT: "-1.234567e-308" */
+    if (o == tmp) {
+        if (len + 1 > cap)
+            return 0;
+        memcpy(out, tmp, len + 1);
+    }
     return len;
 }
 
@@ -401,40 +432,29 @@ static size_t format_zero(char *out, size_t cap)
 static size_t format_f32(char *out, size_t cap, uint32_t bits, int digits)
 {
     uint32_t m = bits & 0x7FFFFFu;
-    int ex = (int)((bits >> 23) & 0xFFu), e2;
-    big B;
+    int ex = (int)((bits >> 23) & 0xFFu);
     if (ex == 0xFF || digits < 1 || digits > RB_MAX_DIGITS)
         return 0;                             /* inf or nan */
     if (ex == 0 && m == 0)
         return format_zero(out, cap);
-    if (ex == 0)
-        e2 = -149;                            /* subnormal */
-    else {
-        m |= 0x800000u;
-        e2 = ex - 150;
-    }
-    big_set32(&B, m);
-    return format_big(out, cap, (int)(bits >> 31), &B, e2, digits);
+    if (ex == 0)                              /* subnormal */
+        return format_mant(out, cap, (int)(bits >> 31), m, bitlen32(m), -149, digits);
+    return format_mant(out, cap, (int)(bits >> 31), m | 0x800000u, 24, ex - 150, digits);
 }
 
 #if RB_DOUBLE64
 static size_t format_f64(char *out, size_t cap, uint64_t bits, int digits)
 {
     uint64_t m = bits & 0xFFFFFFFFFFFFFull;
-    int ex = (int)((bits >> 52) & 0x7FFu), e2;
-    big B;
+    int ex = (int)((bits >> 52) & 0x7FFu), n;
     if (ex == 0x7FF || digits < 1 || digits > RB_MAX_DIGITS)
         return 0;
     if (ex == 0 && m == 0)
         return format_zero(out, cap);
-    if (ex == 0)
-        e2 = -1074;
-    else {
-        m |= 1ull << 52;
-        e2 = ex - 1075;
-    }
-    big_set64(&B, m);
-    return format_big(out, cap, (int)(bits >> 63), &B, e2, digits);
+    if (ex != 0)
+        return format_mant(out, cap, (int)(bits >> 63), m | (1ull << 52), 53, ex - 1075, digits);
+    n = m >> 32 ? 32 + bitlen32((uint32_t)(m >> 32)) : bitlen32((uint32_t)m);
+    return format_mant(out, cap, (int)(bits >> 63), m, n, -1074, digits);
 }
 #endif
 

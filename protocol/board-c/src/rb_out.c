@@ -47,22 +47,33 @@ void rb_ln_word(rb_line *l, const char *rom)
 
 void rb_ln_u32(rb_line *l, uint32_t v)
 {
-    char tmp[11];
-    tmp[0] = ' ';
-    rb_ln_raw(l, tmp, 1 + rb_u32_text(tmp + 1, v));
+    if (l->overflow || l->n + 11u > RB_MAX_BODY) {   /* " 4294967295" */
+        char tmp[11];
+        tmp[0] = ' ';
+        rb_ln_raw(l, tmp, 1 + rb_u32_text(tmp + 1, v));
+        return;
+    }
+    l->s[l->n] = ' ';
+    l->n = (uint8_t)(l->n + 1u + rb_u32_text(l->s + l->n + 1, v));
 }
 
 void rb_ln_num(rb_line *l, rb_real v, int digits)
 {
+    /* written in place when there is room for the longest number, else through a copy */
     char tmp[RB_NUM_TEXT + 1];
+    int direct = !l->overflow && l->n + 1u + RB_NUM_TEXT <= RB_MAX_BODY + 1u;
+    char *at = direct ? l->s + l->n : tmp;
     size_t n;
-    tmp[0] = ' ';
-    n = rb_format_real(tmp + 1, sizeof tmp - 1, v, digits);
+    at[0] = ' ';
+    n = rb_format_real(at + 1, RB_NUM_TEXT, v, digits);
     if (n == 0) {
         l->overflow = 1;      /* not finite: the message cannot be sent */
         return;
     }
-    rb_ln_raw(l, tmp, n + 1);
+    if (direct)
+        l->n = (uint8_t)(l->n + n + 1u);
+    else
+        rb_ln_raw(l, tmp, n + 1);
 }
 
 static void kv_key(rb_line *l, const char *rom_key)
@@ -130,30 +141,25 @@ static int tx_room(rb_board *b, size_t n, rb_tx_kind kind)
 
 int rb_tx_put(rb_board *b, const rb_line *l, rb_tx_kind kind)
 {
-    uint8_t tail[6];
+    /* every line's buffer has a byte before the body and 6 after it (rb_board.h), so the
+     * frame is completed in place and copied once */
+    uint8_t *f = (uint8_t *)l->s - 1;
     size_t i;
-    rb_tx_index at;
     if (l->overflow || l->n == 0)
         return 0;
     if (kind != RB_TX_TELEMETRY)     /* telemetry is only numbers the library wrote */
         for (i = 0; i < l->n; i++)
             if (!rb_body_char((uint8_t)l->s[i]))
                 return 0;
-    if (!tx_room(b, (size_t)l->n + 7u, kind))   /* '@' body '|' four hex digits '\n' */
-        return 0;
-    rb_crc_tail(tail, rb_crc16((const uint8_t *)l->s, l->n));
-    at = (rb_tx_index)((b->tx_head + b->tx_used) % RB_TX_SIZE);
-    ring_put(b, &at, (const uint8_t *)"@", 1);
-    ring_put(b, &at, (const uint8_t *)l->s, l->n);
-    ring_put(b, &at, tail, sizeof tail);
-    b->tx_used = (rb_tx_index)(b->tx_used + l->n + 7u);
-    return 1;
+    f[0] = '@';
+    rb_crc_tail(f + 1 + l->n, rb_crc16(f + 1, l->n));
+    return rb_tx_put_frame(b, f, (size_t)l->n + 7u, kind);
 }
 
-int rb_tx_put_frame(rb_board *b, const uint8_t *frame, size_t n)
+int rb_tx_put_frame(rb_board *b, const uint8_t *frame, size_t n, rb_tx_kind kind)
 {
     rb_tx_index at;
-    if (n == 0 || !tx_room(b, n, RB_TX_REPLY))
+    if (n == 0 || !tx_room(b, n, kind))
         return 0;
     at = (rb_tx_index)((b->tx_head + b->tx_used) % RB_TX_SIZE);
     ring_put(b, &at, frame, n);

@@ -214,14 +214,18 @@ int rb_rom_find(const char *list, const char *s, size_t n)
 
 size_t rb_u32_text(char *out, uint32_t v)
 {
-    char tmp[10];
-    size_t n = 0, i;
-    do {
-        tmp[n++] = (char)('0' + v % 10u);
-        v /= 10u;
-    } while (v);
-    for (i = 0; i < n; i++)
-        out[i] = tmp[n - 1 - i];
+    size_t n = 1, i;
+    uint32_t t = 10u;
+    while (n < 10 && v >= t) {       /* digits: 10^(n-1) <= v < 10^n */
+        n++;
+        t *= 10u;
+    }
+    for (i = n; i > 1; i--) {
+        uint32_t q = v / 10u;
+        out[i - 1] = (char)('0' + (v - q * 10u));
+        v = q;
+    }
+    out[0] = (char)('0' + v);
     return n;
 }
 
@@ -243,4 +247,10 @@ int rb_split(const char *body, size_t n, rb_tok *toks, int max_toks)
         }
     }
     return count;
+}
+
+size_t rb_text_copy(char *out, size_t cap, const char *word)
+{
+    size_t n = rb_rom_copy(out, cap, word);
+    return n < cap ? n : cap - 1;
 }
