@@ -239,7 +239,7 @@ def worst_stack(frames: dict, calls: dict, entry: str) -> StackPath:
             bounded[0] = False
             return (0, [], set(), -1, -1)
         own, qual = frames[node]
-        if qual != "static":
+        if qual not in ("static", "dynamic,bounded"):   # gcc: the frame has no upper bound
             bounded[0] = False
         best, best_path, libc, at_libc, at_port = 0, [], set(), -1, -1
         for callee in calls.get(node, []):

@@ -297,6 +297,8 @@ typedef uint32_t mant;
 #endif
 
 #if LIMB_BITS == 32
+static const char PAIRS[201] = "00010203040506070809101112131415161718192021222324252627282930313233343536373839404142434445464748495051525354555657585960616263646566676869707172737475767778798081828384858687888990919293949596979899";
+
 /* The usual telemetry value (1e-19 < |v| < 1e8 or so) in 64-bit arithmetic:
  * floor(m * 10^k / 2^s) and whether anything non-zero was cut off, for m < 2^53,
  * 0 <= k <= 19, 1 <= s <= 127, when the result is known to be below 2^32. */
@@ -360,22 +362,44 @@ static size_t format_mant(char *out, size_t cap, int neg, mant m, int bits, int 
         T /= 10u;
         X++;
     }
-    d = (int)(T % 10u);
     N = T / 10u;
+    d = (int)(T - N * 10u);
     if (d > 5 || (d == 5 && (sticky || (N & 1u))))
         N++;
     if (N == POW10[digits]) {             /* 9.9999995 -> 10.00000 */
         N /= 10u;
         X++;
     }
-    for (nd = digits; nd > 1 && N % 10u == 0; nd--)
-        N /= 10u;                         /* %g drops trailing zeros */
-    for (i = nd - 1; i > 0; i--) {
+#if LIMB_BITS == 32
+    {
+        /* digits by fixed-point: y = N * ceil(2^52 / 10^(digits-1)) holds N / 10^(digits-1)
+         * in 52 fraction bits, each digit is the integer part of 10 times the fraction. The
+         * rounding-up error stays below 10^7 / 2^52 and, times 10^6 at the last digit,
+         * below 0.003: never enough to reach the next digit (for digits <= 8). */
+        static const uint64_t SCALE[7] = {4503599627370496ull, 450359962737050ull,
+                                          45035996273705ull, 4503599627371ull,
+                                          450359962738ull, 45035996274ull, 4503599628ull};
+        uint64_t y = (uint64_t)N * SCALE[digits - 1];
+        dig[0] = (char)('0' + (y >> 52));
+        for (i = 1; i + 1 < digits; i += 2) {         /* two digits a step: error x 100 */
+            y = (y & 0xFFFFFFFFFFFFFull) * 100u;
+            memcpy(dig + i, PAIRS + 2 * (y >> 52), 2);
+        }
+        if (i < digits) {
+            y = (y & 0xFFFFFFFFFFFFFull) * 10u;
+            dig[i] = (char)('0' + (y >> 52));
+        }
+    }
+#else
+    for (i = digits - 1; i > 0; i--) {
         uint32_t q = N / 10u;
         dig[i] = (char)('0' + (N - q * 10u));
         N = q;
     }
     dig[0] = (char)('0' + N);
+#endif
+    for (nd = digits; nd > 1 && dig[nd - 1] == '0'; nd--) {
+    }                                     /* %g drops trailing zeros */
     if (neg)
         o[len++] = '-';
     if (X < -4 || X >= digits) {          /* d.ddde-X */
@@ -477,8 +501,20 @@ size_t rb_format_real(char *out, size_t cap, rb_real value, int digits)
         uint32_t bits;
         memcpy(&bits, &value, sizeof bits);
         return format_f32(out, cap, bits, digits);
+    } else {
+#if RB_DOUBLE64
+        /* the usual case of format_f64 here, one call less on the telemetry path */
+        double d = (double)value;
+        uint64_t bits;
+        int ex;
+        memcpy(&bits, &d, sizeof bits);
+        ex = (int)((bits >> 52) & 0x7FFu);
+        if (ex != 0 && ex != 0x7FF && digits >= 1 && digits <= RB_MAX_DIGITS)
+            return format_mant(out, cap, (int)(bits >> 63), (bits & 0xFFFFFFFFFFFFFull) | (1ull << 52),
+                               53, ex - 1075, digits);
+#endif
+        return rb_format_number(out, cap, (double)value, digits);
     }
-    return rb_format_number(out, cap, (double)value, digits);
 }
 
 /* ------------------------------------------------------------------ reading */
