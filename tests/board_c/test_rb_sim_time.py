@@ -1,0 +1,35 @@
+"""rb-sim stamps each loop period with its nominal time (host/main.c): telemetry frames carry
+the time the sensors were read, a whole number of loop periods apart (one, or more where the
+process missed periods, which it skips and reports rather than running them late)."""
+
+from __future__ import annotations
+
+import subprocess
+import time
+
+from bench.wire import HostCodec
+from bench.wire import messages as m
+from bench.wire.frame import encode_frame
+from cbuild import built
+
+
+def test_telemetry_stamps_are_whole_loop_periods_apart():
+    proc = subprocess.Popen([str(built().sim), "--stdio", "--rate", "500"],
+                            stdin=subprocess.PIPE, stdout=subprocess.PIPE,
+                            stderr=subprocess.PIPE)
+    proc.stdin.write(encode_frame("hb") + encode_frame("stream 1 rate_hz=500"))
+    proc.stdin.flush()
+    time.sleep(0.6)
+    out, err = proc.communicate(timeout=20)       # end of input ends rb-sim
+    frames = [x for x in HostCodec().receive(out) if isinstance(x, m.Telemetry)]
+    assert len(frames) > 50
+    period_us = 2000                               # 1 / 500 Hz
+    for a, b in zip(frames, frames[1:]):
+        assert b.frame == a.frame + 1
+        dt = (b.time_us - a.time_us) % (1 << 32)
+        # wall-clock stamps would jitter by microseconds; nominal ones are exact multiples
+        assert dt % period_us == 0 and dt >= period_us, (a, b)
+    assert all(f.time_us % period_us == 0 for f in frames)
+    missed = sum((b.time_us - a.time_us) // period_us - 1 for a, b in zip(frames, frames[1:]))
+    if missed:                                     # skipped periods are reported, not hidden
+        assert b"loop periods missed" in err
