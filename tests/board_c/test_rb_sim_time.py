@@ -1,6 +1,6 @@
 """rb-sim stamps each loop period with its nominal time (host/main.c): telemetry frames carry
-the time the sensors were read, a whole number of loop periods apart (one, or more where the
-process missed periods, which it skips and reports rather than running them late)."""
+the time the sensors were read, exactly one loop period apart, also when the process was not
+scheduled in time (the simulation then waits and reports the missed periods)."""
 
 from __future__ import annotations
 
@@ -27,9 +27,7 @@ def test_telemetry_stamps_are_whole_loop_periods_apart():
     for a, b in zip(frames, frames[1:]):
         assert b.frame == a.frame + 1
         dt = (b.time_us - a.time_us) % (1 << 32)
-        # wall-clock stamps would jitter by microseconds; nominal ones are exact multiples
-        assert dt % period_us == 0 and dt >= period_us, (a, b)
+        # wall-clock stamps would jitter by microseconds and bunch up after a delay
+        assert dt == period_us, (a, b)
     assert all(f.time_us % period_us == 0 for f in frames)
-    missed = sum((b.time_us - a.time_us) // period_us - 1 for a, b in zip(frames, frames[1:]))
-    if missed:                                     # skipped periods are reported, not hidden
-        assert b"loop periods missed" in err
+    assert b"Sanitizer" not in err

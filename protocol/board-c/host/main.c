@@ -9,10 +9,10 @@
  * Time: the board's clock is the nominal time of the period being run -- period k reads its
  * sensors at exactly k / rate after start -- so telemetry and events carry the time the
  * sensors were read, exactly one period apart, not the moment this process got the CPU.
- * When the process falls behind (a scheduling delay), the periods it missed are not run
- * back to back: the plant moves on through them with the command held, the board runs the
- * latest one only, and rb-sim reports the missed periods on stderr (at most once a second,
- * and a total at exit).
+ * After a scheduling delay of up to 0.25 s the periods due are run at once, each stamped
+ * with its own nominal time, so plant, board and host stay in step; beyond that (the
+ * process suspended or starved) the periods are skipped, not run back to back, and rb-sim
+ * reports them on stderr (at most once a second, and totals at exit).
  *
  * The board declares the same parameters, signals and loop as rigbench's simulated
  * `plant` board (bench/rig/boards.py): loop `main`, r/y/u, and drives K e^-sL/(T s+1)^n
@@ -41,6 +41,8 @@
 #include <termios.h>
 #include <time.h>
 #include <unistd.h>
+
+#define CATCH_UP_S 0.25         /* further behind than this, periods are skipped */
 
 /* ------------------------------------------------------------------ the board's variables */
 
@@ -207,7 +209,7 @@ int main(int argc, char **argv)
     int i, use_stdio = 0, slave = -1, order = 3, fd;
     double rate = 500, tau = 0.1, gain = 1, delay = 0, noise = 0.001, seed = 0, wd = 500;
     double period, start;
-    uint64_t k = 0, missed = 0, missed_reported = 0;
+    uint64_t k = 0, missed = 0, missed_reported = 0, late_runs = 0;
     double last_report = 0;
     const char *board_word = "c-plant-1";
     for (i = 1; i < argc; i++) {
@@ -304,19 +306,25 @@ int main(int argc, char **argv)
                     break;                   /* end of input */
             }
         }
-        if (now_s() >= next) {
-            /* the latest period due; those before it were missed: the plant goes through
-             * them with the command held, the board does not run them late */
-            uint64_t due = (uint64_t)((now_s() - start) / period);
-            while (k + 1 < due) {
-                lag_step(&h.plant, h.pending);
-                k++;
-                missed++;
+        while (now_s() >= next && !stop_now) {
+            /* up to CATCH_UP_S behind, the periods due are run now, each with its own
+             * nominal time (the plant and the board stay in step, as the host's timing
+             * needs); further behind (suspended, overloaded) the periods beyond are not run:
+             * the schedule moves on by them and they are reported */
+            uint64_t late = (uint64_t)((now_s() - next) / period);
+            if (late > 0)
+                late_runs++;
+            if ((double)late * period > CATCH_UP_S) {
+                uint64_t skip = late - (uint64_t)(CATCH_UP_S / period);
+                missed += skip;
+                start += (double)skip * period;
             }
             k++;
             h.clock_us = (uint32_t)(uint64_t)((double)k * period * 1e6 + 0.5);
             lag_step(&h.plant, h.pending);
             rb_step(&board);
+            rb_poll(&board);
+            next = start + (double)(k + 1) * period;
         }
         rb_poll(&board);
         if (missed > missed_reported && now_s() - last_report >= 1.0) {
@@ -327,9 +335,10 @@ int main(int argc, char **argv)
             last_report = now_s();
         }
     }
-    if (missed > 0)
-        fprintf(stderr, "rb-sim: %llu of %llu loop periods missed\n",
-                (unsigned long long)missed, (unsigned long long)k);
+    if (missed > 0 || late_runs > 0)
+        fprintf(stderr, "rb-sim: %llu loop periods run: %llu started late, %llu missed "
+                        "(skipped)\n", (unsigned long long)k, (unsigned long long)late_runs,
+                (unsigned long long)missed);
     h.pending = 0;
     if (slave >= 0)
         close(slave);
