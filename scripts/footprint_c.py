@@ -17,7 +17,9 @@ board's compiler gives other code sizes and its core is many times slower. Secti
   port): one loop period (rb_step + rb_poll) with telemetry off and at the full loop rate,
   rb_poll with nothing to do, and one `set` command; median and fastest of several runs, and
   instructions per call from valgrind's callgrind when valgrind is installed (those repeat
-  exactly from run to run).
+  exactly from run to run);
+- the same per-call work with the former number text (snprintf "%.*g" / strtod, built with
+  -DRB_NUM_LIBC=1, everything else alike) beside the library's own, and the ratio.
 
     python scripts/footprint_c.py [--json] [--quick] [--cc CC]
 """
@@ -48,6 +50,7 @@ CONFIGS = {   # build-time sizes (rb_board.h): defaults, float maths, a small bo
     "small": ("-DRB_TX_SIZE=512", "-DRB_RX_RING=64", "-DRB_MAX_LOOPS=2", "-DRB_REAL=float"),
 }
 ENTRIES = ("rb_step", "rb_poll", "rb_rx_byte", "rb_init")
+OLD_NUMBERS = ("-DRB_NUM_LIBC=1",)   # the former snprintf/strtod number text, for comparison
 CASES = ("period_quiet", "period_stream", "poll_idle", "command_set")
 CASE_TEXT = {
     "period_quiet": "loop period (rb_step + rb_poll), hold, telemetry off",
@@ -239,7 +242,7 @@ def worst_stack(frames: dict, calls: dict, entry: str) -> StackPath:
             bounded[0] = False
             return (0, [], set(), -1, -1)
         own, qual = frames[node]
-        if qual != "static":
+        if qual not in ("static", "dynamic,bounded"):   # gcc: the frame has no upper bound
             bounded[0] = False
         best, best_path, libc, at_libc, at_port = 0, [], set(), -1, -1
         for callee in calls.get(node, []):
@@ -330,6 +333,7 @@ def measure(cc: str, quick: bool = False) -> dict:
             exes = dict(zip(("default", "small"), pool.map(
                 lambda c: build_main(cc, tmp / f"cpu-{c}", "-Os", CONFIGS[c]),
                 ("default", "small"))))
+            old_exe = build_main(cc, tmp / "cpu-libc", "-Os", OLD_NUMBERS)
         stacks, stack_note = {}, f"{cc} has no -fcallgraph-info=su (gcc 10 or newer has)"
         if supports_call_graph(cc):
             stacks = {opt: stack_usage(cc, tmp / f"stack{opt}", opt) for opt in ("-Os", "-O2")}
@@ -340,6 +344,10 @@ def measure(cc: str, quick: bool = False) -> dict:
             for case in CASES:
                 got[case].instructions = instructions(exe, case)
             times[config] = got
+        old = {}
+        for case in ("period_stream", "command_set"):
+            old[case] = {"own": times["default"][case].instructions,
+                         "libc": instructions(old_exe, case)}
     return {
         "machine": {"cc": cc, "cc_version": _run([cc, "--version"]).splitlines()[0],
                     "processor": platform.machine(), "system": platform.system()},
@@ -349,6 +357,7 @@ def measure(cc: str, quick: bool = False) -> dict:
         "stack_note": stack_note,
         "cpu": {c: {k: asdict(v) for k, v in t.items()} for c, t in times.items()},
         "cpu_runs": runs, "cpu_calls": calls,
+        "numbers_vs_libc": old,
     }
 
 
@@ -356,8 +365,8 @@ def print_report(res: dict) -> None:
     mach = res["machine"]
     print(f"C board library footprint, host figures: {mach['cc_version']} on "
           f"{mach['processor']} {mach['system']}\n")
-    print("Code size, bytes (the library's objects; the C library's snprintf, strtod and "
-          "maths come on top)")
+    print("Code size, bytes (the library's objects; it calls only memcpy, memmove, memset, "
+          "memcmp and strlen of the C library)")
     print("| rb_real | opt | code | read-only data | data | bss | flash |")
     print("|---|---|---|---|---|---|---|")
     for s in res["code_size"]:
@@ -394,6 +403,16 @@ def print_report(res: dict) -> None:
             ins = "-" if t["instructions"] is None else f"{t['instructions']:,.0f}"
             print(f"| {config} | {CASE_TEXT.get(case, case)} | {t['median_ns']:,.0f} | "
                   f"{t['fastest_ns']:,.0f} | {ins} |")
+    print("\nOwn number text against the C library's (snprintf \"%.*g\" / strtod, built with "
+          "-DRB_NUM_LIBC=1, all else alike), default configuration, instructions per call")
+    print("| case | own numbers | snprintf/strtod | ratio |")
+    print("|---|---|---|---|")
+    for case, v in res["numbers_vs_libc"].items():
+        if v["own"] is None or v["libc"] is None:
+            print(f"| {CASE_TEXT[case]} | - | - | (valgrind not installed) |")
+            continue
+        print(f"| {CASE_TEXT[case]} | {v['own']:,.0f} | {v['libc']:,.0f} | "
+              f"{v['libc'] / v['own']:.1f}x fewer |")
     print("\nHost figures. A small board's core runs these instructions many times slower: "
           "divide the instruction count by its clock (and more for double maths without a "
           "double FPU, and for float formatting in software) to judge the loop budget.")

@@ -45,7 +45,7 @@ extern void loop_timer_start(uint32_t period_us);  /* calls loop_timer_isr() eve
  * about the tilt axis. */
 extern void imu_read(float *accel_x_g, float *accel_z_g, float *gyro_deg_s);
 extern int32_t encoder_count(void);             /* wheel encoder, counts, free-running */
-#define ENCODER_COUNTS_PER_REV 2048.0
+#define ENCODER_COUNTS_PER_REV 2048.0f
 
 /* The wheel motor's driver runs its own speed loop and takes a speed in rev/s. */
 extern void motor_speed_set(float rev_s);
@@ -74,61 +74,84 @@ static rb_real torque_limit = 0.3;
  * outputs and relay the relay state, all three written by rb_board. */
 static rb_real sig_tilt, sig_rate, sig_wheel, sig_cmd, sig_sp, sig_relay;
 
-static const rb_param params[] = {
-    /* name            unit           min    max   variable       writable */
-    {"tilt_kp",       "rev/s/deg",    0.0,  10.0, &tilt_kp,       1},
-    {"tilt_ki",       "rev/s/deg/s",  0.0, 100.0, &tilt_ki,       1},
-    {"tilt_kd",       "rev/deg",      0.0,   1.0, &tilt_kd,       1},
-    {"tilt_dfilt_s",  "s",            0.0,   0.1, &tilt_dfilt_s,  1},
-    {"trim_kp",       "deg.s/rev",    0.0,   5.0, &trim_kp,       1},
-    {"trim_ki",       "deg/rev",      0.0,   5.0, &trim_ki,       1},
-    {"trim_kd",       "deg.s2/rev",   0.0,   1.0, &trim_kd,       1},
-    {"trim_dfilt_s",  "s",            0.0,   1.0, &trim_dfilt_s,  1},
-    {"wheel_sp",      "rev/s",      -20.0,  20.0, &wheel_sp,      1},
-    {"cmd_limit",     "rev/s",        0.0,  50.0, &cmd_limit,     1},
-    {"sp_limit",      "deg",          0.0,  10.0, &sp_limit,      1},
-    {"tilt_tc_s",     "s",           0.05,   5.0, &tilt_tc_s,     1},  /* tilt filter */
-    {"trip_tilt",     "deg",          1.0,  30.0, &trip_tilt,     1},  /* trips on |tilt| */
-    {"trip_wheel",    "rev/s",        1.0,  60.0, &trip_wheel,    1},
-    {"arm_tilt",      "deg",          0.1,  10.0, &arm_tilt,      1},  /* arm needs |tilt| <= */
-    {"arm_wheel",     "rev/s",        0.1,  20.0, &arm_wheel,     1},
-    {"torque_limit",  "N.m",          0.3,   0.3, &torque_limit,  0},  /* a fact, read-only */
+/* Every string of the declaration is an RB_TEXT constant and every table RB_FLASH: on
+ * cores that would otherwise copy constants into RAM (8-bit AVR) they stay in flash, and
+ * elsewhere these are ordinary constants (rb_board.h). Names the loops refer to are the
+ * same constants. */
+RB_TEXT(t_tilt, "tilt");          RB_TEXT(t_rate, "rate");        RB_TEXT(t_wheel, "wheel");
+RB_TEXT(t_cmd, "cmd");            RB_TEXT(t_sp, "sp");            RB_TEXT(t_relay, "relay");
+RB_TEXT(t_trim, "trim");
+RB_TEXT(t_tilt_kp, "tilt_kp");    RB_TEXT(t_tilt_ki, "tilt_ki");  RB_TEXT(t_tilt_kd, "tilt_kd");
+RB_TEXT(t_tilt_dfilt_s, "tilt_dfilt_s");
+RB_TEXT(t_trim_kp, "trim_kp");    RB_TEXT(t_trim_ki, "trim_ki");  RB_TEXT(t_trim_kd, "trim_kd");
+RB_TEXT(t_trim_dfilt_s, "trim_dfilt_s");
+RB_TEXT(t_wheel_sp, "wheel_sp");  RB_TEXT(t_cmd_limit, "cmd_limit");
+RB_TEXT(t_sp_limit, "sp_limit");  RB_TEXT(t_tilt_tc_s, "tilt_tc_s");
+RB_TEXT(t_trip_tilt, "trip_tilt"); RB_TEXT(t_trip_wheel, "trip_wheel");
+RB_TEXT(t_arm_tilt, "arm_tilt");  RB_TEXT(t_arm_wheel, "arm_wheel");
+RB_TEXT(t_torque_limit, "torque_limit");
+RB_TEXT(u_deg, "deg");            RB_TEXT(u_deg_s, "deg/s");      RB_TEXT(u_rev_s, "rev/s");
+RB_TEXT(u_s, "s");                RB_TEXT(u_1, "1");              RB_TEXT(u_nm, "N.m");
+RB_TEXT(u_kp_tilt, "rev/s/deg");  RB_TEXT(u_ki_tilt, "rev/s/deg/s");
+RB_TEXT(u_kd_tilt, "rev/deg");    RB_TEXT(u_kp_trim, "deg.s/rev");
+RB_TEXT(u_ki_trim, "deg/rev");    RB_TEXT(u_kd_trim, "deg.s2/rev");
+RB_TEXT(t_board, "balance-board-1"); RB_TEXT(t_fw, "0.1.0"); RB_TEXT(t_balance, "balance");
+
+static const rb_param params[] RB_FLASH = {
+    /* name            unit         min    max   variable       writable */
+    {t_tilt_kp,       u_kp_tilt,    0.0,  10.0, &tilt_kp,       1},
+    {t_tilt_ki,       u_ki_tilt,    0.0, 100.0, &tilt_ki,       1},
+    {t_tilt_kd,       u_kd_tilt,    0.0,   1.0, &tilt_kd,       1},
+    {t_tilt_dfilt_s,  u_s,          0.0,   0.1, &tilt_dfilt_s,  1},
+    {t_trim_kp,       u_kp_trim,    0.0,   5.0, &trim_kp,       1},
+    {t_trim_ki,       u_ki_trim,    0.0,   5.0, &trim_ki,       1},
+    {t_trim_kd,       u_kd_trim,    0.0,   1.0, &trim_kd,       1},
+    {t_trim_dfilt_s,  u_s,          0.0,   1.0, &trim_dfilt_s,  1},
+    {t_wheel_sp,      u_rev_s,    -20.0,  20.0, &wheel_sp,      1},
+    {t_cmd_limit,     u_rev_s,      0.0,  50.0, &cmd_limit,     1},
+    {t_sp_limit,      u_deg,        0.0,  10.0, &sp_limit,      1},
+    {t_tilt_tc_s,     u_s,         0.05,   5.0, &tilt_tc_s,     1},  /* tilt filter */
+    {t_trip_tilt,     u_deg,        1.0,  30.0, &trip_tilt,     1},  /* trips on |tilt| */
+    {t_trip_wheel,    u_rev_s,      1.0,  60.0, &trip_wheel,    1},
+    {t_arm_tilt,      u_deg,        0.1,  10.0, &arm_tilt,      1},  /* arm needs |tilt| <= */
+    {t_arm_wheel,     u_rev_s,      0.1,  20.0, &arm_wheel,     1},
+    {t_torque_limit,  u_nm,         0.3,   0.3, &torque_limit,  0},  /* a fact, read-only */
 };
 
-static const rb_signal signals[] = {   /* telemetry order */
-    {"tilt", "deg", &sig_tilt},
-    {"rate", "deg/s", &sig_rate},
-    {"wheel", "rev/s", &sig_wheel},
-    {"cmd", "rev/s", &sig_cmd},
-    {"sp", "deg", &sig_sp},
-    {"relay", "1", &sig_relay},
+static const rb_signal signals[] RB_FLASH = {   /* telemetry order */
+    {t_tilt, u_deg, &sig_tilt},
+    {t_rate, u_deg_s, &sig_rate},
+    {t_wheel, u_rev_s, &sig_wheel},
+    {t_cmd, u_rev_s, &sig_cmd},
+    {t_sp, u_deg, &sig_sp},
+    {t_relay, u_1, &sig_relay},
 };
 
-static const rb_loop loops[] = {
+static const rb_loop loops[] RB_FLASH = {
     /* Outer loop first: its output `sp` is the tilt loop's set-point. Reverse-acting:
      * e = wheel_sp - wheel. Integrating plant, relay test on the output. */
-    {.name = "trim", .measure = "wheel", .output = "sp",
-     .kp = "trim_kp", .ki = "trim_ki", .kd = "trim_kd",
+    {.name = t_trim, .measure = t_wheel, .output = t_sp,
+     .kp = t_trim_kp, .ki = t_trim_ki, .kd = t_trim_kd,
      .plant = RB_PLANT_INTEGRATING, .relay = RB_RELAY_OUTPUT, .action = RB_ACTION_REVERSE,
-     .setpoint = "wheel_sp", .setpoint_signal = NULL,
-     .limit = "sp_limit", .dfilt = "trim_dfilt_s", .rate = NULL},
+     .setpoint = t_wheel_sp, .setpoint_signal = NULL,
+     .limit = t_sp_limit, .dfilt = t_trim_dfilt_s, .rate = NULL},
     /* Inner loop: direct-acting (e = tilt - sp: the wheel must spin up the way the body
      * falls), open-loop unstable, so its relay test runs on the integral channel with the
      * loop closed. The gyro gives the derivative directly. */
-    {.name = "tilt", .measure = "tilt", .output = "cmd",
-     .kp = "tilt_kp", .ki = "tilt_ki", .kd = "tilt_kd",
+    {.name = t_tilt, .measure = t_tilt, .output = t_cmd,
+     .kp = t_tilt_kp, .ki = t_tilt_ki, .kd = t_tilt_kd,
      .plant = RB_PLANT_UNSTABLE, .relay = RB_RELAY_INTEGRAL, .action = RB_ACTION_DIRECT,
-     .setpoint = "sp", .setpoint_signal = "sp",
-     .limit = "cmd_limit", .dfilt = "tilt_dfilt_s", .rate = "rate"},
+     .setpoint = t_sp, .setpoint_signal = t_sp,
+     .limit = t_cmd_limit, .dfilt = t_tilt_dfilt_s, .rate = t_rate},
 };
 
-static const rb_rig rig = {
-    .board = "balance-board-1", .fw = "0.1.0", .rig = "balance",
+static const rb_rig rig RB_FLASH = {
+    .board = t_board, .fw = t_fw, .rig = t_balance,
     .rate_hz = (rb_real)LOOP_RATE_HZ, .watchdog_ms = 500,
     .params = params, .n_params = (uint8_t)(sizeof params / sizeof params[0]),
     .signals = signals, .n_signals = (uint8_t)(sizeof signals / sizeof signals[0]),
     .loops = loops, .n_loops = (uint8_t)(sizeof loops / sizeof loops[0]),
-    .command = "cmd", .simulated = 0,
+    .command = t_cmd, .simulated = 0,
 };
 
 /* The board: several kilobytes, so static, never on the stack. */
@@ -168,7 +191,9 @@ static void port_read_sensors(void *ctx)
     (void)ctx;
     imu_read(&ax, &az, &gyro);
     count = encoder_count();
-    accel_tilt_deg = (rb_real)(atan2((double)ax, (double)az) * (180.0 / 3.14159265358979));
+    /* float maths (atan2f): on a core without a double FPU, double would pull in the
+     * software double routines for this one line */
+    accel_tilt_deg = (rb_real)(atan2f(ax, az) * (180.0f / 3.14159265f));
     if (!started) {                  /* first sample: take the accelerometer as it is */
         sig_tilt = accel_tilt_deg;
         last_count = count;
@@ -180,7 +205,7 @@ static void port_read_sensors(void *ctx)
     sig_rate = (rb_real)gyro;
     /* unsigned difference: right across the counter's wrap */
     sig_wheel = (rb_real)(int32_t)((uint32_t)count - (uint32_t)last_count)
-                / (rb_real)ENCODER_COUNTS_PER_REV / dt_s;
+                * (rb_real)(LOOP_RATE_HZ / ENCODER_COUNTS_PER_REV);
     last_count = count;
 }
 
@@ -270,16 +295,6 @@ static int port_nv_save(void *ctx, const uint8_t *image, size_t n)
     return flash_write_slot(slot, 0, (const uint8_t *)&h, sizeof h) != 0 ? -1 : 0;
 }
 
-static const rb_port port = {
-    .ctx = NULL,
-    .write = port_write,
-    .micros = port_micros,
-    .read_sensors = port_read_sensors,
-    .set_output = port_set_output,
-    .nv_save = port_nv_save,
-    .nv_load = port_nv_load,
-    .body_push = NULL,               /* no disturbance motor on this rig */
-};
 
 /* ------------------------------------------------------------ interrupts */
 
@@ -313,6 +328,17 @@ void loop_timer_isr(void)
 
 int main(void)
 {
+    /* the port is copied into the board by rb_init: a local, so it takes no static RAM */
+    const rb_port port = {
+        .ctx = NULL,
+        .write = port_write,
+        .micros = port_micros,
+        .read_sensors = port_read_sensors,
+        .set_output = port_set_output,
+        .nv_save = port_nv_save,
+        .nv_load = port_nv_load,
+        .body_push = NULL,           /* no disturbance motor on this rig */
+    };
     rb_decl_error err;
 
     hw_init();
@@ -323,9 +349,10 @@ int main(void)
     if (err != RB_DECL_OK) {
         /* A mistake in the tables above: say which entry on the UART, in plain text (a
          * person reads this in a serial terminal), and never drive the motor. */
-        const char *why = rb_decl_text(&board);
+        char why[64];
+        size_t n = rb_text_copy(why, sizeof why, rb_decl_text(&board));   /* may be in flash */
         for (;;) {
-            uart_write_nonblocking((const uint8_t *)why, strlen(why));
+            uart_write_nonblocking((const uint8_t *)why, n);
             uart_write_nonblocking((const uint8_t *)"\r\n", 2);
             led_set(1);
             cpu_sleep_until_interrupt();

@@ -6,6 +6,14 @@
  *   build/rb-sim                      prints the device path, e.g. /dev/pts/7
  *   rigbench info --port /dev/pts/7
  *
+ * Time: the board's clock is the nominal time of the period being run -- period k reads its
+ * sensors at exactly k / rate after start -- so telemetry and events carry the time the
+ * sensors were read, exactly one period apart, not the moment this process got the CPU.
+ * After a scheduling delay of up to 0.25 s the periods due are run at once, each stamped
+ * with its own nominal time, so plant, board and host stay in step; beyond that (the
+ * process suspended or starved) the periods are skipped, not run back to back, and rb-sim
+ * reports them on stderr (at most once a second, and totals at exit).
+ *
  * The board declares the same parameters, signals and loop as rigbench's simulated
  * `plant` board (bench/rigbench/rig/firmware/boards.py): loop `main`, r/y/u, and drives K e^-sL/(T s+1)^n
  * (host/plant_lag.c). Options:
@@ -34,6 +42,8 @@
 #include <time.h>
 #include <unistd.h>
 
+#define CATCH_UP_S 0.25         /* further behind than this, periods are skipped */
+
 /* ------------------------------------------------------------------ the board's variables */
 
 static rb_real main_kp = 0.5, main_ki = 0.25, main_kd = 0, main_dfilt_s = 0.01, main_sp = 0;
@@ -61,7 +71,7 @@ static const rb_loop LOOPS[] = {
 
 typedef struct {
     int in_fd, out_fd;
-    struct timespec t0;
+    uint32_t clock_us;          /* nominal time of the period being run (see the top) */
     lag_plant plant;
     double pending;             /* command for the next plant step (one-period delay) */
     const char *state_path;
@@ -79,10 +89,7 @@ static size_t port_write(void *ctx, const uint8_t *data, size_t n)
 static uint32_t port_micros(void *ctx)
 {
     host *h = ctx;
-    struct timespec t;
-    clock_gettime(CLOCK_MONOTONIC, &t);
-    return (uint32_t)((uint64_t)(t.tv_sec - h->t0.tv_sec) * 1000000u +
-                      (uint64_t)((t.tv_nsec - h->t0.tv_nsec) / 1000 + 1000000) - 1000000u);
+    return h->clock_us;
 }
 
 static void port_read_sensors(void *ctx)
@@ -201,7 +208,9 @@ int main(int argc, char **argv)
     rb_decl_error err;
     int i, use_stdio = 0, slave = -1, order = 3, fd;
     double rate = 500, tau = 0.1, gain = 1, delay = 0, noise = 0.001, seed = 0, wd = 500;
-    double period, next;
+    double period, start;
+    uint64_t k = 0, missed = 0, missed_reported = 0, late_runs = 0;
+    double last_report = 0;
     const char *board_word = "c-plant-1";
     for (i = 1; i < argc; i++) {
         const char *a = argv[i];
@@ -258,7 +267,6 @@ int main(int argc, char **argv)
         h.in_fd = h.out_fd = fd;
     }
     fcntl(h.out_fd, F_SETFL, fcntl(h.out_fd, F_GETFL) | O_NONBLOCK);
-    clock_gettime(CLOCK_MONOTONIC, &h.t0);
 
     memset(&port, 0, sizeof port);
     port.ctx = &h;
@@ -274,10 +282,10 @@ int main(int argc, char **argv)
         return 1;
     }
     period = 1.0 / rate;
-    next = now_s() + period;
+    start = now_s();
     while (!stop_now) {
         struct pollfd pfd;
-        double wait = next - now_s();
+        double next = start + (double)(k + 1) * period, wait = next - now_s();
         int ms = wait > 0 ? (int)(wait * 1000.0) : 0;
         pfd.fd = h.in_fd;
         pfd.events = POLLIN;
@@ -286,10 +294,10 @@ int main(int argc, char **argv)
             uint8_t buf[512];
             ssize_t n = read(h.in_fd, buf, sizeof buf);
             if (n > 0) {
-                ssize_t k;
-                for (k = 0; k < n; k++) {     /* poll before the receive ring can fill */
-                    rb_rx_byte(&board, buf[k]);
-                    if ((k & 127) == 127)
+                ssize_t j;
+                for (j = 0; j < n; j++) {     /* poll before the receive ring can fill */
+                    rb_rx_byte(&board, buf[j]);
+                    if ((j & 127) == 127)
                         rb_poll(&board);
                 }
                 rb_poll(&board);
@@ -298,15 +306,39 @@ int main(int argc, char **argv)
                     break;                   /* end of input */
             }
         }
-        while (now_s() >= next) {
+        while (now_s() >= next && !stop_now) {
+            /* up to CATCH_UP_S behind, the periods due are run now, each with its own
+             * nominal time (the plant and the board stay in step, as the host's timing
+             * needs); further behind (suspended, overloaded) the periods beyond are not run:
+             * the schedule moves on by them and they are reported */
+            uint64_t late = (uint64_t)((now_s() - next) / period);
+            if (late > 0)
+                late_runs++;
+            if ((double)late * period > CATCH_UP_S) {
+                uint64_t skip = late - (uint64_t)(CATCH_UP_S / period);
+                missed += skip;
+                start += (double)skip * period;
+            }
+            k++;
+            h.clock_us = (uint32_t)(uint64_t)((double)k * period * 1e6 + 0.5);
             lag_step(&h.plant, h.pending);
             rb_step(&board);
-            next += period;
-            if (now_s() - next > 0.25)
-                next = now_s() + period;     /* far behind (suspended): do not catch up */
+            rb_poll(&board);
+            next = start + (double)(k + 1) * period;
         }
         rb_poll(&board);
+        if (missed > missed_reported && now_s() - last_report >= 1.0) {
+            fprintf(stderr, "rb-sim: %llu loop periods missed (%llu in all): this process "
+                            "was not scheduled in time\n",
+                    (unsigned long long)(missed - missed_reported), (unsigned long long)missed);
+            missed_reported = missed;
+            last_report = now_s();
+        }
     }
+    if (missed > 0 || late_runs > 0)
+        fprintf(stderr, "rb-sim: %llu loop periods run: %llu started late, %llu missed "
+                        "(skipped)\n", (unsigned long long)k, (unsigned long long)late_runs,
+                (unsigned long long)missed);
     h.pending = 0;
     if (slave >= 0)
         close(slave);

@@ -17,8 +17,6 @@
  */
 #include "rb_internal.h"
 
-#include <math.h>
-
 void rb_ctl_reset(rb_board *b)
 {
     int i;
@@ -43,7 +41,7 @@ rb_real rb_ctl_setpoint(const rb_board *b, int loop)
 
 rb_real rb_ctl_error(const rb_board *b, int loop, rb_real sp, rb_real y)
 {
-    return b->rig->loops[loop].action == RB_ACTION_REVERSE ? sp - y : y - sp;
+    return b->lx[loop].reverse ? sp - y : y - sp;
 }
 
 void rb_ctl_idle(rb_board *b)
@@ -74,13 +72,12 @@ void rb_ctl_leave_override(rb_board *b, int loop)
 
 static rb_real pid_update(rb_board *b, int loop, rb_real sp, rb_real y, rb_real offset)
 {
-    const rb_loop *d = &b->rig->loops[loop];
     const rb_loop_ix *x = &b->lx[loop];
     rb_pid_state *p = &b->pid[loop];
     rb_real dt = b->dt_s;
     rb_real kp = RB_PAR(b, x->kp), ki = RB_PAR(b, x->ki), kd = RB_PAR(b, x->kd);
     rb_real limit = RB_PAR(b, x->limit), dfilt = RB_PAR(b, x->dfilt);
-    int reverse = d->action == RB_ACTION_REVERSE;
+    int reverse = x->reverse;
     rb_real e = reverse ? sp - y : y - sp;
     rb_real raw, a, dterm, pterm, step, i_new, u;
     if (x->rate >= 0)
@@ -112,7 +109,7 @@ static rb_real pid_update(rb_board *b, int loop, rb_real sp, rb_real y, rb_real 
     return u > limit ? limit : (u < -limit ? -limit : u);
 }
 
-int rb_ctl_run(rb_board *b, double *bound_value)
+int rb_ctl_run(rb_board *b, rb_real *bound_value)
 {
     const rb_mode_run *m = &b->mode;
     rb_real relay_shown = 0;
@@ -138,11 +135,11 @@ int rb_ctl_run(rb_board *b, double *bound_value)
                 r = -1;
             b->pid[i].relay = r;
             relay_shown = r;
-            if (m->has_bound && fabs((double)(y - sp)) > (double)m->bound) {
+            if (m->has_bound && RB_ABS(y - sp) > m->bound) {
                 bound_loop = i;
-                *bound_value = fabs((double)(y - sp));
+                *bound_value = RB_ABS(y - sp);
             }
-            if (b->rig->loops[i].relay == RB_RELAY_INTEGRAL)
+            if (x->relay_integral)
                 offset = m->bias + m->amp * r;
             else {
                 override = m->bias + m->amp * r;

@@ -4,17 +4,7 @@
  */
 #include "rb_internal.h"
 
-#include <stdio.h>
-#include <stdlib.h>
 #include <string.h>
-
-void rb_ln_start(rb_line *l, const char *word)
-{
-    l->n = 0;
-    l->overflow = 0;
-    l->s[0] = '\0';
-    rb_ln_raw(l, word, strlen(word));
-}
 
 void rb_ln_raw(rb_line *l, const char *s, size_t n)
 {
@@ -23,74 +13,100 @@ void rb_ln_raw(rb_line *l, const char *s, size_t n)
         return;
     }
     memcpy(l->s + l->n, s, n);
-    l->n += n;
-    l->s[l->n] = '\0';
+    l->n = (uint8_t)(l->n + n);
 }
 
-void rb_ln_word(rb_line *l, const char *s)
+void rb_ln_rom(rb_line *l, const char *rom)
+{
+    size_t n = l->n;
+    uint8_t c;
+    if (l->overflow)
+        return;
+    while ((c = ROM_U8(rom++)) != 0) {
+        if (n == RB_MAX_BODY) {
+            l->overflow = 1;
+            return;
+        }
+        l->s[n++] = (char)c;
+    }
+    l->n = (uint8_t)n;
+}
+
+void rb_ln_open(rb_line *l, const char *rom_word)
+{
+    l->n = 0;
+    l->overflow = 0;
+    rb_ln_rom(l, rom_word);
+}
+
+void rb_ln_word(rb_line *l, const char *rom)
 {
     rb_ln_raw(l, " ", 1);
-    rb_ln_raw(l, s, strlen(s));
-}
-
-static size_t u32_text(char *out, uint32_t v)
-{
-    char tmp[11];
-    size_t n = 0, i;
-    do {
-        tmp[n++] = (char)('0' + v % 10u);
-        v /= 10u;
-    } while (v);
-    for (i = 0; i < n; i++)
-        out[i] = tmp[n - 1 - i];
-    return n;
+    rb_ln_rom(l, rom);
 }
 
 void rb_ln_u32(rb_line *l, uint32_t v)
 {
-    char tmp[12];
-    tmp[0] = ' ';
-    rb_ln_raw(l, tmp, 1 + u32_text(tmp + 1, v));
+    if (l->overflow || l->n + 11u > RB_MAX_BODY) {   /* " 4294967295" */
+        char tmp[11];
+        tmp[0] = ' ';
+        rb_ln_raw(l, tmp, 1 + rb_u32_text(tmp + 1, v));
+        return;
+    }
+    l->s[l->n] = ' ';
+    l->n = (uint8_t)(l->n + 1u + rb_u32_text(l->s + l->n + 1, v));
 }
 
-void rb_ln_num(rb_line *l, double v, int digits)
+void rb_ln_num(rb_line *l, rb_real v, int digits)
 {
-    char tmp[40];
+    /* written in place when there is room for the longest number, else through a copy */
+    char tmp[RB_NUM_TEXT + 1];
+    int direct = !l->overflow && l->n + 1u + RB_NUM_TEXT <= RB_MAX_BODY + 1u;
+    char *at = direct ? l->s + l->n : tmp;
     size_t n;
-    tmp[0] = ' ';
-    n = rb_format_number(tmp + 1, sizeof tmp - 1, v, digits);
+    at[0] = ' ';
+    n = rb_format_real(at + 1, RB_NUM_TEXT, v, digits);
     if (n == 0) {
         l->overflow = 1;      /* not finite: the message cannot be sent */
         return;
     }
-    rb_ln_raw(l, tmp, n + 1);
+    if (direct)
+        l->n = (uint8_t)(l->n + n + 1u);
+    else
+        rb_ln_raw(l, tmp, n + 1);
 }
 
-static void kv_key(rb_line *l, const char *key)
+static void kv_key(rb_line *l, const char *rom_key)
 {
     rb_ln_raw(l, " ", 1);
-    rb_ln_raw(l, key, strlen(key));
+    rb_ln_rom(l, rom_key);
     rb_ln_raw(l, "=", 1);
 }
 
-void rb_ln_kv(rb_line *l, const char *key, const char *word)
+void rb_ln_kv(rb_line *l, const char *rom_key, const char *rom_word)
 {
-    kv_key(l, key);
-    rb_ln_raw(l, word, strlen(word));
+    kv_key(l, rom_key);
+    rb_ln_rom(l, rom_word);
 }
 
-void rb_ln_kv_u32(rb_line *l, const char *key, uint32_t v)
+void rb_ln_kv_ram(rb_line *l, const char *rom_key, const char *s, size_t n)
 {
-    char tmp[11];
-    kv_key(l, key);
-    rb_ln_raw(l, tmp, u32_text(tmp, v));
+    kv_key(l, rom_key);
+    rb_ln_raw(l, s, n);
 }
 
-void rb_ln_kv_num(rb_line *l, const char *key, double v)
+void rb_ln_kv_u32(rb_line *l, const char *rom_key, uint32_t v)
 {
-    char tmp[40];
-    size_t n = rb_format_number(tmp, sizeof tmp, v, 7);
-    kv_key(l, key);
+    char tmp[10];
+    kv_key(l, rom_key);
+    rb_ln_raw(l, tmp, rb_u32_text(tmp, v));
+}
+
+void rb_ln_kv_num(rb_line *l, const char *rom_key, rb_real v)
+{
+    char tmp[RB_NUM_TEXT];
+    size_t n = rb_format_real(tmp, sizeof tmp, v, 7);
+    kv_key(l, rom_key);
     if (n == 0) {
         l->overflow = 1;
         return;
@@ -98,54 +114,56 @@ void rb_ln_kv_num(rb_line *l, const char *key, double v)
     rb_ln_raw(l, tmp, n);
 }
 
-double rb_board_round(double v)
+/* ------------------------------------------------------------------ transmit buffer */
+
+static void ring_put(rb_board *b, rb_tx_index *at, const uint8_t *data, size_t n)
 {
-    /* the value as stored and reported: 7 significant digits (what a float32 holds) */
-    char tmp[40];
-    size_t n = rb_format_number(tmp, sizeof tmp, v, 7);
-    return n ? strtod(tmp, NULL) : v;
+    size_t first = RB_TX_SIZE - *at;          /* bytes up to the end of the buffer */
+    if (first > n)
+        first = n;
+    memcpy(b->tx + *at, data, first);
+    memcpy(b->tx, data + first, n - first);
+    *at = (rb_tx_index)(n - first > 0 ? n - first : *at + first);
+    if (*at == RB_TX_SIZE)
+        *at = 0;
 }
 
-static void ring_put(rb_board *b, uint32_t *at, const uint8_t *data, size_t n)
+static int tx_room(rb_board *b, size_t n, rb_tx_kind kind)
 {
-    size_t i;
-    for (i = 0; i < n; i++) {
-        b->tx[*at] = data[i];
-        *at = *at + 1 == RB_TX_SIZE ? 0 : *at + 1;
-    }
-}
-
-int rb_tx_put(rb_board *b, const rb_line *l, rb_tx_kind kind)
-{
-    static const char hex[] = "0123456789ABCDEF";
-    uint8_t tail[6];
-    uint16_t crc;
-    size_t n, room, i;
-    uint32_t at;
-    if (l->overflow || l->n == 0)
-        return 0;
-    for (i = 0; i < l->n; i++)
-        if (!rb_body_char((uint8_t)l->s[i]))
-            return 0;
-    n = l->n + 7;                       /* '@' body '|' four hex digits '\n' */
-    room = kind == RB_TX_TELEMETRY ? RB_TX_SIZE - RB_TX_SIZE / 4 : RB_TX_SIZE;
-    if (b->tx_used + n > room) {
+    size_t room = kind == RB_TX_TELEMETRY ? RB_TX_SIZE - RB_TX_SIZE / 4 : RB_TX_SIZE;
+    if ((size_t)b->tx_used + n > room) {
         if (kind != RB_TX_STATUS)
             b->drops++;
         return 0;
     }
-    crc = rb_crc16((const uint8_t *)l->s, l->n);
-    tail[0] = '|';
-    tail[1] = (uint8_t)hex[(crc >> 12) & 15];
-    tail[2] = (uint8_t)hex[(crc >> 8) & 15];
-    tail[3] = (uint8_t)hex[(crc >> 4) & 15];
-    tail[4] = (uint8_t)hex[crc & 15];
-    tail[5] = '\n';
-    at = (b->tx_head + b->tx_used) % RB_TX_SIZE;
-    ring_put(b, &at, (const uint8_t *)"@", 1);
-    ring_put(b, &at, (const uint8_t *)l->s, l->n);
-    ring_put(b, &at, tail, sizeof tail);
-    b->tx_used += (uint32_t)n;
+    return 1;
+}
+
+int rb_tx_put(rb_board *b, const rb_line *l, rb_tx_kind kind)
+{
+    /* every line's buffer has a byte before the body and 6 after it (rb_board.h), so the
+     * frame is completed in place and copied once */
+    uint8_t *f = (uint8_t *)l->s - 1;
+    size_t i;
+    if (l->overflow || l->n == 0)
+        return 0;
+    if (kind != RB_TX_TELEMETRY)     /* telemetry is only numbers the library wrote */
+        for (i = 0; i < l->n; i++)
+            if (!rb_body_char((uint8_t)l->s[i]))
+                return 0;
+    f[0] = '@';
+    rb_crc_tail(f + 1 + l->n, rb_crc16(f + 1, l->n));
+    return rb_tx_put_frame(b, f, (size_t)l->n + 7u, kind);
+}
+
+int rb_tx_put_frame(rb_board *b, const uint8_t *frame, size_t n, rb_tx_kind kind)
+{
+    rb_tx_index at;
+    if (n == 0 || !tx_room(b, n, kind))
+        return 0;
+    at = (rb_tx_index)((b->tx_head + b->tx_used) % RB_TX_SIZE);
+    ring_put(b, &at, frame, n);
+    b->tx_used = (rb_tx_index)(b->tx_used + n);
     return 1;
 }
 
@@ -159,8 +177,8 @@ void rb_tx_flush(rb_board *b)
         took = b->port.write(b->port.ctx, b->tx + b->tx_head, chunk);
         if (took > chunk)
             took = chunk;
-        b->tx_head = (uint32_t)((b->tx_head + took) % RB_TX_SIZE);
-        b->tx_used -= (uint32_t)took;
+        b->tx_head = (rb_tx_index)((b->tx_head + took) % RB_TX_SIZE);
+        b->tx_used = (rb_tx_index)(b->tx_used - took);
         if (took < chunk)
             break;              /* the link is full: try again on the next poll */
     }
@@ -168,11 +186,13 @@ void rb_tx_flush(rb_board *b)
         b->tx_head = 0;
 }
 
-void rb_ev_start(rb_board *b, rb_line *l, const char *kind)
+rb_line *rb_ev_start(rb_board *b, const char *rom_kind)
 {
-    rb_ln_start(l, "ev");
+    rb_line *l = &b->out_event;
+    rb_ln_open(l, S("ev"));
     rb_ln_u32(l, b->port.micros(b->port.ctx));
-    rb_ln_word(l, kind);
+    rb_ln_word(l, rom_kind);
+    return l;
 }
 
 void rb_event(rb_board *b, rb_line *l)

@@ -51,10 +51,10 @@ void rb_rx_reset(rb_board *b)
     b->line_len = 0;
 }
 
-static void rx_error(rb_board *b, const char *code)
+static void rx_error(rb_board *b, const char *rom_code)
 {
     b->rx_err++;
-    b->last_rx_error = code;
+    b->last_rx_error = rom_code;
 }
 
 static int hex_value(uint8_t c)
@@ -79,34 +79,34 @@ static void check_line(rb_board *b)
         if (ln[bar - 1] == '|')
             break;
     if (bar == 0) {
-        rx_error(b, "truncated");     /* no '|' and CRC before the end of the line */
+        rx_error(b, S("truncated"));     /* no '|' and CRC before the end of the line */
         return;
     }
     bar--;                            /* index of the last '|' */
     if (n - bar - 1 != 4) {
-        rx_error(b, "crc");
+        rx_error(b, S("crc"));
         return;
     }
     for (i = bar + 1; i < n; i++) {
         int h = hex_value(ln[i]);
         if (h < 0) {
-            rx_error(b, "crc");
+            rx_error(b, S("crc"));
             return;
         }
         crc = crc * 16 + h;
     }
     for (i = 1; i < bar; i++) {
         if (!rb_body_char(ln[i])) {
-            rx_error(b, "bad_char");
+            rx_error(b, S("bad_char"));
             return;
         }
     }
     if (bar == 1) {
-        rx_error(b, "truncated");     /* empty body */
+        rx_error(b, S("truncated"));     /* empty body */
         return;
     }
     if (rb_crc16(ln + 1, bar - 1) != (uint16_t)crc) {
-        rx_error(b, "crc");
+        rx_error(b, S("crc"));
         return;
     }
     rb_command(b, (const char *)ln + 1, bar - 1);
@@ -115,7 +115,7 @@ static void check_line(rb_board *b)
 static void kill_now(rb_board *b)
 {
     rb_rx_reset(b);                   /* a partial frame is discarded, not an error */
-    rb_trip_cause(b, "kill", 0, 0.0);
+    rb_trip_rom(b, S("kill"), 0, 0);
 }
 
 static void assemble(rb_board *b, uint8_t c)
@@ -147,19 +147,19 @@ static void assemble(rb_board *b, uint8_t c)
     case RX_JUNK:
         if (c == '\n') {
             if (!(b->line_len == 1 && b->line[0] == '\r'))
-                rx_error(b, "junk");
+                rx_error(b, S("junk"));
             rb_rx_reset(b);
             return;
         }
         if (c == '@') {
-            rx_error(b, "junk");
+            rx_error(b, S("junk"));
             b->rx_state = RX_FRAME;
             b->line[0] = c;
             b->line_len = 1;
             return;
         }
         if (b->line_len + 1u >= RB_MAX_LINE) {
-            rx_error(b, "too_long");
+            rx_error(b, S("too_long"));
             b->rx_state = RX_SKIP;
             b->line_len = 0;
             return;
@@ -174,13 +174,13 @@ static void assemble(rb_board *b, uint8_t c)
             return;
         }
         if (c == '@') {
-            rx_error(b, "truncated"); /* a new '@' before the frame ended */
+            rx_error(b, S("truncated")); /* a new '@' before the frame ended */
             b->line[0] = c;
             b->line_len = 1;
             return;
         }
         if (b->line_len + 1u >= RB_MAX_LINE) {
-            rx_error(b, "too_long");  /* the 200th byte is not "\n" */
+            rx_error(b, S("too_long"));  /* the 200th byte is not "\n" */
             b->rx_state = RX_SKIP;
             b->line_len = 0;
             return;
@@ -195,7 +195,7 @@ void rb_poll(rb_board *b)
     int saw_kill = 0;
     uint8_t lost = b->rx_lost;
     if (lost != b->rx_lost_seen) {                    /* the ring overflowed: a line is lost */
-        rx_error(b, "overrun");
+        rx_error(b, S("overrun"));
         b->rx_lost_seen = lost;
     }
     while (b->rx_tail != b->rx_head) {
