@@ -193,6 +193,8 @@ class Experiment:
         self._ev_cursor, events = link.events_since(self._ev_cursor)
         if self._recorder is not None:
             self._recorder.poll()
+            if self._recorder.failed:
+                self._halt("disk", self._recorder.failed)
         self._skipped += blk.skipped
         self._events.extend(events)
         out = None
@@ -239,6 +241,10 @@ class Experiment:
         elif now - last > self.guards.stale_s:
             self._halt("stale", f"telemetry {now - last:.2f} s old (limit "
                                 f"{self.guards.stale_s:g} s)")
+
+    def halt(self, reason: str, detail: str):
+        """Stop for ``reason`` (a key of rigbench.base.stops.STOPS); raises ExperimentStopped."""
+        self._halt(reason, detail)
 
     def _halt(self, reason: str, detail: str):
         """Stop now: kill for a safety reason, then raise ExperimentStopped."""
@@ -304,6 +310,8 @@ class Experiment:
                 self._recorder.close()
             except Exception:  # noqa: BLE001 - a failed recording must not hide the result
                 pass
+            if self._recorder.failed and self._stop[0] in ("done", "converged"):
+                self._stop = ("disk", self._recorder.failed)  # the motor was left safe already
         motor = None
         try:
             motor = self.link.status().motor

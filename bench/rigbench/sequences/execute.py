@@ -117,7 +117,7 @@ class StepRunner:
             raise StepAbort(why, f"over its timeout_s {step.timeout_s:g}" if why == "timeout"
                          else "cancelled by the user")
         why = res.stopped_by
-        raise StepAbort(why if why in ("lost", "error") else "guard" if kills_motor(why)
+        raise StepAbort(why if why in ("lost", "error", "disk") else "guard" if kills_motor(why)
                         else "error", res.detail)
 
     # ------------------------------------------------------------------ the steps
@@ -198,6 +198,8 @@ class StepRunner:
 
             def feed(t, v):
                 rec.poll()
+                if rec.failed:
+                    exp.halt("disk", rec.failed)
                 tick(t, v)
             try:
                 exp.wait(step.seconds, on_block=feed)
@@ -205,6 +207,8 @@ class StepRunner:
                 rec.close()
         out.detail = f"{rec.rows} rows to {path.name}"
         self._ended(exp.result, stop, step)
+        if rec.failed:  # the last write, at close, failed: the step's data is not all there
+            raise StepAbort("disk", rec.failed)
 
     def _do_relay(self, step, out, stop) -> None:
         from rigbench.experiments.relay import run_relay
