@@ -29,6 +29,9 @@ from rigbench.link.urls import register_url_handlers
 from rigbench.wire.crc import crc16
 from rigbench.wire.describe import BoardInfo, LoopInfo, ParamInfo, SignalInfo, compatible
 from rigbench.wire.errors import RemoteProtocolError
+from rigbench.wire.limits import (
+    DeclarationError, check_hello, check_loops, check_params, check_signals,
+)
 from rigbench.wire.messages import (
     PROTOCOL_VERSION, Arm, Clear, DescribeLoop, DescribeParam, DescribeSignal, Disarm, Get,
     Hello, Kill, Mode, Ok, Restore, Save, Set, StatusRequest, Stream, parse_number,
@@ -36,7 +39,7 @@ from rigbench.wire.messages import (
 
 from rigbench.link.channel import Channel
 from rigbench.link.errors import (
-    BoardRefused, IncompatibleBoard, LinkError, LinkLost, LinkTimeout, SaveMismatch, open_error,
+    BoardDeclarationRefused, BoardRefused, IncompatibleBoard, LinkError, LinkLost, LinkTimeout, SaveMismatch, open_error,
 )
 from rigbench.link.records import BoardStatus, LinkEvent, LinkHealth, RawLine, SaveResult
 from rigbench.link.ring import TelemetryBlock
@@ -154,16 +157,22 @@ class Link:
                 raise IncompatibleBoard(
                     f"board at {self.url} speaks protocol {'%d.%d' % info.version}, rigbench"
                     f" speaks {'%d.%d' % PROTOCOL_VERSION}: update one of them")
-            params = {}
-            for i in range(info.params):
-                p = ParamInfo.from_fields(ch.request(DescribeParam, i).fields)
-                params[p.name] = p
+            check_hello(info)  # counts first: nothing is asked or kept per declared item before
+            plist = [ParamInfo.from_fields(ch.request(DescribeParam, i).fields)
+                     for i in range(info.params)]
+            check_params(plist)
             signals = [SignalInfo.from_fields(ch.request(DescribeSignal, i).fields)
                        for i in range(info.signals)]
-            loops = {}
-            for i in range(info.loops):
-                lp = LoopInfo.from_fields(ch.request(DescribeLoop, i).fields)
-                loops[lp.name] = lp
+            check_signals(signals)
+            llist = [LoopInfo.from_fields(ch.request(DescribeLoop, i).fields)
+                     for i in range(info.loops)]
+            check_loops(llist)
+            params = {p.name: p for p in plist}
+            loops = {lp.name: lp for lp in llist}
+        except DeclarationError as exc:
+            raise BoardDeclarationRefused(
+                f"board at {self.url} declares what rigbench refuses (PROTOCOL.md §5.6):"
+                f" {exc.detail}") from None
         except RemoteProtocolError as exc:
             raise LinkError(f"board at {self.url} sent a bad discovery reply: {exc}") from None
         ch.ingest.set_layout([s.name for s in signals], [s.unit for s in signals])
@@ -184,7 +193,7 @@ class Link:
                 self._handshake(resync=True, hello_timeout_s=self.handshake_timeout_s)
             except LinkLost:
                 return
-            except IncompatibleBoard as exc:
+            except (IncompatibleBoard, BoardDeclarationRefused) as exc:
                 ch.mark_lost(exc)  # a board we cannot talk to is as good as gone
                 return
             except (LinkError, BoardRefused):
