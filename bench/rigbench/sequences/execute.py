@@ -153,6 +153,17 @@ class StepRunner:
         out.detail = f"motor {self.link.disarm()}"
 
     def _do_set(self, step, out, stop) -> None:
+        limits = [n for n in step.values if n.startswith(("trip_", "arm_"))]
+        if limits and not step.loosen_limits:
+            motor = self.link.status().motor
+            if motor in ("armed", "running"):
+                now = self.link.get(*limits)
+                looser = [f"{n} {now[n]:g} -> {step.values[n]:g}" for n in limits
+                          if isinstance(now.get(n), float) and abs(step.values[n]) > abs(now[n])]
+                if looser:
+                    raise StepAbort("refused", f"set would loosen {', '.join(looser)} while the "
+                                               f"motor is {motor}; disarm first, or add "
+                                               "loosen_limits: true to the step")
         applied = self.link.set(**step.values)
         out.data = {"applied": dict(applied)}
         out.detail = " ".join(f"{k}={format_value(v)}" for k, v in applied.items()
