@@ -235,6 +235,15 @@ class Experiment:
             self._halt("lost", link.health().lost_reason or "link lost")
         now = link.now()
         last = self._last_row_t
+        if last is None or now - last > self.guards.stale_s:
+            # rows that came while this thread waited on a request (a lost reply settled by
+            # asking status takes a few reply timeouts) are in the ring, not pulled yet
+            newest = link.snapshot(rows=1)
+            if len(newest):
+                last = max(last if last is not None else -float("inf"),
+                           float(newest.host_time_s[-1]))
+                if last < self.t0:
+                    last = None
         if last is None:
             if now - self.t0 > max(self.guards.startup_s, self.guards.stale_s):
                 self._halt("stale", f"no telemetry within {now - self.t0:.2f} s")

@@ -16,11 +16,12 @@ import math
 import re
 
 from rigbench.wire.errors import RemoteProtocolError
-from rigbench.wire.messages import NAME_RE
+from rigbench.wire.frame import MAX_BODY
+from rigbench.wire.messages import NAME_RE, format_fields
 
 __all__ = ["DeclarationError", "MAX_PARAMS", "MAX_SIGNALS", "MAX_LOOPS", "RATE_HZ_RANGE",
            "WATCHDOG_MS_RANGE", "UNIT_RE", "check_hello", "check_params", "check_signals",
-           "check_loops"]
+           "check_loops", "set_lines"]
 
 MAX_PARAMS = 256
 # a telemetry frame carries one value per signal in a 193-byte body (PROTOCOL.md §2): even
@@ -103,3 +104,24 @@ def check_loops(loops) -> None:
         if lp.name in seen:
             raise DeclarationError(f"loop {i} name={lp.name} is declared twice")
         seen.add(lp.name)
+
+
+def set_lines(values, *, body_max: int = MAX_BODY) -> list[list[tuple[str, float]]]:
+    """Split an atomic group of assignments into lines (PROTOCOL.md §5.5): every line but the
+    last goes as ``stage``, the last as ``set``, each body within ``body_max`` bytes with the
+    largest sequence number (the ``set`` reply is no longer than its command: "ok" is shorter
+    than "set", and the board writes values with the same 7 digits). Raises ValueError for an
+    assignment that cannot fit in a line at all."""
+    lines: list[list] = []
+    size = 0
+    head = len("stage 65535")
+    for pair in values:
+        token = format_fields([pair])[0]
+        if head + 1 + len(token) > body_max:
+            raise ValueError(f"{token[:40]}… is longer than a line can carry")
+        if not lines or size + 1 + len(token) > body_max:
+            lines.append([])
+            size = head
+        lines[-1].append(pair)
+        size += 1 + len(token)
+    return lines

@@ -222,10 +222,10 @@ static double token_value(rb_ctx *c, int i)
     return v;
 }
 
-static void on_set(rb_ctx *c)
+static int check_assigns(rb_ctx *c, int reply)
 {
-    /* atomic (§5.5): every assignment checked, the reply built, then all applied (the
-     * tokens are read twice rather than kept: less stack on a small board) */
+    /* every assignment of a set or stage (§5.5): the first refusal, or 1 when all are legal;
+     * `reply` adds the values as they will be applied to the reply */
     rb_board *b = c->b;
     int i;
     char name[40], lo[24], hi[24], text[96];
@@ -235,11 +235,11 @@ static void on_set(rb_ctx *c)
         double v;
         int pi = unknown_param(c, TOKP(c, i), k);
         if (pi < 0)
-            return;
+            return 0;
         p = &b->rig->params[pi];
         if (!p->writable) {
             refuse(c, "readonly", "%s is read-only", p->name);
-            return;
+            return 0;
         }
         v = rb_board_round(token_value(c, i));
         if (!((double)p->min <= v && v <= (double)p->max)) {
@@ -247,23 +247,92 @@ static void on_set(rb_ctx *c)
             rb_format_number(hi, sizeof hi, (double)p->max, 7);
             snprintf(text, sizeof text, "%s %s..%s", p->name, lo, hi);
             refuse(c, "range", "%s", text);
-            return;
+            return 0;
         }
         if (rb_gain_busy(b, pi)) {
             tok_copy(name, sizeof name, p->name, strlen(p->name));
             refuse(c, "busy", "%s belongs to a loop under test", name);
+            return 0;
+        }
+        if (reply)
+            rb_ln_kv_num(c->reply, p->name, v);
+    }
+    return 1;
+}
+
+static int staged_already(rb_ctx *c, uint8_t n)
+{
+    /* 1 when an assignment of this frame names a parameter staged before */
+    int i, j;
+    for (i = 2; i < c->nt; i++) {
+        int pi = rb_param_index(c->b, TOKP(c, i), key_len(c, i));
+        for (j = 0; pi >= 0 && j < n; j++)
+            if (c->b->staged_ix[j] == pi)
+                return 1;
+    }
+    return 0;
+}
+
+static void on_set(rb_ctx *c)
+{
+    /* atomic (§5.5): the staged group and every assignment checked, the reply built, then
+     * all applied (the tokens are read twice rather than kept: less stack on a small
+     * board). The staged group is used or dropped here. */
+    rb_board *b = c->b;
+    uint8_t n = b->n_staged, j;
+    int i;
+    char name[40];
+    b->n_staged = 0;
+    if (staged_already(c, n)) {
+        refuse(c, "bad_args", "a name staged and set again", NULL);
+        return;
+    }
+    for (j = 0; j < n; j++)
+        if (rb_gain_busy(b, b->staged_ix[j])) {
+            const char *pn = b->rig->params[b->staged_ix[j]].name;
+            tok_copy(name, sizeof name, pn, strlen(pn));
+            refuse(c, "busy", "%s belongs to a loop under test", name);
             return;
         }
-        rb_ln_kv_num(c->reply, p->name, v);
-    }
+    if (!check_assigns(c, 1))
+        return;
     if (c->reply->overflow) {
         refuse(c, "bad_args", "reply would not fit in one line; set fewer", NULL);
         return;
     }
+    for (j = 0; j < n; j++)
+        *b->rig->params[b->staged_ix[j]].value = b->staged_val[j];
     for (i = 2; i < c->nt; i++) {
         int pi = rb_param_index(b, TOKP(c, i), key_len(c, i));
         *b->rig->params[pi].value = (rb_real)rb_board_round(token_value(c, i));
     }
+}
+
+static void on_stage(rb_ctx *c)
+{
+    /* §5.5: check the assignments and keep them for the next `set`; a refusal drops the
+     * whole group */
+    rb_board *b = c->b;
+    uint8_t n = b->n_staged;
+    int i;
+    b->n_staged = 0;
+    if (staged_already(c, n)) {
+        refuse(c, "bad_args", "a name staged twice", NULL);
+        return;
+    }
+    if (!check_assigns(c, 0))
+        return;
+    if (n + (c->nt - 2) > RB_MAX_STAGED) {
+        refuse(c, "bad_args", "more assignments than this board can stage", NULL);
+        return;
+    }
+    for (i = 2; i < c->nt; i++) {
+        b->staged_ix[n] = (uint8_t)rb_param_index(b, TOKP(c, i), key_len(c, i));
+        b->staged_val[n] = (rb_real)rb_board_round(token_value(c, i));
+        n++;
+    }
+    b->n_staged = n;
+    rb_ln_kv_num(c->reply, "staged", (double)n);
 }
 
 static void on_stream(rb_ctx *c, double rate)
@@ -549,7 +618,7 @@ static void on_simple(rb_ctx *c, const char *verb)
 static const char *const NO_ARGS[] = {"save", "restore", "arm", "disarm", "clear", "kill",
                                       "status", NULL};
 static const char *const VERBS[] = {"hello", "param", "signal", "loop", "get", "set", "mode",
-                                    "stream", NULL};
+                                    "stream", "stage", NULL};
 static const char *const BOARD_VERBS[] = {"ok", "err", "tm", "st", "ev", NULL};
 
 static int all_digits_seq(rb_ctx *c, uint16_t *seq)
@@ -626,7 +695,7 @@ void rb_command(rb_board *b, const char *body, size_t n)
         b->hb_seen = 1;
         return;
     }
-    if (!in_list(VERBS, 8, body, toks[0].n) && !in_list(NO_ARGS, 7, body, toks[0].n)) {
+    if (!in_list(VERBS, 9, body, toks[0].n) && !in_list(NO_ARGS, 7, body, toks[0].n)) {
         char v[20];
         if (in_list(BOARD_VERBS, 5, body, toks[0].n)) {
             bad(&c, "wrong_direction", 0, "");
@@ -697,7 +766,7 @@ void rb_command(rb_board *b, const char *body, size_t n)
             bad(&c, "bad_field", 1, "get takes one or more names");
             return;
         }
-    } else if (strcmp(verb, "set") == 0) {
+    } else if (strcmp(verb, "set") == 0 || strcmp(verb, "stage") == 0) {
         if (c.nt < 3 || !fields_ok(&c, 2)) {
             bad(&c, "bad_field", 1, "set takes name=value pairs");
             return;
@@ -753,6 +822,8 @@ void rb_command(rb_board *b, const char *body, size_t n)
         }
         return;
     }
+    if (strcmp(verb, "set") != 0 && strcmp(verb, "stage") != 0)
+        b->n_staged = 0;                         /* §5.5: any other command drops a group */
     rb_ln_start(c.reply, "ok");
     rb_ln_u32(c.reply, c.seq);
     if (strcmp(verb, "hello") == 0)
@@ -767,6 +838,8 @@ void rb_command(rb_board *b, const char *body, size_t n)
         on_get(&c);
     else if (strcmp(verb, "set") == 0)
         on_set(&c);
+    else if (strcmp(verb, "stage") == 0)
+        on_stage(&c);
     else if (strcmp(verb, "mode") == 0)
         on_mode(&c, kind);
     else if (strcmp(verb, "stream") == 0)
