@@ -56,6 +56,9 @@ __all__ = ["Experiment", "ExperimentResult", "ExperimentStopped", "ArmRefused", 
            "Progress", "STOP_REASONS", "guard_limits"]
 
 
+EVENTS_KEPT = 100_000  # events one experiment keeps in memory (its recording keeps its own)
+
+
 class Experiment:
     """One guarded experiment on a link (see the module docstring)."""
 
@@ -79,6 +82,7 @@ class Experiment:
         self._blocks: list[tuple[np.ndarray, np.ndarray]] = []
         self._rows = 0
         self._events: list = []
+        self.events_dropped = 0  # events past EVENTS_KEPT (a chatty board), not kept
         self._marks: list = []
         self._stop: tuple[str, str] | None = None
         self._killed = False
@@ -196,7 +200,9 @@ class Experiment:
             if self._recorder.failed:
                 self._halt("disk", self._recorder.failed)
         self._skipped += blk.skipped
-        self._events.extend(events)
+        room = EVENTS_KEPT - len(self._events)  # a board flooding events cannot fill memory
+        self._events.extend(events[:max(room, 0)])
+        self.events_dropped += max(len(events) - max(room, 0), 0)
         out = None
         if len(blk) and blk.signals == self.signals:
             t, vals = blk.host_time_s.copy(), blk.values.copy()
