@@ -64,7 +64,9 @@ FIXED_COLUMNS = (("host_time", "s"), ("board_time", "s"), ("frame", "1"))
 SIDECAR_KEYS = ("format", "csv", "columns", "board", "url", "params_at_start", "loops", "started",
                 "stopped", "complete", "rows", "rows_skipped", "notes", "events", "link_health",
                 "events_file", "events_count", "events_dropped", "notes_dropped", "incomplete")
-EVENTS_MAX = 200_000  # events a recording keeps (≈ 30 MB of events file); later ones counted
+# events a recording keeps (≈ 10 MB of events file, ≈ 50 MB once read back); later ones
+# are counted (a 2 x 2000-injection sweep has ≈ 14 000)
+EVENTS_MAX = 100_000
 NOTES_MAX = 2_000  # notes in the sidecar; later ones counted
 NOTE_CHARS = 500  # a note longer than this is cut
 EVENT_LINE_MAX = 8192  # bytes of one events-file line the reader accepts
