@@ -26,9 +26,11 @@ from pathlib import Path
 
 ROOT = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(ROOT))
+sys.path.insert(0, str(ROOT / "bench"))
 sys.path.insert(0, str(ROOT / "tests" / "faults"))
 
 import fault_scenarios as scenarios  # noqa: E402
+from rigbench.link.urls import register_url_handlers  # noqa: E402
 
 
 def _shows(o) -> str:
@@ -60,14 +62,14 @@ def _motor(o) -> str:
 def table(outcomes) -> str:
     head = ("| scenario | fault injected | line bytes hit | telemetry sent | accepted | lost "
             "(host counted) | lines refused | accepted but wrong (CRC-16 allows) | host shows | "
-            "motor at end (board) | recording | notes |")
-    rows = [head, "|" + "---|" * 12]
+            "motor at end (board) | recording | link settings | notes |")
+    rows = [head, "|" + "---|" * 13]
     for o in outcomes:
         sent = str(o.frames_sent) if o.frames_sent else "–"
         rows.append(
             f"| {o.scenario} | {o.fault} | {o.line_bytes_hit} | {sent} | {o.frames_accepted} | "
             f"{o.telemetry_lost} ({o.host_counted_lost}) | {o.lines_rejected} | "
-            f"**{o.accepted_wrong}** (≤ {o.wrong_allowed}) | {_shows(o)} | {_motor(o)} | {_recording(o)} | {o.notes} |")
+            f"**{o.accepted_wrong}** (≤ {o.wrong_allowed}) | {_shows(o)} | {_motor(o)} | {_recording(o)} | {o.settings} | {o.notes} |")
     return "\n".join(rows)
 
 
@@ -80,6 +82,7 @@ def main(argv=None) -> int:
     ap.add_argument("--noise-only", action="store_true",
                     help="only the noisy-line scenarios (corrupt, drop)")
     args = ap.parse_args(argv)
+    register_url_handlers()  # sim:// (importing rigbench registers nothing)
     work = Path(tempfile.mkdtemp(prefix="rigbench-faults-"))
     outcomes = []
     t0 = time.perf_counter()

@@ -14,6 +14,7 @@ import pytest
 from rigbench.cli import main
 from rigbench.link import Link
 from rigbench.profiles.push import PushRefused, image_crc, push_profile
+from rigbench.wire.limits import set_lines
 from rigbench.profiles.model import dump_profile, load_profile, profile_from_board, save_profile
 
 ROOT = Path(__file__).parents[1]
@@ -283,3 +284,25 @@ def test_profile_commands_open_the_port_at_the_baud_given(command, monkeypatch, 
             "diff": ["diff", profile, "board"]}[command]
     assert main(argv + ["--port", URL, "--baud", "57600"]) == 0
     assert seen == [57600]
+@pytest.mark.parametrize("url, loop, lines", [(URL, "tilt", 2),
+                                              ("sim://wheel?clock=virtual", "speed", 1)])
+def test_a_profile_of_every_writable_parameter_pushes_and_reads_back(url, loop, lines):
+    # one atomic group longer than a line (PROTOCOL.md §5.5): staged lines, then one set
+    with Link.open(url) as lk:
+        writable = [n for n, p in lk.params.items() if p.writable]
+        everything = profile_from_board(lk, loop, extra=writable, limits=())
+        target = {}
+        for n in writable:  # a value inside each range, unlike the boot value
+            p = lk.params[n]
+            target[n] = float(f"{p.minimum + 0.25 * (p.maximum - p.minimum):.4g}")
+        profile = dataclasses.replace(everything, gains={
+            n: dataclasses.replace(s, value=target[n]) for n, s in everything.gains.items()})
+        spy = WireSpy(lk)
+        report = push_profile(lk, profile)
+        verbs = spy.verbs()
+        assert len(set_lines(tuple(target.items()))) == lines
+        assert verbs.count("stage") == lines - 1 and verbs.count("set") == 1
+        assert lines == 1 or verbs.index("stage") < verbs.index("set")
+        assert all(len(b) <= 193 for b in spy.bodies)
+        assert report.ok and report.mismatches == ()
+        assert lk.get(*writable) == pytest.approx(target, rel=1e-6)

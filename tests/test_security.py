@@ -21,7 +21,7 @@ import pytest
 import yaml
 
 from rigbench.cli import main
-from rigbench.link import Link
+from rigbench.link import Link, LinkError
 from rigbench.link.killsock import socket_path
 from rigbench.profiles.model import load_profile, load_profile_text
 from rigbench.recordings.recording import RecordingError, load_recording
@@ -231,7 +231,8 @@ def test_a_sequence_port_cannot_write_files_outside_the_results_folder(tmp_path,
 @pytest.mark.parametrize("port", [
     "socket://localhost:7777", "rfc2217://localhost:2217", "loop://", "spy:///dev/ttyUSB0",
     "replay:///etc/passwd", "SIM://wheel?state=/tmp/x", "sim://wheel?clock=virtual&state=nv.json",
-    "/dev/../etc/passwd", "/etc/passwd", "ttyUSB0", "/dev/tty USB0", "/dev/x://y", "COM0"])
+    "/dev/../etc/passwd", "/etc/passwd", "ttyUSB0", "/dev/tty USB0", "/dev/x://y", "COM0",
+    "/dev/tty", "/dev/fd/0", "/dev/stdin", "/dev/zero", "/dev/tty1", "/dev/mem"])
 def test_a_sequence_port_is_a_device_or_a_sim_url_that_writes_no_file(port, tmp_path):
     proj = _project(tmp_path / "proj")
     with pytest.raises(SchemaError) as err:
@@ -399,3 +400,48 @@ def test_the_kill_socket_is_owner_only_and_takes_only_kill(monkeypatch):
         service.close()
         shutil.rmtree(tmp_path, ignore_errors=True)
     assert not service.path.exists()
+# --------------------------------------------------------------------------- hostile files
+
+
+def test_a_results_link_out_of_the_project_folder_is_refused(tmp_path, capsys):
+    proj = _project(tmp_path / "proj")
+    outside = tmp_path / "elsewhere"
+    outside.mkdir()
+    (proj / "results").symlink_to(outside)
+    (proj / "sequences" / "s.yaml").write_text(_seq("  - arm\n  - disarm\n"))
+    code = main(["run", str(proj / "sequences" / "s.yaml"), "--no-plots"])
+    err = capsys.readouterr().err
+    assert code == 2 and "outside the project folder" in err
+    assert not any(outside.iterdir())
+
+
+@pytest.mark.parametrize("state", ["/dev/zero", "/dev/null", "."])
+def test_sim_state_must_be_a_regular_file(state, tmp_path):
+    with pytest.raises(LinkError, match="not a regular file|cannot read"):
+        Link.open(f"sim://wheel?clock=virtual&state={state}")
+
+
+@pytest.mark.parametrize("query", [
+    "num=1e308&den=1,1e-308", "num=1&den=1,1e300", "num=1&den=1e-300,1",
+    "num=1e300&den=1,-1", "num=1&den=1,1e150,1"])
+def test_sim_plants_that_would_step_into_nan_are_refused(query):
+    # common practice, no source: a state-space form with overflowing entries is unusable
+    with pytest.raises(LinkError, match="not finite"):
+        Link.open(f"sim://plant?{query}&clock=virtual")
+
+
+def test_a_set_step_may_not_loosen_trip_limits_while_armed(tmp_path, capsys):
+    proj = _project(tmp_path / "proj")
+    seq = ("sequence: 1\nname: loosen\nport: sim://balance?clock=virtual\n"
+           "guards: {tilt_deg: 15, wheel_fraction: 0.8}\nsteps:\n"
+           "  - arm\n  - hold\n  - set: {trip_tilt: 28}\n  - wait: 1\n  - disarm\n")
+    (proj / "sequences" / "s.yaml").write_text(seq)
+    code = main(["run", str(proj / "sequences" / "s.yaml"), "--out", str(tmp_path / "r1"),
+                 "--no-plots"])
+    out = capsys.readouterr().out
+    assert code == 4 and "loosen trip_tilt" in out and "loosen_limits: true" in out
+    (proj / "sequences" / "s.yaml").write_text(
+        seq.replace("{trip_tilt: 28}", "{trip_tilt: 28, loosen_limits: true}"))
+    code = main(["run", str(proj / "sequences" / "s.yaml"), "--out", str(tmp_path / "r2"),
+                 "--no-plots"])
+    assert code == 0, capsys.readouterr()

@@ -197,7 +197,12 @@ def test_limits_on_size_and_nesting(tmp_path):
     ("- check: {metric: fell, op: '<'}", "steps[1].check.value: required key missing"),
     ("- wait: {seconds: 1, settled: {signal: tilt, below: 1, for_s: 1}, timeout_s: 3}",
      "steps[1].wait: give either seconds or settled (not both)"),
-    ("- wait: -1", "steps[1].wait.seconds: must be greater than 0, got -1"),
+    ("- wait: -1", "steps[1].wait.seconds: -1 is below the minimum 0.001"),
+    ("- wait: 1e308", "steps[1].wait.seconds: 1e+308 is above the maximum 86400"),
+    ("- wait: {seconds: 1, timeout_s: 1e-300}",
+     "steps[1].wait.timeout_s: 1e-300 is below the minimum 0.001"),
+    ("- relay: {loop: tilt, amplitude: 1e308, hysteresis: 0, bound: 1, max_s: 5}",
+     "steps[1].relay.amplitude: 1e+308 is larger than 1e+12 in size"),
     ("- set: {timeout_s: 2}", "steps[1].set: set needs at least one parameter: value"),
     ("- set: {Tilt_kp: 2}", "steps[1].set.Tilt_kp: 'Tilt_kp' is not a parameter name"),
     ("- sweep: {loop: tilt, shape: pulse, at: body, amplitudes: [1], repeats: 1, spacing_s: 0.5, "

@@ -17,19 +17,22 @@ Exit codes (``EXIT_CODES``):
     4    the board refused a command (its error code and text are printed)
     5    a guard tripped or a safety stop ended the run
     6    a check failed (a verification or comparison came out wrong)
+    7    results could not be written (disk full, I/O error): recording cut at its last
+         whole line and marked incomplete; a running experiment was stopped
     130  interrupted (Ctrl-C) before the command finished
 """
 
 from __future__ import annotations
 
 import argparse
+import errno
 import importlib
 import os
 import sys
 import traceback
 
 from rigbench.base.stops import (  # noqa: F401
-    EXIT_CHECK, EXIT_CODES, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_LINK, EXIT_OK, EXIT_REFUSED,
+    EXIT_CHECK, EXIT_CODES, EXIT_DISK, EXIT_INTERNAL, EXIT_INTERRUPTED, EXIT_LINK, EXIT_OK, EXIT_REFUSED,
     EXIT_TRIP, EXIT_USAGE,
 )
 from rigbench.base.version import package_version
@@ -91,6 +94,9 @@ def _broken(name: str, exc: Exception):
     return run
 
 
+_DISK_ERRNOS = {errno.ENOSPC, errno.EDQUOT, errno.EIO, errno.EROFS, errno.EFBIG}
+
+
 def _fail(code: int, message: str, debug: bool) -> int:
     if debug:
         traceback.print_exc(file=sys.stderr)
@@ -141,6 +147,12 @@ def main(argv: list[str] | None = None) -> int:
         except OSError:
             pass
         return EXIT_OK
+    except OSError as exc:
+        if exc.errno in _DISK_ERRNOS:  # a results file that cannot be written: not a bug
+            where = f"cannot write {exc.filename}" if exc.filename else "cannot write results"
+            return _fail(EXIT_DISK, f"{where}: {exc.strerror}", debug)
+        return _fail(EXIT_INTERNAL, f"internal error: OSError: {exc}"
+                     " (run again with --debug and report it)", debug)
     except Exception as exc:  # noqa: BLE001 - the user gets one line; --debug shows more
         first = str(exc).splitlines()[0] if str(exc) else ""
         return _fail(EXIT_INTERNAL, f"internal error: {type(exc).__name__}: {first}"

@@ -98,7 +98,7 @@ _SEQ = st.one_of(st.integers(0, 70000).map(str), st.sampled_from(["x", "007", ""
 
 @st.composite
 def _command(draw):
-    verb = draw(st.sampled_from(["hello", "param", "signal", "loop", "get", "set", "save",
+    verb = draw(st.sampled_from(["hello", "param", "signal", "loop", "get", "set", "stage", "save",
                                  "restore", "arm", "disarm", "clear", "mode", "stream", "kill",
                                  "status", "hb", "jump", "tm"]))
     seq = draw(_SEQ)
@@ -108,7 +108,7 @@ def _command(draw):
         args = [draw(st.integers(0, 300).map(str))]
     elif verb == "get":
         args = draw(st.lists(st.sampled_from(_NAMES), min_size=0, max_size=4))
-    elif verb == "set":
+    elif verb in ("set", "stage"):
         args = [f"{k}={v}" for k, v in draw(st.lists(st.tuples(st.sampled_from(_NAMES), _NUM),
                                                      min_size=0, max_size=3))]
     elif verb == "mode":
@@ -172,6 +172,39 @@ def test_a_reply_too_long_for_one_line_is_refused():
     assert t.differences() == []
     replies = [x for x in t.lines("c") if x.startswith(("ok", "err"))]
     assert replies[0] == "err 5 bad_args" and replies[1].startswith("ok 6 tilt_kp=0.64 ")
+
+
+def test_a_group_longer_than_a_line_is_staged_then_applied_at_once():
+    # PROTOCOL.md §5.5: `stage` checks and keeps, the next `set` applies all; a refusal or
+    # any other command drops what was staged
+    t = Twin("balance")
+    writable = [p for p in t.py.rig.params if p.writable]
+    half = len(writable) // 2
+    first = " ".join(f"{p.name}={p.minimum}" for p in writable[:half])
+    rest = " ".join(f"{p.name}={p.minimum}" for p in writable[half:])
+    t.body(f"stage 5 {first}")
+    t.body(f"get 6 {writable[0].name}")          # any other command drops the group
+    t.body(f"set 7 {rest}")
+    t.body(f"get 8 {writable[0].name}")          # still the boot value
+    t.body(f"stage 9 {first}")
+    t.body(f"stage 10 {writable[0].name}=1")     # staged twice: refused, group dropped
+    t.body(f"stage 11 {first}")
+    t.body(f"stage 11 {first}")                  # a resend: not staged again
+    t.body(f"stage 12 {writable[half].name}=-1e9")  # out of range: refused, group dropped
+    t.body(f"stage 13 {first}")
+    t.body(f"set 14 {rest}")                     # applies both lines at once
+    t.body(f"get 15 {writable[0].name} {writable[-1].name}")
+    assert t.differences() == []
+    replies = [x for x in t.lines("c") if x.startswith(("ok", "err"))]
+    boot = t.py.rig.params[0].default
+    assert replies[0] == f"ok 5 staged={half}"
+    assert replies[3].startswith("ok 8 ") and replies[3].endswith(f"={boot:g}")
+    assert replies[5].startswith("err 10 bad_args")  # a name staged twice
+    assert replies[6] == replies[7] == f"ok 11 staged={half}"
+    assert replies[8].startswith("err 12 range")
+    assert replies[9] == f"ok 13 staged={half}" and replies[10].startswith("ok 14 ")
+    assert replies[11] == (f"ok 15 {writable[0].name}={writable[0].minimum:g} "
+                           f"{writable[-1].name}={writable[-1].minimum:g}")
 
 
 def test_a_resend_is_known_by_its_body_as_sent():

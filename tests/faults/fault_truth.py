@@ -144,6 +144,7 @@ class Outcome:
     recording_ok: bool | None = None   # loads, frames rise, host time never goes back
     recording_gap_s: float | None = None   # board time from the last recorded row to the fault
     notes: str = ""
+    settings: str = "defaults"         # link settings other than the CLI's defaults
 
     @property
     def motor_off(self) -> bool:

@@ -68,19 +68,56 @@ def test_idempotent_command_is_resent_with_the_same_seq(link, port, board):
     assert (h.resends, h.timeouts) == (1, 1)
 
 
-def test_non_idempotent_command_is_not_resent(link, port, board):
-    board.mute["arm"] = 1
-    with pytest.raises(LinkTimeout, match="not resent"):
-        link.arm()
-    assert len(frames_of(port, "arm")) == 1
+def test_non_idempotent_command_is_not_resent_and_status_settles_a_lost_reply(link, port,
+                                                                            board):
+    link.sleep(0.3)  # heartbeats: the interlock allows arming
+    board.mute["arm"] = 1  # the board arms, its reply is lost
+    assert link.arm() == "armed"
+    assert len(frames_of(port, "arm")) == 1 and frames_of(port, "status")
+    assert board.motor == "armed" and link.health().confirmed_by_status == 1
     assert not Arm.IDEMPOTENT and Get.IDEMPOTENT and Set.IDEMPOTENT
 
 
+def test_a_mode_lost_on_the_way_is_sent_again_as_a_new_command(link, port, board):
+    link.sleep(0.3)
+    link.arm()
+    write = port.write
+    lost = []
+
+    def lose_first_mode(data):
+        if data.startswith(b"@mode ") and not lost:
+            lost.append(data)
+            return len(data)  # never reaches the board
+        return write(data)
+    port.write = lose_first_mode
+    assert link.mode("hold")["mode"] == "hold"
+    sent = frames_of(port, "mode")
+    assert len(lost) == 1 and len(sent) == 1  # the lost one never reached the board
+    assert lost[0].split(b" ")[1] != sent[0].split(b" ")[1]  # sent again: a new number
+    assert board.mode == "hold" and board.motor == "running"
+
+
+def test_a_mode_that_never_gets_through_ends_in_one_timeout(link, port, board):
+    link.sleep(0.3)
+    link.arm()
+    board.mute["mode"] = 100
+    board.mode = "off"
+    real_act = board._act
+
+    def refuse_silently(msg, t):  # the board never changes mode and the reply is lost
+        if type(msg).VERB == "mode":
+            return real_act(type(msg)(msg.seq, "off", ()), t)
+        return real_act(msg, t)
+    board._act = refuse_silently
+    with pytest.raises(LinkTimeout, match="did not show it done"):
+        link.mode("hold")
+
+
 def test_idempotent_command_gives_up_after_its_retries(link, port, board):
-    board.mute["get"] = 10
-    with pytest.raises(LinkTimeout, match="3 tries"):
+    board.mute["get"] = 100
+    with pytest.raises(LinkTimeout, match="11 tries"):
         link.get("tilt_kp")
-    assert len(frames_of(port, "get")) == 3
+    assert len(frames_of(port, "get")) == 11
 
 
 def test_board_refusal_raises_with_code_and_keeps_the_value(link, board):
@@ -255,7 +292,8 @@ def test_a_silent_port_gives_a_hello_timeout_with_a_hint(thread_errors):
         Link.attach(FakePort(board), url="fake://quiet", handshake_timeout_s=1.0)
     assert "\n" not in str(info.value)
     hellos = [m for _, m in board.received if type(m).__name__ == "Hello"]
-    assert len(hellos) == 2 and len({m.seq for m in hellos}) == 1  # resent, same seq
+    # resent with the same seq until the handshake time is spent (1 s of 0.25 s waits)
+    assert len(hellos) == 4 and len({m.seq for m in hellos}) == 1
 
 
 def test_a_hello_refused_with_state_is_sent_again_under_a_new_number(thread_errors):

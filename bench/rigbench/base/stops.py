@@ -10,7 +10,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 __all__ = ["EXIT_OK", "EXIT_INTERNAL", "EXIT_USAGE", "EXIT_LINK", "EXIT_REFUSED", "EXIT_TRIP",
-           "EXIT_CHECK", "EXIT_INTERRUPTED", "EXIT_CODES", "Stop", "STOPS", "kills_motor",
+           "EXIT_CHECK", "EXIT_DISK", "EXIT_INTERRUPTED", "EXIT_CODES", "Stop", "STOPS", "kills_motor",
            "exit_code_for"]
 
 EXIT_OK = 0
@@ -20,6 +20,7 @@ EXIT_LINK = 3
 EXIT_REFUSED = 4
 EXIT_TRIP = 5
 EXIT_CHECK = 6
+EXIT_DISK = 7
 EXIT_INTERRUPTED = 130
 
 EXIT_CODES: dict[int, str] = {
@@ -30,6 +31,8 @@ EXIT_CODES: dict[int, str] = {
     EXIT_REFUSED: "the board refused a command",
     EXIT_TRIP: "a guard tripped or a safety stop ended the run",
     EXIT_CHECK: "a check failed",
+    EXIT_DISK: "results could not be written (disk full, I/O error): the recording ends at its"
+               " last whole line and is marked incomplete; a running experiment was stopped",
     EXIT_INTERRUPTED: "interrupted (Ctrl-C)",
 }
 
@@ -56,6 +59,7 @@ STOPS: dict[str, Stop] = {s.reason: s for s in (
     Stop("stale", True, EXIT_TRIP, "telemetry stopped arriving: motor killed"),
     Stop("reset", True, EXIT_TRIP, "the board restarted: motor killed"),
     Stop("timeout", False, EXIT_TRIP, "a step took longer than its timeout: stopped"),
+    Stop("disk", True, EXIT_DISK, "results could not be written (disk full): motor killed"),
     Stop("lost", True, EXIT_LINK, "the link was lost: kill sent where possible"),
     Stop("refused", False, EXIT_REFUSED, "the board refused a command or to arm"),
     Stop("error", False, EXIT_INTERNAL, "an unexpected error: motor switched off"),

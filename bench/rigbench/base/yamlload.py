@@ -23,7 +23,9 @@ from __future__ import annotations
 
 import difflib
 import math
+import os
 import re
+import stat
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any, Iterable
@@ -158,11 +160,13 @@ def _scalar(node, path: str, where: str):
     raise SchemaError(path, _line(node), where, f"tag {tag} is not allowed")
 
 
-def load_yaml_text(text: str, path: str | Path = "<text>") -> "Cursor":
-    """Parse one YAML document; raise SchemaError (never anything else) when it cannot."""
+def load_yaml_text(text: str, path: str | Path = "<text>", *,
+                   max_bytes: int = MAX_BYTES) -> "Cursor":
+    """Parse one YAML document; raise SchemaError (never anything else) when it cannot.
+    ``max_bytes``: the largest text accepted (a sidecar may be larger than a profile)."""
     path = str(path)
-    if len(text) > MAX_BYTES:
-        raise SchemaError(path, None, "(file)", f"larger than {MAX_BYTES} bytes")
+    if len(text) > max_bytes:
+        raise SchemaError(path, None, "(file)", f"larger than {max_bytes} bytes")
     try:
         loader = StrictLoader(text)
         try:
@@ -189,12 +193,15 @@ def load_yaml_text(text: str, path: str | Path = "<text>") -> "Cursor":
     return Cursor(value, path, "", _line(node))
 
 
-def load_yaml(path: str | Path) -> "Cursor":
-    """Read and parse ``path`` (UTF-8); unreadable files raise SchemaError too."""
+def load_yaml(path: str | Path, *, max_bytes: int = MAX_BYTES) -> "Cursor":
+    """Read and parse ``path`` (UTF-8); unreadable files raise SchemaError too. Reads no
+    more than ``max_bytes`` + 1 bytes, and only from a regular file."""
     path = str(path)
     try:
         with open(path, "rb") as f:
-            data = f.read(MAX_BYTES + 1)
+            if not stat.S_ISREG(os.fstat(f.fileno()).st_mode):
+                raise SchemaError(path, None, "(file)", "not a regular file")
+            data = f.read(max_bytes + 1)
     except (OSError, ValueError) as exc:  # ValueError: a NUL in the path
         raise SchemaError(path, None, "(file)",
                           f"cannot read: {getattr(exc, 'strerror', None) or exc}") from None
@@ -203,7 +210,7 @@ def load_yaml(path: str | Path) -> "Cursor":
     except UnicodeDecodeError as exc:
         line = data.count(b"\n", 0, exc.start) + 1
         raise SchemaError(path, line, "(file)", "not UTF-8 text") from None
-    return load_yaml_text(text, path)
+    return load_yaml_text(text, path, max_bytes=max_bytes)
 
 
 # --------------------------------------------------------------------------- schema helpers

@@ -46,8 +46,17 @@ def add_json_option(parser: argparse.ArgumentParser) -> None:
 
 
 def open_link(args, **kwargs) -> Link:
-    """Open ``args.port`` and handshake (LinkError on failure: exit code 3)."""
-    return Link.open(args.port, baudrate=getattr(args, "baud", 115200), **kwargs)
+    """Open ``args.port`` and handshake (LinkError on failure: exit code 3). When it closes,
+    a link that lost or resent anything says so on stderr in one line."""
+    link = Link.open(args.port, baudrate=getattr(args, "baud", 115200), **kwargs)
+    link.on_close = _say_line_report
+    return link
+
+
+def _say_line_report(link) -> None:
+    line = link.line_report()
+    if line:
+        print(f"rigbench: {line}", file=sys.stderr)
 
 
 def plain(obj):

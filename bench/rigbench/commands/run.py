@@ -86,7 +86,7 @@ def run(args) -> int:
     port = args.port or seq.port or DEFAULT_PORT
     folder = args.out or default_results_dir(seq)
     try:
-        folder = prepare_results_dir(folder)
+        folder = prepare_results_dir(folder, inside=None if args.out else seq.project)
     except OSError as exc:
         raise CommandError(EXIT_USAGE, f"results folder {exc.filename or folder}: "
                                        f"{exc.strerror or exc}") from None

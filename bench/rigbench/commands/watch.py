@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import math
 
-from rigbench.base.stops import EXIT_USAGE  # noqa: F401
+from rigbench.base.stops import EXIT_DISK, EXIT_USAGE  # noqa: F401
 from rigbench.commands._common import CommandError, help_text
 from rigbench.recordings.recording import Recorder, RecordingError
 
@@ -78,13 +78,16 @@ def run(args) -> int:
             try:
                 t0 = link.now()
                 try:
-                    while args.seconds is None or link.now() - t0 < args.seconds - 1e-9:
+                    while ((args.seconds is None or link.now() - t0 < args.seconds - 1e-9)
+                           and recorder.failed is None):
                         left = 1.0 if args.seconds is None else args.seconds - (link.now() - t0)
                         link.sleep(min(1.0, left))
                 except KeyboardInterrupt:
                     pass
             finally:
                 recorder.close()
+            if recorder.failed:
+                raise CommandError(EXIT_DISK, f"{recorder.failed}; {recorder.rows} rows kept")
             print(f"recorded {recorder.rows} rows at {actual:g} Hz to {recorder.path} "
                   f"(sidecar {recorder.sidecar})")
         else:

@@ -60,6 +60,9 @@ __all__ = ["Experiment", "ExperimentResult", "ExperimentStopped", "ArmRefused", 
 log = logging.getLogger(__name__)
 
 
+EVENTS_KEPT = 100_000  # events one experiment keeps in memory (its recording keeps its own)
+
+
 class Experiment:
     """One guarded experiment on a link (see the module docstring)."""
 
@@ -83,6 +86,7 @@ class Experiment:
         self._blocks: list[tuple[np.ndarray, np.ndarray]] = []
         self._rows = 0
         self._events: list = []
+        self.events_dropped = 0  # events past EVENTS_KEPT (a chatty board), not kept
         self._marks: list = []
         self._stop: tuple[str, str] | None = None
         self._killed = False
@@ -204,8 +208,12 @@ class Experiment:
         self._ev_cursor, events = link.events_since(self._ev_cursor)
         if self._recorder is not None:
             self._recorder.poll()
+            if self._recorder.failed:
+                self._halt("disk", self._recorder.failed)
         self._skipped += blk.skipped
-        self._events.extend(events)
+        room = EVENTS_KEPT - len(self._events)  # a board flooding events cannot fill memory
+        self._events.extend(events[:max(room, 0)])
+        self.events_dropped += max(len(events) - max(room, 0), 0)
         out = None
         if len(blk) and blk.signals == self.signals:
             t, vals = blk.host_time_s.copy(), blk.values.copy()
@@ -244,12 +252,25 @@ class Experiment:
             self._halt("lost", link.health().lost_reason or "link lost")
         now = link.now()
         last = self._last_row_t
+        if last is None or now - last > self.guards.stale_s:
+            # rows that came while this thread waited on a request (a lost reply settled by
+            # asking status takes a few reply timeouts) are in the ring, not pulled yet
+            newest = link.snapshot(rows=1)
+            if len(newest):
+                last = max(last if last is not None else -float("inf"),
+                           float(newest.host_time_s[-1]))
+                if last < self.t0:
+                    last = None
         if last is None:
             if now - self.t0 > max(self.guards.startup_s, self.guards.stale_s):
                 self._halt("stale", f"no telemetry within {now - self.t0:.2f} s")
         elif now - last > self.guards.stale_s:
             self._halt("stale", f"telemetry {now - last:.2f} s old (limit "
                                 f"{self.guards.stale_s:g} s)")
+
+    def halt(self, reason: str, detail: str):
+        """Stop for ``reason`` (a key of rigbench.base.stops.STOPS); raises ExperimentStopped."""
+        self._halt(reason, detail)
 
     def _halt(self, reason: str, detail: str):
         """Stop now: kill for a safety reason, then raise ExperimentStopped."""
@@ -323,6 +344,8 @@ class Experiment:
             except Exception:  # noqa: BLE001 - a failed recording must not hide the result
                 log.warning("experiment %r: recording %s not closed cleanly", self.name,
                             rec_path, exc_info=True)
+            if self._recorder.failed and self._stop[0] in ("done", "converged"):
+                self._stop = ("disk", self._recorder.failed)  # the motor was left safe already
         motor = None
         try:
             motor = self.link.status().motor

@@ -102,7 +102,7 @@ class Channel:
         self.user_kills = 0        # kills not sent by an experiment's own guards
         # counters: requesters and the reader both count, under a small lock
         self.c = dict(timeouts=0, resends=0, late_replies=0, heartbeats=0, rx_bytes=0,
-                      tx_bytes=0)
+                      tx_bytes=0, confirmed=0)
         self._count_lock = threading.Lock()
         self._latency: deque = deque(maxlen=64)
         self._rates: deque = deque(maxlen=16)  # (t, rx_frames, tm_rows) samples
@@ -159,6 +159,10 @@ class Channel:
             raise LinkLost(self._lost)
         if self._closed or self._stop:
             raise LinkError(f"link to {self.url} is closed")
+
+    def count_confirmed(self) -> None:
+        """A lost reply to ``arm``/``mode`` settled by asking ``status`` (Link._confirmed)."""
+        self._count("confirmed")
 
     def _count(self, key: str, n: int = 1) -> None:
         with self._count_lock:
@@ -355,5 +359,6 @@ class Channel:
             resets=c["resets"], resyncs=c["resyncs"], timeouts=c["timeouts"],
             resends=c["resends"], late_replies=c["late_replies"], heartbeats=c["heartbeats"],
             rx_bytes=c["rx_bytes"], tx_bytes=c["tx_bytes"], lost_reason=self._lost,
+            confirmed_by_status=c["confirmed"],
         )
 

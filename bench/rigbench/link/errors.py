@@ -26,6 +26,10 @@ class IncompatibleBoard(LinkError):
     """The board speaks another major protocol version (PROTOCOL.md §5.1)."""
 
 
+class BoardDeclarationRefused(IncompatibleBoard):
+    """The board declares counts, names, units or times outside PROTOCOL.md §5.6."""
+
+
 class SaveMismatch(LinkError):
     """``save`` stored an image whose CRC differs from the values read back (§5.5)."""
 

@@ -28,16 +28,20 @@ from rigbench.link.urls import register_url_handlers
 from rigbench.wire.crc import crc16
 from rigbench.wire.describe import BoardInfo, LoopInfo, ParamInfo, SignalInfo, compatible
 from rigbench.wire.errors import RemoteProtocolError
+from rigbench.wire.limits import (
+    DeclarationError, check_hello, check_loops, check_params, check_signals, set_lines,
+)
 from rigbench.wire.messages import (
     PROTOCOL_VERSION, Arm, Clear, DescribeLoop, DescribeParam, DescribeSignal, Disarm, Get,
-    Hello, Kill, Mode, Ok, Restore, Save, Set, StatusRequest, Stream, parse_number,
+    Hello, Kill, Mode, Ok, Restore, Save, Set, Stage, StatusRequest, Stream, parse_number,
 )
 
 from rigbench.link.channel import Channel
 from rigbench.link.killing import CONFIRM_S, kill_and_confirm
 from rigbench.link.killsock import KillService
 from rigbench.link.errors import (
-    BoardRefused, IncompatibleBoard, LinkError, LinkLost, LinkTimeout, SaveMismatch, open_error,
+    BoardDeclarationRefused, BoardRefused, IncompatibleBoard, LinkError, LinkLost, LinkTimeout,
+    SaveMismatch, open_error,
 )
 from rigbench.link.records import BoardStatus, LinkEvent, LinkHealth, RawLine, SaveResult
 from rigbench.link.ring import TelemetryBlock
@@ -46,6 +50,14 @@ log = logging.getLogger(__name__)
 
 _FIXED_CHUNK_SCHEMES = ("socket://", "rfc2217://")  # in_waiting says only 0 or 1
 _REPLY_BUDGET = 150  # bytes of reply body we plan for per ``get`` (frame body max 193)
+# Defaults of every command (docs/FAULTS.md measures the noisy-line rows with them): a board
+# replies within 50 ms (PROTOCOL.md §4.2), a USB bridge adds ≈ 16 ms; 0.25 s leaves room.
+# 10 resends of an idempotent command ride through a line that damages one frame in two.
+REPLY_TIMEOUT_S = 0.25
+RETRIES = 10
+# ``arm`` and ``mode`` are never resent; after a lost reply the host asks ``status`` and, if
+# the command did not take effect, sends it again as a new command, at most this many times
+CONFIRM_TRIES = 6
 
 
 def _value(text: str):
@@ -59,8 +71,8 @@ def _value(text: str):
 class Link:
     """One board on one port. See the module docstring; use as a context manager."""
 
-    def __init__(self, port, *, url: str | None = None, reply_timeout_s: float = 0.5,
-                 heartbeat_s: float = 0.1, ring_rows: int = 65536, retries: int = 2,
+    def __init__(self, port, *, url: str | None = None, reply_timeout_s: float = REPLY_TIMEOUT_S,
+                 heartbeat_s: float = 0.1, ring_rows: int = 65536, retries: int = RETRIES,
                  handshake_timeout_s: float = 3.0, stale_s: float = 1.0,
                  read_chunk: int | None = None, virtual_pace: str = "demand") -> None:
         self.url = url or str(getattr(port, "port", None) or "port")
@@ -80,11 +92,12 @@ class Link:
         self._stream_rate_hz: float | None = None
         self._resync_thread: threading.Thread | None = None
         self._kill_service: KillService | None = None
+        self.on_close = None  # called with the link once, when it closes (a command's report)
 
     # ------------------------------------------------------------------ opening
 
     @classmethod
-    def open(cls, url: str, *, reply_timeout_s: float = 0.5, heartbeat_s: float = 0.1,
+    def open(cls, url: str, *, reply_timeout_s: float = REPLY_TIMEOUT_S, heartbeat_s: float = 0.1,
              ring_rows: int = 65536, baudrate: int = 115200, read_timeout_s: float = 0.01,
              write_timeout_s: float = 1.0, **kwargs) -> "Link":
         """Open ``url`` and handshake. Raises LinkError (one line, with a likely fix)."""
@@ -128,6 +141,12 @@ class Link:
         """Stop the threads promptly and close the port. Safe to call twice."""
         if self._kill_service is not None:
             self._kill_service.close()
+        hook, self.on_close = self.on_close, None
+        if callable(hook):
+            try:
+                hook(self)
+            except Exception:  # noqa: BLE001 - a report must not keep the port open
+                pass
         self.channel.close()
         self.channel.ingest.reset_seen.set()  # wakes the resync thread, which sees the stop
         if self._resync_thread is not None and self._resync_thread is not threading.current_thread():
@@ -171,16 +190,22 @@ class Link:
                 raise IncompatibleBoard(
                     f"board at {self.url} speaks protocol {'%d.%d' % info.version}, rigbench"
                     f" speaks {'%d.%d' % PROTOCOL_VERSION}: update one of them")
-            params = {}
-            for i in range(info.params):
-                p = ParamInfo.from_fields(ch.request(DescribeParam, i).fields)
-                params[p.name] = p
+            check_hello(info)  # counts first: nothing is asked or kept per declared item before
+            plist = [ParamInfo.from_fields(ch.request(DescribeParam, i).fields)
+                     for i in range(info.params)]
+            check_params(plist)
             signals = [SignalInfo.from_fields(ch.request(DescribeSignal, i).fields)
                        for i in range(info.signals)]
-            loops = {}
-            for i in range(info.loops):
-                lp = LoopInfo.from_fields(ch.request(DescribeLoop, i).fields)
-                loops[lp.name] = lp
+            check_signals(signals)
+            llist = [LoopInfo.from_fields(ch.request(DescribeLoop, i).fields)
+                     for i in range(info.loops)]
+            check_loops(llist)
+            params = {p.name: p for p in plist}
+            loops = {lp.name: lp for lp in llist}
+        except DeclarationError as exc:
+            raise BoardDeclarationRefused(
+                f"board at {self.url} declares what rigbench refuses (PROTOCOL.md §5.6):"
+                f" {exc.detail}") from None
         except RemoteProtocolError as exc:
             raise LinkError(f"board at {self.url} sent a bad discovery reply: {exc}") from None
         ch.ingest.set_layout([s.name for s in signals], [s.unit for s in signals])
@@ -201,7 +226,7 @@ class Link:
                 self._handshake(resync=True, hello_timeout_s=self.handshake_timeout_s)
             except LinkLost:
                 return
-            except IncompatibleBoard as exc:
+            except (IncompatibleBoard, BoardDeclarationRefused) as exc:
                 log.warning("%s: board restarted as one we cannot talk to: %s", self.url, exc)
                 ch.mark_lost(exc)  # a board we cannot talk to is as good as gone
                 return
@@ -240,9 +265,21 @@ class Link:
         return {k: _value(v) for k, v in self._get_raw(names).items()}
 
     def set(self, **values: float) -> dict[str, float]:
-        """Set parameters atomically (one ``set``, PROTOCOL.md §5.5); return what was applied."""
-        reply = self.request(Set, tuple((k, float(v)) for k, v in values.items()))
+        """Set parameters atomically (PROTOCOL.md §5.5); return what was applied. A group
+        longer than one line goes as ``stage`` lines then one ``set`` that applies them all;
+        if any of them fails, nothing was applied and the staged part is dropped."""
+        lines = set_lines(tuple((k, float(v)) for k, v in values.items()))
+        try:
+            for line in lines[:-1]:
+                self.request(Stage, tuple(line))
+            reply = self.request(Set, tuple(lines[-1]))
+        except BaseException:
+            if len(lines) > 1:
+                self._drop_staged()
+            raise
         applied = {k: _value(v) for k, v in reply.fields}
+        if len(lines) > 1:  # the staged values as the board applied them
+            applied = {**self.get(*(k for line in lines[:-1] for k, _ in line)), **applied}
         params = dict(self.params)
         for k, v in applied.items():
             if k in params and isinstance(v, float):
@@ -250,8 +287,36 @@ class Link:
         self.params = params
         return applied
 
+    def _confirmed(self, cmd_cls, args: tuple, took_effect):
+        """Send a command that is never resent (``arm``, ``mode``: PROTOCOL.md §4.2). When its
+        reply is lost, ask ``status``: if ``took_effect(status, events since sending)`` the
+        command is done (returns None); else send it again as a new command (a new sequence
+        number). Returns the Ok reply when one arrived."""
+        for _ in range(CONFIRM_TRIES):
+            cursor = self.event_cursor()
+            try:
+                return self.request(cmd_cls, *args)
+            except LinkTimeout:
+                pass
+            st = self.status()  # idempotent: resent as often as the line needs
+            _, events = self.events_since(cursor)
+            self.channel.count_confirmed()
+            if took_effect(st, [e for e in events if e.source == "board"]):
+                return None
+        raise LinkTimeout(f"no reply from {self.url} to {cmd_cls.VERB!r}, and `status` did not "
+                          f"show it done after {CONFIRM_TRIES} tries: the line loses too much")
+
+    def _drop_staged(self) -> None:
+        """A group that failed half-way: any command but ``stage``/``set`` drops what the
+        board staged (§5.5), so a later ``set`` cannot apply it."""
+        try:
+            self.request(StatusRequest)
+        except (LinkError, BoardRefused):
+            pass  # a board that cannot answer drops the group when it restarts
+
     def arm(self) -> str:
-        return self.request(Arm).get("motor", "armed")
+        reply = self._confirmed(Arm, (), lambda st, ev: st.motor in ("armed", "running"))
+        return "armed" if reply is None else reply.get("motor", "armed")
 
     def disarm(self) -> str:
         return self.request(Disarm).get("motor", "off")
@@ -261,7 +326,18 @@ class Link:
 
     def mode(self, name: str, **args) -> dict:
         """Change mode (PROTOCOL.md §8); returns the fields the board applied."""
-        reply = self.request(Mode, name, tuple(args.items()))
+        loop = args.get("loop")
+
+        def took_effect(st, events) -> bool:
+            if st.mode == name and (loop is None or st.loop == loop):
+                return True
+            # a timed mode may have ended before the status: its ``ev mode``/``ev done`` tells
+            return any(e.kind in ("mode", "done") and e.get("mode") == name
+                       and (loop is None or e.get("loop") in (loop, None)) for e in events)
+
+        reply = self._confirmed(Mode, (name, tuple(args.items())), took_effect)
+        if reply is None:  # done, as status showed: the values asked for (not the board's)
+            return {"mode": name, **args}
         return {k: _value(v) for k, v in reply.fields}
 
     def stream(self, rate_hz: float) -> float:
@@ -384,4 +460,14 @@ class Link:
 
     def health(self) -> LinkHealth:
         return self.channel.health()
+
+    def line_report(self) -> str | None:
+        """One line on how noisy the link was, or None when nothing was lost or resent."""
+        h = self.health()
+        if not (h.line_error_rate or h.resends or h.timeouts or h.confirmed_by_status):
+            return None
+        bad = ", ".join(f"{k} {v}" for k, v in sorted(h.bad_frames.items()) if k != "kill_byte")
+        return (f"link {self.url}: {h.line_error_rate:.2%} of received lines refused"
+                + (f" ({bad})" if bad else "") + f"; {h.resends} resends, "
+                f"{h.confirmed_by_status} lost replies settled by asking status")
 

@@ -11,6 +11,12 @@ unfinished one (recorded, marked cut).
 
 Cheap on the reader's path (2 kHz telemetry): one ``split`` per chunk and one log append
 per chunk holding its finished lines; text conversion happens when a reader asks.
+
+Bounded whatever the board sends: empty lines (a board that sends only LF) are counted in
+``blank_lines`` and not kept, and a chunk keeps at most ``chunk_lines`` lines (its newest;
+the rest are counted in ``dropped_lines``), so the log holds at most
+``chunks × chunk_lines`` lines of at most ``line_max`` bytes.
+
 """
 
 from __future__ import annotations
@@ -42,10 +48,15 @@ class RawTap:
     """Whole lines of both directions (``>`` to the board, ``<`` from it) in a bounded log
     read by cursor. ``record`` may be called from several threads."""
 
-    def __init__(self, chunks: int = 4096, *, line_max: int = 200) -> None:
-        if line_max < 1:
-            raise ValueError(f"line_max must be at least 1, not {line_max}")
+    def __init__(self, chunks: int = 4096, *, line_max: int = 200,
+                 chunk_lines: int = 32) -> None:
+        if line_max < 1 or chunk_lines < 1:
+            raise ValueError(f"line_max and chunk_lines must be at least 1, not {line_max},"
+                             f" {chunk_lines}")
         self.line_max = line_max
+        self.chunk_lines = chunk_lines
+        self.blank_lines = 0  # empty lines seen, not kept
+        self.dropped_lines = 0  # lines past ``chunk_lines`` in one chunk, not kept
         self.log = CursorLog(chunks)  # (time, direction, ((bytes, cut), ...)) per chunk
         self._tails = {">": _Tail(), "<": _Tail()}
 
@@ -68,6 +79,9 @@ class RawTap:
             else:
                 lines = []
                 self._lines(tail, data, lines)
+        if len(lines) > self.chunk_lines:
+            self.dropped_lines += len(lines) - self.chunk_lines
+            lines = lines[-self.chunk_lines:]
         if lines:
             self.log.append((t, direction, lines))
 
@@ -89,7 +103,10 @@ class RawTap:
                 out.append((piece[:bound], True))
                 tail.cut = i == last  # the LF ending it is still to come
             elif i < last:
-                out.append((piece, False))
+                if piece and piece != b"\r":
+                    out.append((piece, False))
+                else:
+                    self.blank_lines += 1
             else:
                 tail.buf = piece
 

@@ -123,6 +123,15 @@ class LinkHealth:
     rx_bytes: int
     tx_bytes: int
     lost_reason: str | None = None
+    confirmed_by_status: int = 0  # lost replies to arm/mode settled by asking status
+
+    @property
+    def line_error_rate(self) -> float:
+        """Fraction of received lines the codec refused (CRC, junk, truncated…): 0 on a
+        clean line; kill bytes (sent only by a host) do not count."""
+        bad = sum(v for k, v in self.bad_frames.items() if k != "kill_byte")
+        total = bad + self.rx_frames
+        return bad / total if total else 0.0
 
 
 @dataclass(frozen=True)

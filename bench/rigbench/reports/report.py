@@ -28,9 +28,9 @@ from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
-import yaml
 
 from rigbench.base.atomic import write_text_atomic
+from rigbench.base.yamlload import SchemaError, load_yaml
 from rigbench.recordings.recording import RecordingError, load_recording
 from rigbench.reports.plots import (
     Plot, PlotsUnavailable, need_matplotlib, plot_margins, plot_model, plot_relay, plot_signals,
@@ -89,16 +89,43 @@ def make_report(path: str | Path, *, out: str | Path | None = None,
     return report
 
 
+SUMMARY_MAX_BYTES = 4 << 20  # a summary holds a few lines per step; a sequence has ≤ 1000
+
+
 def _read_summary(folder: Path) -> dict:
-    try:
-        doc = yaml.load((folder / "summary.yaml").read_text(encoding="utf-8"),
-                        Loader=getattr(yaml, "CSafeLoader", yaml.SafeLoader))
-    except (OSError, yaml.YAMLError) as exc:
-        raise ReportError(f"{folder / 'summary.yaml'}: cannot read: {exc}") from None
+    try:  # the strict loader of every file rigbench reads: no aliases, bounded size
+        doc = load_yaml(folder / "summary.yaml", max_bytes=SUMMARY_MAX_BYTES).value
+    except SchemaError as exc:
+        raise ReportError(f"cannot read the summary: {exc}") from None
     if not isinstance(doc, dict) or doc.get("format") != SUMMARY_FORMAT:
         raise ReportError(f"{folder / 'summary.yaml'}: not a summary of rigbench run "
                           f"(format {SUMMARY_FORMAT})")
+    steps = doc.get("steps")
+    if not isinstance(steps, list):
+        raise ReportError(f"{folder / 'summary.yaml'}: steps: expected a list")
+    for i, step in enumerate(steps, 1):
+        problem = _step_problem(step)
+        if problem:
+            raise ReportError(f"{folder / 'summary.yaml'}: steps[{i}]: {problem}")
     return doc
+
+
+def _step_problem(step) -> str | None:
+    """What a step of a summary lacks for the report, or None."""
+    if not isinstance(step, dict):
+        return "expected a mapping"
+    if isinstance(step.get("index"), (bool, type(None), list, dict)) or not isinstance(
+            step.get("kind"), str):
+        return "needs index and kind (text)"
+    recs = step.get("recordings")
+    if not isinstance(recs, list) or not all(
+            isinstance(n, str) and re.fullmatch(r"[A-Za-z0-9_.-]+\.csv", n) and n[0] != "."
+            for n in recs):
+        return "recordings: expected a list of file names (*.csv) in the results folder"
+    for key in ("data", "bindings"):
+        if not isinstance(step.get(key, {}) or {}, dict):
+            return f"{key}: expected a mapping"
+    return None
 
 
 def _load(path: Path):
@@ -259,6 +286,17 @@ def _sweep_plot(summary: dict, out: Path) -> list[Plot]:
 
 def _results_report(folder: Path, out: Path, draw: bool = True) -> Report:
     summary = _read_summary(folder)
+    try:
+        return _results_report_of(summary, folder, out)
+    except (KeyError, TypeError, AttributeError, IndexError, ValueError) as exc:
+        if isinstance(exc, ReportError):
+            raise
+        # a hand-edited summary with a figure of the wrong kind deep inside a step
+        raise ReportError(f"{folder / 'summary.yaml'}: unexpected content "
+                          f"({type(exc).__name__}: {exc})") from None
+
+
+def _results_report_of(summary: dict, folder: Path, out: Path) -> Report:
     out.mkdir(parents=True, exist_ok=True)
     plots: list[Plot] = []
     for step in summary["steps"] if draw else ():

@@ -26,6 +26,7 @@ from __future__ import annotations
 
 import math
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 
@@ -34,6 +35,10 @@ from rigbench.wire.codec import BoardCodec, KillByte
 from rigbench.wire.errors import RemoteProtocolError
 from rigbench.wire.describe import BoardInfo, LoopInfo, ParamInfo, SignalInfo, parse_version
 from rigbench.wire.frame import BadFrame
+from rigbench.wire.limits import (
+    MAX_LOOPS, MAX_PARAMS, RATE_HZ_RANGE, WATCHDOG_MS_RANGE, DeclarationError, check_params,
+    check_signals,
+)
 
 __all__ = ["ReplayBoard", "READ_ONLY"]
 
@@ -53,6 +58,63 @@ class _State:
     fault: str | None = None
 
 
+def _number(where: str, field: str, value, default: float, bounds) -> float:
+    """A sidecar number within ``bounds`` (PROTOCOL.md §5.6); ``default`` when absent."""
+    if value is None:
+        return default
+    if isinstance(value, bool) or not isinstance(value, (int, float)) or not (
+            math.isfinite(value) and bounds[0] <= value <= bounds[1]):
+        raise ValueError(f"{where}: {field}: {value!r} is not a number in "
+                         f"{bounds[0]:g}..{bounds[1]:g}")
+    return float(value)
+
+
+def _param(where: str, index: int, name, p) -> ParamInfo:
+    """One entry of a sidecar's ``params_at_start``, checked field by field."""
+    field = f"params_at_start.{name}"
+    if not isinstance(name, str) or not m.NAME_RE.match(name):
+        raise ValueError(f"{where}: params_at_start: {name!r} is not a parameter name")
+    if not isinstance(p, dict):
+        raise ValueError(f"{where}: {field}: expected a mapping with value, min, max, writable")
+    nums = {}
+    for key in ("value", "min", "max"):
+        v = p.get(key)
+        if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(v):
+            raise ValueError(f"{where}: {field}.{key}: {v!r} is not a finite number")
+        nums[key] = float(v)
+    if nums["min"] > nums["max"]:
+        raise ValueError(f"{where}: {field}: min {nums['min']:g} > max {nums['max']:g}")
+    if not isinstance(p.get("writable"), bool):
+        raise ValueError(f"{where}: {field}.writable: expected true or false")
+    return ParamInfo(index, name, _word(p.get("unit"), "1"), nums["min"], nums["max"],
+                     nums["value"], p["writable"])
+
+
+def _time(value) -> bool:
+    return (isinstance(value, (int, float)) and not isinstance(value, bool)
+            and math.isfinite(value) and abs(value) < 1e9)
+
+
+def _board_event(e: dict):
+    """(kind, fields) of a recorded board event a board could send again, else None (a
+    hand-edited event with a kind or field that is not a name is left out)."""
+    kind = e.get("kind")
+    fields = e.get("fields") or {}
+    if not (isinstance(kind, str) and m.NAME_RE.match(kind) and isinstance(fields, dict)):
+        return None
+    out = []
+    for k, v in fields.items():
+        if v is None:
+            continue
+        if not (isinstance(k, str) and m.NAME_RE.match(k)):
+            return None
+        if isinstance(v, (int, float)) and not isinstance(v, bool) and math.isfinite(v):
+            out.append((k, v))
+        else:
+            out.append((k, _word(v, "-")))
+    return kind, tuple(out)
+
+
 def _word(value, default: str) -> str:
     text = str(value) if value is not None else ""
     return text if m.WORD_RE.match(text) else default
@@ -66,6 +128,16 @@ class ReplayBoard:
         if len(recording) < 2:
             raise ValueError(f"{recording.path}: a replay needs at least two rows")
         self.rec = recording
+        bad = ~np.isfinite(recording.values)
+        if bad.any():
+            row, col = (int(i) for i in np.argwhere(bad)[0])
+            raise ValueError(f"{recording.path}:{row + 2}: signal {recording.signals[col]} is "
+                             f"{recording.values[row, col]}: a board sends only finite numbers")
+        for what, column in (("board_time", recording.board_time_s),
+                             ("host_time", recording.host_time_s)):
+            if not (np.isfinite(column).all() and (np.abs(column) < 1e9).all()):
+                raise ValueError(f"{recording.path}: {what} holds a value that is not a time"
+                                 " (finite, under 1e9 s)")
         self.loop = loop
         self.status_period_s = status_period_s
         self.max_buffer = max_buffer
@@ -80,14 +152,17 @@ class ReplayBoard:
         self.cycle_s = float(self.offsets[-1]) + self.dt_s
         self.frame_span = int(recording.frame[-1] - recording.frame[0]) + 1
         self.info, self.params, self.signals, self.loops = self._declarations(side)
+        events = [e for e in recording.events if isinstance(e, dict)]
         self.events = sorted(
-            ((float(e["board_time_s"]) - self.t0, e) for e in recording.events
-             if e.get("source") == "board" and e.get("board_time_s") is not None),
+            ((float(e["board_time_s"]) - self.t0, _board_event(e)) for e in events
+             if e.get("source") == "board" and _time(e.get("board_time_s"))
+             and _board_event(e) is not None),
             key=lambda x: x[0])
         self.states = sorted(
             ((float(e["host_time_s"]) - float(recording.host_time_s[0]), e["fields"])
-             for e in recording.events if e.get("source") == "status"
-             and e.get("kind") == "state" and e.get("host_time_s") is not None),
+             for e in events if e.get("source") == "status"
+             and e.get("kind") == "state" and _time(e.get("host_time_s"))
+             and isinstance(e.get("fields"), dict)),
             key=lambda x: x[0])
         self.codec = BoardCodec()
         self.out = bytearray()
@@ -105,15 +180,28 @@ class ReplayBoard:
     # ------------------------------------------------------------------ declarations
 
     def _declarations(self, side: dict):
+        where = f"{Path(self.rec.path).with_suffix('.yaml')}"  # the recording's sidecar
         board = side.get("board") or {}
+        if not isinstance(board, dict):
+            raise ValueError(f"{where}: board: expected a mapping")
         try:
             version = parse_version(str(board.get("protocol", "1.0")))
         except Exception:  # noqa: BLE001 - an unreadable version: the host's own
             version = m.PROTOCOL_VERSION
         params = []
-        for i, (name, p) in enumerate((side.get("params_at_start") or {}).items()):
-            params.append(ParamInfo(i, name, _word(p.get("unit"), "1"), float(p["min"]),
-                                    float(p["max"]), float(p["value"]), bool(p["writable"])))
+        table = side.get("params_at_start") or {}
+        if not isinstance(table, dict):
+            raise ValueError(f"{where}: params_at_start: expected a mapping of parameters")
+        if len(table) > MAX_PARAMS:
+            raise ValueError(f"{where}: params_at_start: more than {MAX_PARAMS} parameters")
+        for i, (name, p) in enumerate(table.items()):
+            params.append(_param(where, i, name, p))
+        try:  # the rules a live board's declarations meet (PROTOCOL.md §5.6)
+            check_params(params)
+            check_signals([SignalInfo(i, n, u) for i, (n, u) in
+                           enumerate(zip(self.rec.signals, self.rec.units))])
+        except DeclarationError as exc:
+            raise ValueError(f"{where}: {exc.detail}") from None
         signals = [SignalInfo(i, n, u) for i, (n, u) in
                    enumerate(zip(self.rec.signals, self.rec.units))]
         loops = []
@@ -128,10 +216,12 @@ class ReplayBoard:
                 continue
         info = BoardInfo(version, _word(board.get("board"), "replay"),
                          _word(board.get("firmware"), "unknown"), _word(board.get("rig"), "unknown"),
-                         float(board.get("rate_hz") or round(self.rate_hz, 3)),
-                         float(board.get("watchdog_ms") or 500.0), len(params), len(signals),
-                         len(loops), True)
-        return info, params, signals, loops
+                         _number(where, "board.rate_hz", board.get("rate_hz"),
+                                 round(self.rate_hz, 3), RATE_HZ_RANGE),
+                         _number(where, "board.watchdog_ms", board.get("watchdog_ms"), 500.0,
+                                 WATCHDOG_MS_RANGE),
+                         len(params), len(signals), len(loops[:MAX_LOOPS]), True)
+        return info, params, signals, loops[:MAX_LOOPS]
 
     # ------------------------------------------------------------------ output
 
@@ -158,8 +248,8 @@ class ReplayBoard:
         for k, (t, f) in enumerate(self.states):
             if t > local and k:  # before the first change seen: the first state seen
                 break
-            st = _State(str(f.get("motor") or "off"), str(f.get("mode") or "off"),
-                        f.get("loop") or None, f.get("fault") or None)
+            st = _State(_word(f.get("motor"), "off"), _word(f.get("mode"), "off"),
+                        _word(f.get("loop"), "") or None, _word(f.get("fault"), "") or None)
         return st
 
     def _status_fields(self) -> list:
@@ -209,10 +299,8 @@ class ReplayBoard:
             if t > tau:
                 return
             if t_ev <= t_row:
-                e = self.events[self._ev][1]
-                fields = tuple((str(k), v if isinstance(v, (int, float)) else _word(v, "-"))
-                               for k, v in (e.get("fields") or {}).items() if v is not None)
-                self._put(m.Event(self._time_us(t_ev), e["kind"], fields), essential=True)
+                kind, fields = self.events[self._ev][1]
+                self._put(m.Event(self._time_us(t_ev), kind, fields), essential=True)
                 self._ev += 1
                 continue
             k = self._row

@@ -152,7 +152,7 @@ class StepRunner:
             raise StepAbort(why, f"over its timeout_s {step.timeout_s:g}" if why == "timeout"
                          else "cancelled by the user")
         why = res.stopped_by
-        raise StepAbort(why if why in ("lost", "error") else "guard" if kills_motor(why)
+        raise StepAbort(why if why in ("lost", "error", "disk") else "guard" if kills_motor(why)
                         else "error", res.detail)
 
     # ------------------------------------------------------------------ the steps
@@ -199,6 +199,17 @@ class StepRunner:
                                          else " (no fault was latched)")
 
     def _do_set(self, i, step, out, stop) -> None:
+        limits = [n for n in step.values if n.startswith(("trip_", "arm_"))]
+        if limits and not step.loosen_limits:
+            motor = self.link.status().motor
+            if motor in ("armed", "running"):
+                now = self.link.get(*limits)
+                looser = [f"{n} {now[n]:g} -> {step.values[n]:g}" for n in limits
+                          if isinstance(now.get(n), float) and abs(step.values[n]) > abs(now[n])]
+                if looser:
+                    raise StepAbort("refused", f"set would loosen {', '.join(looser)} while the "
+                                               f"motor is {motor}; disarm first, or add "
+                                               "loosen_limits: true to the step")
         applied = self.link.set(**step.values)
         out.data = {"applied": dict(applied)}
         out.detail = " ".join(f"{k}={format_value(v)}" for k, v in applied.items()
@@ -245,6 +256,8 @@ class StepRunner:
 
             def feed(t, v):
                 rec.poll()
+                if rec.failed:
+                    exp.halt("disk", rec.failed)
                 tick(t, v)
             try:
                 exp.wait(step.seconds, on_block=feed)
@@ -252,6 +265,8 @@ class StepRunner:
                 rec.close()
         out.detail = f"{rec.rows} rows to {path.name}"
         self._ended(exp.result, stop, step)
+        if rec.failed:  # the last write, at close, failed: the step's data is not all there
+            raise StepAbort("disk", rec.failed)
 
     def _do_relay(self, i, step, out, stop) -> None:
         from rigbench.experiments.relay import run_relay

@@ -47,6 +47,15 @@ _RECORD_NAME = r"[A-Za-z0-9][A-Za-z0-9_.{}-]{0,63}"
 _CHECK_TEXT = re.compile(r"\s*([a-z_.]+)\s*(<=|>=|<|>)\s*(\S+)\s*\Z")
 _NUMBER = re.compile(r"-?[0-9]+(\.[0-9]*)?([eE][-+]?[0-9]+)?\Z")
 _DEVICE_PATH = r"/dev/[A-Za-z0-9_.:+,=-]+(/[A-Za-z0-9_.:+,=-]+)*"
+# serial devices only: not /dev/tty (the terminal), /dev/fd/0, /dev/zero, consoles …
+_SERIAL_DEVICE = (r"/dev/(tty[A-Za-z][A-Za-z0-9_.:+,=-]*|cu\.[A-Za-z0-9_.:+,=-]+|pts/[0-9]+"
+                  r"|serial/by-(id|path)/[A-Za-z0-9_.:+,=-]+|rfcomm[0-9]+)")
+_SPECIAL_TTYS = ("/dev/tty", "/dev/ttyprintk")
+# every time in a sequence (seconds): 1 ms to one day
+TIME_RANGE_S = (1e-3, 86400.0)
+# every other number (amplitudes, bounds, parameter values, check values): finite, and
+# no larger than any value a float32 board parameter holds meaningfully
+VALUE_MAX = 1e12
 _COM_PORT = r"COM[1-9][0-9]{0,2}"
 
 
@@ -107,6 +116,9 @@ class _Reader:
                     or "://" in text:
                 raise cur.error(f"{text!r} is not a device path (/dev/ then names of letters, "
                                 f"digits and - _ . : + , =)")
+            if not re.fullmatch(_SERIAL_DEVICE, text) or text in _SPECIAL_TTYS:
+                raise cur.error(f"{text!r} is not a serial device (/dev/ttyUSB0, /dev/ttyACM0,"
+                                " /dev/ttyS0, /dev/cu.*, /dev/pts/N, /dev/serial/by-id/...)")
             return text
         if re.fullmatch(_COM_PORT, text):
             return text
@@ -128,10 +140,10 @@ class _Reader:
     def guards(self, cur: Cursor) -> Guards:
         m = cur.mapping(optional=GUARD_KEYS)
         return Guards(
-            tilt_deg=m["tilt_deg"].number(above=0) if "tilt_deg" in m else None,
+            tilt_deg=m["tilt_deg"].number(above=0, maximum=180) if "tilt_deg" in m else None,
             wheel_fraction=(m["wheel_fraction"].number(above=0, maximum=1)
                             if "wheel_fraction" in m else None),
-            stale_s=m["stale_s"].number(above=0) if "stale_s" in m else None)
+            stale_s=m["stale_s"].number(minimum=0.01, maximum=60) if "stale_s" in m else None)
 
     def steps(self, cur: Cursor, *, prefix: str, params: tuple[str, ...]) -> tuple[Step, ...]:
         items = cur.items(min_items=1)
@@ -167,7 +179,7 @@ class _Reader:
         else:
             m = body.mapping(required, optional + _OPTIONS)
         common = dict(index=index, line=cur.line, where=f"{cur.field}.{kind}",
-                      timeout_s=m["timeout_s"].number(above=0) if "timeout_s" in m else None,
+                      timeout_s=_seconds(m["timeout_s"]) if "timeout_s" in m else None,
                       guards=self.guards(m["guards"]) if "guards" in m else None)
         return reader(self, m, common, params)
 
@@ -213,33 +225,33 @@ class _Reader:
         if ("seconds" in m) == ("settled" in m):
             raise m.cursor.error("give either seconds or settled (not both)")
         if "seconds" in m:
-            return WaitStep(seconds=m["seconds"].number(above=0), **common)
+            return WaitStep(seconds=_seconds(m["seconds"]), **common)
         if common["timeout_s"] is None:
             raise m.cursor.error("a wait until settled needs timeout_s")
         s = m["settled"].mapping(("signal", "below", "for_s"))
         return WaitStep(settled=Settled(_name(s["signal"], "a signal name"),
-                                        s["below"].number(above=0), s["for_s"].number(above=0)),
+                                        _value(s["below"], above=0), _seconds(s["for_s"])),
                         **common)
 
     def relay(self, m, common, params):
         return RelayStep(
-            loop=_name(m["loop"], "a loop name"), amplitude=m["amplitude"].number(above=0),
-            hysteresis=m["hysteresis"].number(minimum=0), bound=m["bound"].number(above=0),
-            max_s=m["max_s"].number(above=0),
-            bias=m["bias"].number() if "bias" in m else 0.0,
+            loop=_name(m["loop"], "a loop name"), amplitude=_value(m["amplitude"], above=0),
+            hysteresis=_value(m["hysteresis"], minimum=0), bound=_value(m["bound"], above=0),
+            max_s=_seconds(m["max_s"]),
+            bias=_value(m["bias"]) if "bias" in m else 0.0,
             cycles=m["cycles"].integer(minimum=2, maximum=1000) if "cycles" in m else 6,
             **common)
 
     def sweep(self, m, common, params):
         amps = []
         for c in m["amplitudes"].items(min_items=1):
-            amp = c.number()
+            amp = _value(c)
             if amp == 0:
                 raise c.error("an amplitude of 0 pushes nothing")
             amps.append(amp)
-        time_s = m["time_s"].number(above=0)
+        time_s = _seconds(m["time_s"])
         spacing = m["spacing_s"]
-        if spacing.number(above=0) < time_s:
+        if _seconds(spacing) < time_s:
             raise spacing.error(f"spacing_s {spacing.value:g} is shorter than time_s {time_s:g}")
         return SweepStep(
             loop=_name(m["loop"], "a loop name"), shape=m["shape"].choice(("pulse", "step")),
@@ -257,19 +269,23 @@ class _Reader:
                                    + (f" ({', '.join(params)})" if params else ""))
         if re.sub(r"\{[^}]*\}", "", name).count("{") or "}" in re.sub(r"\{[^}]*\}", "", name):
             raise name_c.error("unbalanced { } in the name")
-        return RecordStep(seconds=m["seconds"].number(above=0), name=name, **common)
+        return RecordStep(seconds=_seconds(m["seconds"]), name=name, **common)
 
     def set(self, m, common, params):
         values = {}
+        loosen = False
         for name, c in m.cursor.entries():
             if name in _OPTIONS:
                 continue
+            if name == "loosen_limits":
+                loosen = c.boolean()
+                continue
             if not NAME_RE.match(name):
                 raise c.error(f"{name!r} is not a parameter name", line=m.cursor.key_line(name))
-            values[name] = c.number()
+            values[name] = _value(c)
         if not values:
             raise m.cursor.error("set needs at least one parameter: value")
-        return SetStep(values=values, **common)
+        return SetStep(values=values, loosen_limits=loosen, **common)
 
     def check(self, m, common, params):
         if "text" in m and ("metric" in m or "op" in m or "value" in m):
@@ -282,13 +298,13 @@ class _Reader:
             metric, op, number = match.groups()
             if not _NUMBER.match(number):
                 raise cur.error(f"{number!r} is not a number")
-            value = Cursor(float(number), cur.path, cur.field, cur.line).number()
+            value = _value(Cursor(float(number), cur.path, cur.field, cur.line))
         else:
             for key in ("metric", "op", "value"):
                 m[key]  # noqa: B018 (raises naming the missing key)
             metric = m["metric"].text()
             op = m["op"].choice(OPS)
-            value = m["value"].number()
+            value = _value(m["value"])
             cur = m["metric"]
         if metric not in METRICS:
             raise cur.error(f"unknown metric {metric!r}; known: {', '.join(METRICS)}")
@@ -301,7 +317,7 @@ class _Reader:
             raise f["param"].error(f"{param!r} is already the parameter of an enclosing repeat")
         if len(params) >= MAX_NESTING:
             raise m.cursor.error(f"repeats nest at most {MAX_NESTING} deep")
-        values = tuple(c.number() for c in f["values"].items(min_items=1))
+        values = tuple(_value(c) for c in f["values"].items(min_items=1))
         steps = self.steps(m["steps"], prefix=f"{common['index']}.", params=params + (param,))
         return RepeatStep(param=param, values=values, steps=steps, **common)
 
@@ -317,6 +333,19 @@ class _Reader:
                                       f"recording name {step.name!r} is used twice ({first.label()}"
                                       f" and {step.label()}); inside a repeat put {{param}} in it")
                 seen[step.name] = step
+
+
+def _seconds(cur: Cursor) -> float:
+    """A time in seconds within TIME_RANGE_S."""
+    return cur.number(minimum=TIME_RANGE_S[0], maximum=TIME_RANGE_S[1])
+
+
+def _value(cur: Cursor, **bounds) -> float:
+    """A finite number no larger than VALUE_MAX in size (and within ``bounds``)."""
+    v = cur.number(**bounds)
+    if abs(v) > VALUE_MAX:
+        raise cur.error(f"{v:g} is larger than {VALUE_MAX:g} in size")
+    return v
 
 
 def _name(cur: Cursor, what: str) -> str:

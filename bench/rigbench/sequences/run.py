@@ -87,9 +87,17 @@ def check_runnable(sequence: Sequence) -> list:
     return steps
 
 
-def prepare_results_dir(folder: str | Path) -> Path:
-    """Create the results folder; refuse a file, or a folder that already holds files."""
+def prepare_results_dir(folder: str | Path, *, inside: str | Path | None = None) -> Path:
+    """Create the results folder; refuse a file, or a folder that already holds files.
+    ``inside``: a folder the results must stay in once links are resolved (the project
+    folder, for the default results folder): a ``results`` link out of it is refused
+    before anything is created."""
     folder = Path(folder)
+    if inside is not None:
+        real, home = folder.resolve(), Path(inside).resolve()
+        if real != home and home not in real.parents:
+            raise PermissionError(13, f"resolves (through a link) to {real}, outside the "
+                                      f"project folder {home}; give --out to choose", str(folder))
     if folder.exists() and (not folder.is_dir() or any(folder.iterdir())):
         raise FileExistsError(17, "exists and is not an empty folder", str(folder))
     folder.mkdir(parents=True, exist_ok=True)
@@ -102,7 +110,8 @@ def run_sequence(link, *, sequence: Sequence, results_dir: str | Path | None = N
     """Run ``sequence`` on ``link`` (see the module docstring); write the results folder
     (default :func:`default_results_dir`) and return the result."""
     steps = check_runnable(sequence)
-    folder = prepare_results_dir(results_dir or default_results_dir(sequence))
+    folder = (prepare_results_dir(results_dir) if results_dir else
+              prepare_results_dir(default_results_dir(sequence), inside=sequence.project))
     return _Run(link, sequence, steps, folder, cancel, progress, sweep_pre_s,
                 band_noise).run()
 

@@ -175,6 +175,8 @@ class SetStep(Step):
 
     kind: str = "set"
     values: dict[str, float]
+    # raise trip_*/arm_* limits while the motor is armed (refused without it)
+    loosen_limits: bool = False
 
 
 @dataclass(frozen=True, kw_only=True)
@@ -261,6 +263,8 @@ def describe_step(step: Step, *, project: Path | None = None) -> str:
         if f.name in _COMMON_FIELDS or isinstance(step, CheckStep):
             continue
         value = getattr(step, f.name)
+        if f.name == "loosen_limits" and not value:
+            continue  # shown only when the step asks for it
         if isinstance(value, Path):
             value = value.relative_to(project) if project and value.is_relative_to(project) \
                 else value

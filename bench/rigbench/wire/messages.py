@@ -164,6 +164,15 @@ class Set(Command):
 
 
 @dataclass(frozen=True)
+class Stage(Command):
+    """Check assignments and keep them for the next ``set``, which applies them with its
+    own, all at once (PROTOCOL.md §5.5: an atomic group longer than one line)."""
+
+    values: tuple[tuple[str, float], ...] = ()
+    VERB = "stage"
+
+
+@dataclass(frozen=True)
 class Save(Command):
     VERB = "save"
 
@@ -237,6 +246,7 @@ COMMANDS: dict[str, tuple[type, str]] = {
     "loop": (DescribeLoop, "int"),
     "get": (Get, "names"),
     "set": (Set, "assign"),
+    "stage": (Stage, "assign"),
     "save": (Save, "none"),
     "restore": (Restore, "none"),
     "arm": (Arm, "none"),
@@ -500,7 +510,7 @@ def as_dict(msg) -> dict:
         value = getattr(msg, f.name)
         if f.name in ("fields", "args"):
             value = dict(value)
-        elif f.name == "values" and isinstance(msg, Set):
+        elif f.name == "values" and isinstance(msg, (Set, Stage)):
             value = {k: v for k, v in value}
         elif isinstance(value, tuple):
             value = list(value)

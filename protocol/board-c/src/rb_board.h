@@ -51,6 +51,9 @@ typedef RB_REAL rb_real;
 #ifndef RB_TX_SIZE
 #define RB_TX_SIZE 4096         /* transmit buffer; telemetry may use all but a quarter */
 #endif
+#ifndef RB_MAX_STAGED
+#define RB_MAX_STAGED 32        /* assignments `stage` keeps for the next `set` (§5.5) */
+#endif
 #ifndef RB_NV_MAX
 #define RB_NV_MAX 512           /* bytes of the stored parameter image (see rb_port.nv_*) */
 #endif
@@ -258,6 +261,10 @@ typedef struct rb_board {
     uint16_t last_body_crc;
 #endif
     rb_line out_reply, out_event;
+    /* `stage` (§5.5): assignments checked and kept for the next `set` */
+    uint8_t n_staged;
+    uint8_t staged_ix[RB_MAX_STAGED];
+    rb_real staged_val[RB_MAX_STAGED];
     rb_port port;
     rb_mode_run mode;
     rb_rig rig_copy;            /* the declaration's top level, read once (it may be in flash) */

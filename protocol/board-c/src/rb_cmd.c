@@ -1,7 +1,7 @@
 /*
  * rb_cmd.c -- host commands (PROTOCOL.md §4-§8): the grammar of a body, the handler of each
- * verb, and the one reply every command gets. Follows bench/rigbench/wire/messages.py
- * (parse_host_body), bench/rigbench/rig/firmware/board.py (_answer_bad, _command) and
+ * verb, and the one reply every command gets. Follows bench/wire/messages.py
+ * (parse_host_body), bench/rig/firmware.py (_answer_bad, _command) and
  * firmware_commands.py / firmware_modes.py, so both boards give the same answers.
  *
  * The reply is built in place in the board's last_line (where it stays, framed, for a
@@ -17,9 +17,9 @@
 #define ERR_TEXT_MAX 80     /* firmware.py refusal_text */
 
 /* verbs, in the order of the enum below; from V_SAVE on they take no arguments */
-#define VERB_WORDS "hello\0param\0signal\0loop\0get\0set\0mode\0stream\0" \
+#define VERB_WORDS "hello\0param\0signal\0loop\0get\0set\0mode\0stream\0stage\0" \
                    "save\0restore\0arm\0disarm\0clear\0kill\0status\0"
-enum { V_HELLO, V_PARAM, V_SIGNAL, V_LOOP, V_GET, V_SET, V_MODE, V_STREAM, V_SAVE, V_RESTORE,
+enum { V_HELLO, V_PARAM, V_SIGNAL, V_LOOP, V_GET, V_SET, V_MODE, V_STREAM, V_STAGE, V_SAVE, V_RESTORE,
        V_ARM, V_DISARM, V_CLEAR, V_KILL, V_STATUS };
 #define BOARD_VERB_WORDS "ok\0err\0tm\0st\0ev\0"
 #define MODE_WORDS "off\0hold\0relay\0open\0inject\0"
@@ -256,10 +256,10 @@ static rb_real token_value(rb_ctx *c, int i)
     return rb_round_real(v);
 }
 
-static void on_set(rb_ctx *c)
+static int check_assigns(rb_ctx *c, int reply)
 {
-    /* atomic (§5.5): every assignment checked, the reply built, then all applied (the
-     * tokens are read twice rather than kept: less stack on a small board) */
+    /* every assignment of a set or stage (§5.5): 0 at the first refusal, 1 when all are
+     * legal; ``reply`` adds the values as they will be applied to the reply */
     rb_board *b = c->b;
     int i;
     for (i = 2; i < c->nt; i++) {
@@ -268,12 +268,12 @@ static void on_set(rb_ctx *c)
         rb_real v;
         int pi = known_param(c, TOKP(c, i), k);
         if (pi < 0)
-            return;
+            return 0;
         rb_param_get(b, pi, &p);
         if (!p.writable) {
             refuse(c, S("readonly"), p.name);
             say(c, S(" is read-only"));
-            return;
+            return 0;
         }
         v = token_value(c, i);
         if (!(p.min <= v && v <= p.max)) {
@@ -282,21 +282,90 @@ static void on_set(rb_ctx *c)
             say_num(c, p.min, 7);
             say(c, S(".."));
             say_num(c, p.max, 7);
-            return;
+            return 0;
         }
         if (rb_gain_busy(b, pi)) {
             refuse(c, S("busy"), p.name);
             say(c, S(" belongs to a loop under test"));
+            return 0;
+        }
+        if (reply)
+            rb_ln_kv_num(c->reply, p.name, v);
+    }
+    return 1;
+}
+
+static int staged_already(rb_ctx *c, uint8_t n)
+{
+    /* 1 when an assignment of this frame names a parameter staged before */
+    int i, j;
+    for (i = 2; i < c->nt; i++) {
+        int pi = rb_param_index(c->b, TOKP(c, i), key_len(c, i));
+        for (j = 0; pi >= 0 && j < n; j++)
+            if (c->b->staged_ix[j] == pi)
+                return 1;
+    }
+    return 0;
+}
+
+static void on_set(rb_ctx *c)
+{
+    /* atomic (§5.5): the staged group and every assignment checked, the reply built, then
+     * all applied (the tokens are read twice rather than kept: less stack on a small
+     * board). The staged group is used or dropped here. */
+    rb_board *b = c->b;
+    uint8_t n = b->n_staged, j;
+    int i;
+    b->n_staged = 0;
+    if (staged_already(c, n)) {
+        refuse(c, S("bad_args"), S("a name staged and set again"));
+        return;
+    }
+    for (j = 0; j < n; j++)
+        if (rb_gain_busy(b, b->staged_ix[j])) {
+            rb_param p;
+            rb_param_get(b, b->staged_ix[j], &p);
+            refuse(c, S("busy"), p.name);
+            say(c, S(" belongs to a loop under test"));
             return;
         }
-        rb_ln_kv_num(c->reply, p.name, v);
-    }
+    if (!check_assigns(c, 1))
+        return;
     if (c->reply->overflow) {
         refuse(c, S("bad_args"), S("reply would not fit in one line; set fewer"));
         return;
     }
+    for (j = 0; j < n; j++)
+        RB_PAR(b, b->staged_ix[j]) = b->staged_val[j];
     for (i = 2; i < c->nt; i++)
         RB_PAR(b, rb_param_index(b, TOKP(c, i), key_len(c, i))) = token_value(c, i);
+}
+
+static void on_stage(rb_ctx *c)
+{
+    /* §5.5: check the assignments and keep them for the next `set`; a refusal drops the
+     * whole group */
+    rb_board *b = c->b;
+    uint8_t n = b->n_staged;
+    int i;
+    b->n_staged = 0;
+    if (staged_already(c, n)) {
+        refuse(c, S("bad_args"), S("a name staged twice"));
+        return;
+    }
+    if (!check_assigns(c, 0))
+        return;
+    if (n + (c->nt - 2) > RB_MAX_STAGED) {
+        refuse(c, S("bad_args"), S("more assignments than this board can stage"));
+        return;
+    }
+    for (i = 2; i < c->nt; i++) {
+        b->staged_ix[n] = (uint8_t)rb_param_index(b, TOKP(c, i), key_len(c, i));
+        b->staged_val[n] = token_value(c, i);
+        n++;
+    }
+    b->n_staged = n;
+    rb_ln_kv_u32(c->reply, S("staged"), n);
 }
 
 static uint32_t floor_u32(rb_real x)
@@ -700,7 +769,7 @@ static int grammar(rb_ctx *c, int verb, uint32_t *index, int *kind, rb_real *rat
             bad(c, S("bad_field"), S("bad_args"));
             return 0;
         }
-    } else if (verb == V_SET) {
+    } else if (verb == V_SET || verb == V_STAGE) {
         if (c->nt < 3 || !fields_ok(c, 2)) {
             refuse(c, NULL, S("set takes name=value pairs"));
             bad(c, S("bad_field"), S("bad_args"));
@@ -814,6 +883,8 @@ void rb_command(rb_board *b, const char *body, size_t n)
         return;
     }
     b->has_last = 0;          /* its reply is overwritten now (a trip must not rewrite it) */
+    if (verb != V_SET && verb != V_STAGE)
+        b->n_staged = 0;                         /* §5.5: any other command drops a group */
     c.err = NULL;
     rb_ln_open(c.reply, S("ok"));
     rb_ln_u32(c.reply, c.seq);
@@ -822,6 +893,7 @@ void rb_command(rb_board *b, const char *body, size_t n)
     case V_PARAM: case V_SIGNAL: case V_LOOP: on_describe(&c, index, verb); break;
     case V_GET: on_get(&c); break;
     case V_SET: on_set(&c); break;
+    case V_STAGE: on_stage(&c); break;
     case V_MODE: on_mode(&c, kind); break;
     case V_STREAM: on_stream(&c, rate); break;
     default: on_simple(&c, verb); break;

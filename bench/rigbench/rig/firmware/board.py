@@ -137,6 +137,7 @@ class SimBoard(BoardCommands):
         self.last_hb_s: float | None = None
         self._hb_ref_us = self.time_us        # µs clock at the last heartbeat (or at boot)
         self._last_cmd = None
+        self.staged: list = []  # assignments kept by ``stage`` for the next ``set`` (§5.5)
         self._last_body = ""
         self._last_reply = b""
         self._pending_si = 0.0
@@ -358,6 +359,8 @@ class SimBoard(BoardCommands):
                 and body == self._last_body and cmd.VERB != "hello":   # §4.2: resend
             self.tx.put(self._last_reply, "reply")
             return
+        if cmd.VERB not in ("stage", "set"):
+            self.staged = []  # §5.5: any other command drops a staged group
         handler = getattr(self, "_on_" + cmd.VERB)
         result = handler(cmd)
         if isinstance(result, tuple):

@@ -64,15 +64,31 @@ class BoardCommands:
         return [(name, self.params.values[name]) for name in cmd.names]
 
     def _on_set(self, cmd):
+        staged, self.staged = list(self.staged), []     # used or dropped: a group ends here
         if len({k for k, _ in cmd.values}) != len(cmd.values):
             return "bad_args", "a name given twice"
-        refusal = self.params.check_set(cmd.values, self._busy_gains())
+        if {k for k, _ in staged} & {k for k, _ in cmd.values}:
+            return "bad_args", "a name staged and set again"
+        refusal = self.params.check_set(staged + list(cmd.values), self._busy_gains())
         if refusal is not None:
             return refusal.code, refusal.text
         applied = [(name, board_round(v)) for name, v in cmd.values]
         if len(m.format_body(m.Ok(cmd.seq, tuple(applied)))) > MAX_BODY:
             return "bad_args", "reply would not fit in one line; set fewer"   # nothing changed
-        return self.params.apply(cmd.values)            # §5.5: all at once, between periods
+        self.params.apply(staged)                       # §5.5: all at once, between periods
+        return self.params.apply(cmd.values)
+
+    def _on_stage(self, cmd):
+        """§5.5: check and keep assignments for the next ``set``; a refusal drops the group."""
+        staged, self.staged = list(self.staged), []
+        names = [k for k, _ in staged] + [k for k, _ in cmd.values]
+        if len(set(names)) != len(names):
+            return "bad_args", "a name staged twice"
+        refusal = self.params.check_set(cmd.values, self._busy_gains())
+        if refusal is not None:
+            return refusal.code, refusal.text
+        self.staged = staged + list(cmd.values)
+        return [("staged", len(self.staged))]
 
     def _on_save(self, cmd):
         try:

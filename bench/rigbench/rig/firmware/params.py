@@ -16,6 +16,7 @@ from __future__ import annotations
 
 import json
 import os
+import stat
 import tempfile
 from dataclasses import dataclass
 
@@ -95,6 +96,9 @@ def image_crc(values: dict[str, float]) -> int:
     return crc16(text.encode("ascii"))
 
 
+STATE_MAX_BYTES = 1 << 20  # a stored image is a few hundred bytes
+
+
 class NvStore:
     """Non-volatile parameter storage: in memory, or a JSON file at ``path``.
 
@@ -108,14 +112,19 @@ class NvStore:
         self._writable = [d.name for d in defs if d.writable]
         self._defs = {d.name: d for d in defs}
         self._image: dict[str, float] | None = None
-        if path is not None and os.path.exists(path):
+        if path is not None and os.path.lexists(path):
             self._image = self._read_file(path)
 
     def _read_file(self, path: str) -> dict[str, float]:
         try:
-            with open(path, encoding="utf-8") as fh:
-                doc = json.load(fh)
-        except (OSError, ValueError) as exc:
+            if not stat.S_ISREG(os.stat(path).st_mode):  # /dev/zero, a fifo: would never end
+                raise ValueError("not a regular file")
+            with open(path, "rb") as fh:
+                data = fh.read(STATE_MAX_BYTES + 1)
+            if len(data) > STATE_MAX_BYTES:
+                raise ValueError(f"larger than {STATE_MAX_BYTES} bytes")
+            doc = json.loads(data.decode("utf-8"))
+        except (OSError, ValueError, RecursionError) as exc:
             raise ValueError(f"{path}: cannot read stored parameters: {exc}") from None
         if not isinstance(doc, dict) or set(doc) != {"rig", "params"}:
             raise ValueError(f"{path}: expected keys 'rig' and 'params'")

@@ -123,6 +123,13 @@ class TransferFunctionPlant:
             self._g0 = np.asarray(gam_a).ravel()
             self._c = c
             self._d = dd
+        parts = (self._phi, self._g0, self._g1, self._c, np.array([self._d]))
+        if not all(np.isfinite(p).all() for p in parts) or any(
+                np.abs(p).max(initial=0.0) > 1e150 for p in parts):
+            # coefficients spanning hundreds of decades (num=1e308, den=1e-300,1 …) overflow
+            # in the state-space form: the plant would step into NaN at once
+            raise ValueError("num/den give a plant whose state-space form is not finite: "
+                             "scale the coefficients (they span too many decades)")
         self.order = n
         self.reset()
 
