@@ -28,8 +28,7 @@ for the user. ``poll``, ``flush`` and ``close`` do not raise for it: the caller 
 ``load_recording(path)`` reads a recording back (arrays plus sidecar); bad input raises
 ``RecordingError`` naming the file and line.
 
-Domain layer: numpy, pyyaml and bench's leaf helpers only. Must not import rigbench.ui,
-Textual or rigbench.commands; link types are imported for typing only.
+Link types are imported for typing only.
 """
 
 from __future__ import annotations
@@ -151,6 +150,11 @@ class Recorder:
         self._pending: list[str] = []
         self._ev_fd: int | None = None
         self._lock = threading.Lock()
+        self._side_cond = threading.Condition()
+        self._side_doc: dict | None = None
+        self._side_stop = False
+        self._side_thread: threading.Thread | None = None
+        self._side_error: OSError | None = None
         self._stop = threading.Event()
         self._thread: threading.Thread | None = None
         self._fd: int | None = None
@@ -224,6 +228,7 @@ class Recorder:
         self._stop.set()
         if self._thread is not None:
             self._thread.join(5.0)
+        self._stop_sidecar_thread()
         with self._lock:
             try:
                 if self.failed is None:
@@ -361,7 +366,7 @@ class Recorder:
                     self.events_count += data.count(b"\n", 0, exc.kept)
                     raise exc.error from None
             self._last_flush = time.monotonic()
-            self._write_sidecar(stopped=None, complete=False)
+            self._post_sidecar()
         except OSError as exc:
             self._fail(exc)
 
@@ -374,6 +379,7 @@ class Recorder:
         self._pending.clear()
         self._pending_rows = 0
         self._ev_lines.clear()
+        self._stop_sidecar_thread()       # no periodic sidecar may overwrite this one
         try:  # the sidecar says so if there is still room for it; else the last one stands
             self._write_sidecar(stopped={"wall_time": _wall(), "host_time_s": self.link.now()},
                                 complete=False)
@@ -381,6 +387,52 @@ class Recorder:
             pass
 
     def _write_sidecar(self, *, stopped, complete: bool) -> None:
+        self._dump_sidecar(self._sidecar_doc(stopped=stopped, complete=complete))
+
+    def _post_sidecar(self) -> None:
+        """The periodic sidecar: built here, written by the recorder's sidecar thread, so a
+        slow disk never holds up the thread that pulls rows and checks an experiment's
+        guards (a slow rewrite once stopped a long sweep as "stale telemetry")."""
+        if self._side_error is not None:
+            exc, self._side_error = self._side_error, None
+            raise exc
+        doc = self._sidecar_doc(stopped=None, complete=False)
+        with self._side_cond:
+            if self._side_stop:
+                return                    # closing: close() writes the final sidecar
+            if self._side_thread is None:
+                self._side_thread = threading.Thread(target=self._sidecar_loop, daemon=True,
+                                                     name=f"recorder sidecar {self.path.name}")
+                self._side_thread.start()
+            self._side_doc = doc          # the writer takes the newest one
+            self._side_cond.notify()
+
+    def _sidecar_loop(self) -> None:
+        while True:
+            with self._side_cond:
+                while self._side_doc is None and not self._side_stop:
+                    self._side_cond.wait()
+                doc, self._side_doc = self._side_doc, None
+                if doc is None:
+                    return
+            try:
+                self._dump_sidecar(doc)
+            except OSError as exc:        # the pulling thread handles it at its next flush
+                self._side_error = exc
+
+    def _stop_sidecar_thread(self) -> None:
+        with self._side_cond:
+            self._side_stop = True
+            self._side_doc = None         # close() writes the final one itself
+            self._side_cond.notify()
+        if self._side_thread is not None:
+            self._side_thread.join(10.0)
+
+    def _dump_sidecar(self, doc: dict) -> None:
+        write_text_atomic(self.sidecar, yaml.safe_dump(doc, sort_keys=False,
+                                                       default_flow_style=None, width=100))
+
+    def _sidecar_doc(self, *, stopped, complete: bool) -> dict:
         health = None
         try:
             h = self.link.health()
@@ -395,8 +447,7 @@ class Recorder:
                     "notes_dropped": self.notes_dropped, "link_health": health})
         if self.failed is not None:
             doc["incomplete"] = self.failed
-        write_text_atomic(self.sidecar, yaml.safe_dump(doc, sort_keys=False,
-                                                       default_flow_style=None, width=100))
+        return doc
 
 
 # ---------------------------------------------------------------------- reading

@@ -287,7 +287,7 @@ def _sweep_plot(summary: dict, out: Path) -> list[Plot]:
 def _results_report(folder: Path, out: Path, draw: bool = True) -> Report:
     summary = _read_summary(folder)
     try:
-        return _results_report_of(summary, folder, out)
+        return _results_report_of(summary, folder, out, draw)
     except (KeyError, TypeError, AttributeError, IndexError, ValueError) as exc:
         if isinstance(exc, ReportError):
             raise
@@ -296,7 +296,7 @@ def _results_report(folder: Path, out: Path, draw: bool = True) -> Report:
                           f"({type(exc).__name__}: {exc})") from None
 
 
-def _results_report_of(summary: dict, folder: Path, out: Path) -> Report:
+def _results_report_of(summary: dict, folder: Path, out: Path, draw: bool) -> Report:
     out.mkdir(parents=True, exist_ok=True)
     plots: list[Plot] = []
     for step in summary["steps"] if draw else ():

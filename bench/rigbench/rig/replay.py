@@ -205,7 +205,10 @@ class ReplayBoard:
         signals = [SignalInfo(i, n, u) for i, (n, u) in
                    enumerate(zip(self.rec.signals, self.rec.units))]
         loops = []
-        for lp in side.get("loops") or []:
+        declared = side.get("loops") or []
+        if not isinstance(declared, list):
+            raise ValueError(f"{where}: loops: expected a list of loop declarations")
+        for lp in declared:
             if not (isinstance(lp, dict) and all(k in lp for k in _LOOP_KEYS)):
                 continue
             fields = [(k, ",".join(map(str, v)) if isinstance(v, list) else str(v))
