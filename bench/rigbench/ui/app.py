@@ -7,6 +7,11 @@ calls ``link.kill()`` at once on the UI thread (the link writes the kill bytes a
 anything queued) and cancels any running experiment worker. Every other board command runs
 in a thread worker and reports back with a message; errors come back in words.
 
+Every action that can move the motor asks first (rigbench.ui.guard). A lost link turns the
+bar into "kill not delivered", refuses motor starts and is reopened by rigbench.ui.relink
+(never re-arming); quitting disarms and stops the telemetry stream, and asks first while
+the motor is armed.
+
 Must not import: rigbench.rig, serial (ports are opened by rigbench.link).
 """
 
@@ -22,9 +27,11 @@ from textual.reactive import reactive
 from textual.worker import get_current_worker
 
 from rigbench.link import BoardRefused, Link, LinkError
+from rigbench.link.reopen import compare, remember
+
+from rigbench.ui import guard, relink
 
 from rigbench.ui.palette import BenchCommands
-from rigbench.ui.widgets.dialogs import ConfirmDialog
 from rigbench.ui.screens.experiments import ExperimentsScreen
 from rigbench.ui.screens.gains import GainsScreen
 from rigbench.ui.screens.help import HelpScreen
@@ -85,6 +92,8 @@ class RigApp(App):
     BINDINGS = [
         Binding("ctrl+k", "kill", "KILL", priority=True),
         Binding("f9", "kill", "KILL", show=False, priority=True),
+        Binding("ctrl+q", "quit", "Quit", priority=True),  # early: the footer keeps it
+        Binding("ctrl+r", "reconnect", "Reconnect", show=False, priority=True),
         Binding("1", "switch_mode('live')", "Live"),
         Binding("2", "switch_mode('experiments')", "Experiments"),
         Binding("3", "switch_mode('gains')", "Gains"),
@@ -121,6 +130,10 @@ class RigApp(App):
         self.last_relay = None  # the last relay outcome (runners.RelayOutcome)
         self.cancel_events: set = set()  # cancel flags of running experiments
         self._event_cursor = 0
+        self.memory = None  # what the link knew while it worked (link.reopen.LinkMemory)
+        self.relink_text = ""
+        self._lost_link: Link | None = None  # the lost link being reopened
+        self._asking_quit = False
         # the app's themes exist before one is chosen: a theme set on an app that has not
         # registered it yet would be refused, or replaced later by a default
         for bench_theme in THEMES:
@@ -135,21 +148,61 @@ class RigApp(App):
         self.connect(self.url)
 
     def on_unmount(self) -> None:
-        self.close_link()
+        self.close_link(disarm=True)
 
     async def action_quit(self) -> None:
+        """Quit; with the motor armed or running (or last known so), ask first."""
+        state = self.safety
+        motor = state.motor
+        if state.kill_blocked and self.memory is not None:
+            motor = self.memory.motor or motor
+        if motor not in ("armed", "running"):
+            self.leave()
+            return
+        if self._asking_quit:
+            return
+        self._asking_quit = True
+        if state.kill_blocked:
+            body = (f"The motor was {motor} when the link was lost, and a kill cannot reach "
+                    "the board. Quitting gives up reconnecting; the board's watchdog turns "
+                    "the motor off when heartbeats stop. Use the hardware cut-off.")
+        else:
+            body = (f"The motor is {motor}. Quitting disarms it and stops the telemetry "
+                    "stream first. Should the disarm not arrive, the board's watchdog turns "
+                    "the motor off when heartbeats stop.")
+        body += "\n\n" + guard.CUT_OFF_TEXT
+        label = "Quit anyway" if state.kill_blocked else "Disarm and quit"
+        self.push_screen(guard.ConfirmDialog(f"Quit with the motor {motor}?", body, label),
+                         self._quit_answered)
+
+    def _quit_answered(self, yes: bool | None) -> None:
+        self._asking_quit = False
+        if yes:
+            self.leave()
+        else:
+            self.note("quit cancelled")
+
+    def leave(self) -> None:
+        """Disarm, stop the stream, close the port, exit."""
         self.close_link(disarm=True)
         self.exit()
 
     def close_link(self, *, disarm: bool = False) -> None:
+        """Close the link; ``disarm``: first disarm an armed motor and stop the telemetry
+        stream, so the next program on the port does not start with a backlog of frames."""
         link, self.link = self.link, None
         if link is None:
             return
-        if disarm and link.motor_state in ("armed", "running"):
+        if disarm and link.state not in ("lost", "closed"):
             try:
-                link.disarm()
+                if link.motor_state in ("armed", "running"):
+                    link.disarm()
             except (LinkError, BoardRefused):
                 pass  # closing stops the heartbeat: the board's watchdog trips the motor
+            try:
+                link.stream(0)
+            except (LinkError, BoardRefused):
+                pass  # the board goes on streaming; the next program counts the backlog
         link.close()
 
     # ------------------------------------------------------------------ the link
@@ -183,17 +236,75 @@ class RigApp(App):
         if message.url != self.url:  # superseded by a later connect
             message.link.close()
             return
-        self.link = message.link
-        self._event_cursor = message.link.event_cursor()
+        self.adopt(message.link)
+        sim = " (SIMULATED)" if message.link.info.simulated else ""
+        self.note(f"connected to {message.link.info.board}{sim}, telemetry "
+                  f"{self.stream_rate_hz:g} Hz")
+        self.update_safety()
+
+    def adopt(self, link: Link) -> None:
+        """Make ``link`` (open, handshaken, streaming) the App's link."""
+        self.link = link
+        self._event_cursor = link.event_cursor()
         self.trip_cause = None
-        info = message.link.info
+        self.memory = None
+        self._lost_link = None
+        self.relink_text = ""
+        info = link.info
         sim = " (SIMULATED)" if info.simulated else ""
         self.sub_title = f"{info.board} · {info.rig}{sim}"
-        self.note(f"connected to {info.board}{sim}, telemetry {self.stream_rate_hz:g} Hz")
         self.link_serial += 1
+        if getattr(link.clock, "virtual", False):
+            self.pace_virtual_clock(link)
+
+    # ------------------------------------------------------------------ a lost link
+
+    def link_lost(self, link: Link) -> None:
+        """The link went: say so loudly, stop experiments, close the port (a USB device
+        that comes back needs its old descriptor released) and start reopening."""
+        self._lost_link = link
+        if self.memory is None:
+            self.memory = remember(link)
+        self.cancel_experiments()
+        link.close()
+        self.relink_text = relink.waiting_text(self.url)
+        self.notify("Link lost: a kill cannot reach the board. Use the hardware cut-off.",
+                    title="KILL NOT DELIVERED", severity="error", timeout=10)
+        if relink.automatic(self.url):
+            relink.start_watch(self, link, self.memory, once=False, baudrate=self.baudrate)
+
+    def action_reconnect(self) -> None:
+        link = self.link
+        if link is None:
+            self.connect(self.url)
+        elif link is self._lost_link:
+            self.note("trying to open the link again…")
+            relink.start_watch(self, link, self.memory, once=not relink.automatic(self.url),
+                               baudrate=self.baudrate)
+        else:
+            self.note("the link works: nothing to reconnect")
         self.update_safety()
-        if getattr(message.link.clock, "virtual", False):
-            self.pace_virtual_clock(message.link)
+
+    def on_relink_note(self, message: relink.RelinkNote) -> None:
+        if message.old is self.link:
+            self.relink_text = f"{relink.waiting_text(self.url)}; {message.text}"
+            self.update_safety()
+
+    def on_link_reopened(self, message: relink.LinkReopened) -> None:
+        result = message.reopened
+        if message.old is not self.link:  # the user opened another link meanwhile
+            result.link.close()
+            return
+        self.adopt(result.link)
+        changes = result.changes() or ["nothing changed that the host can see"]
+        motor = result.motor + ("" if result.motor in ("armed", "running") else
+                                ", not re-armed")
+        text = f"link back: {'; '.join(changes)}; motor {motor}"
+        self.note(text)
+        loud = result.motor in ("armed", "running") or result.fault or result.other_board
+        self.notify(text, title="Link reopened", severity="error" if loud else "warning",
+                    timeout=10)
+        self.update_safety()
 
     def pace_virtual_clock(self, link: Link, *, step_s: float = 0.02) -> None:
         """A virtual clock moves only while someone waits on the link: the UI watches live,
@@ -244,12 +355,18 @@ class RigApp(App):
 
     def update_safety(self) -> None:
         link = self.link
-        if link is not None:
+        if link is not None and link is not self._lost_link:
             self._event_cursor, events = link.events_since(self._event_cursor)
             for ev in events:
                 self._on_event(ev)
+            state = link.state
+            if state == "ok":
+                self.memory = remember(link)  # what to compare with after a restart
+            elif state == "lost":
+                self.link_lost(link)
         self.safety = read_safety(link, port=self.url, note=self.note_text,
-                                  failure=self.failure, trip_cause=self.trip_cause)
+                                  failure=self.failure, trip_cause=self.trip_cause,
+                                  relink=self.relink_text)
 
     def _on_event(self, ev) -> None:
         if ev.source == "board" and ev.kind == "trip":
@@ -264,6 +381,12 @@ class RigApp(App):
             self.trip_cause = None
         elif ev.source == "board" and ev.kind == "done":
             self.note(f"{ev.get('mode', 'timed mode')} finished")
+        elif ev.source == "link" and ev.kind == "resync" and self.memory is not None:
+            found = compare(self.memory, self.link, restarted=True)
+            text = (f"board restarted, handshake done again: {'; '.join(found.changes())}; "
+                    f"motor {found.motor}, not re-armed")
+            self.note(text)
+            self.notify(text, title="Board restarted", severity="warning", timeout=10)
         elif ev.source == "link" and ev.kind in ("lost", "reset", "resync"):
             what = {"lost": "link lost", "reset": "board restarted",
                     "resync": "handshake done again after the restart"}[ev.kind]
@@ -283,9 +406,10 @@ class RigApp(App):
         try:
             link.kill()
         except Exception as exc:  # noqa: BLE001 - a failed kill must be said, never raised
-            self.note(f"KILL NOT SENT: {error_words(exc)}. Use the hardware cut-off.")
-            self.notify("Kill could not be sent: use the hardware cut-off.",
-                        title="KILL FAILED", severity="error")
+            why = "the link is lost" if link.state == "lost" else error_words(exc)
+            self.note(f"KILL NOT SENT ({why}): use the hardware cut-off")
+            self.notify(f"The kill could not be sent ({why}): use the hardware cut-off.",
+                        title="KILL NOT DELIVERED", severity="error", timeout=10)
         else:
             self.kills_sent += 1
             self.note("kill sent; waiting for the board to confirm")
@@ -332,23 +456,12 @@ class RigApp(App):
         self.update_safety()
 
     def action_arm(self) -> None:
-        if self.need_link("arm") is None:
-            return
-        why = self.safety.why
-        body = ("Arming enables the motor driver. Nothing turns until a mode runs (hold, "
+        what = ("Arming enables the motor driver. Nothing turns until a mode runs (hold, "
                 "relay, open loop, injection), but from then on only a trip, a disarm or the "
-                f"kill ({KILL_KEYS_TEXT}) stops it.\n\n")
-        body += ("The board would refuse now: " + "; ".join(why) + "." if why
-                 else "Every interlock condition holds now.")
-        body += "\n\nIs the hardware cut-off within reach?"
-        self.push_screen(ConfirmDialog("Arm the motor?", body, "Arm the motor"),
-                         self._arm_confirmed)
-
-    def _arm_confirmed(self, yes: bool | None) -> None:
-        if yes:
-            self.board_command("arm", lambda link: link.arm())
-        else:
-            self.note("arming cancelled")
+                f"kill ({KILL_KEYS_TEXT}) stops it.")
+        guard.ask_motor_start(self, "Arm the motor?", what, "Arm the motor",
+                              lambda: self.board_command("arm", lambda link: link.arm()),
+                              cancelled="arming cancelled")
 
     def action_disarm(self) -> None:
         self.board_command("disarm", lambda link: link.disarm())
@@ -357,7 +470,12 @@ class RigApp(App):
         self.board_command("clear fault", lambda link: link.clear())
 
     def action_hold(self) -> None:
-        self.board_command("hold (closed loop)", lambda link: link.mode("hold").get("mode"))
+        what = ("Hold closes the loop on the board's present gains. With the motor armed the "
+                "loop drives it at once; disarmed, it turns as soon as it is armed.")
+        guard.ask_motor_start(
+            self, "Hold: close the loop?", what, "Hold",
+            lambda: self.board_command("hold (closed loop)",
+                                       lambda link: link.mode("hold").get("mode")))
 
     def action_motor_off(self) -> None:
         self.board_command("mode off", lambda link: link.mode("off").get("mode"))
