@@ -3,7 +3,9 @@ board that goes away and comes back on the same path (a USB board pulled out and
 in again): ``PtyBoard(url, link_path)`` serves it and points ``link_path`` at its pty;
 ``stop()`` takes it away (the pty closes, the symlink goes); a new ``PtyBoard`` on the same
 ``link_path`` brings one back. ``boot_text`` is written before the board's first frame, as
-a board that prints a boot banner when its port opens does."""
+a board that prints a boot banner when its port opens does; ``uptime_s`` starts its clock
+where a board that has run that long would be (a real session is minutes, not the test's
+fraction of a second)."""
 
 from __future__ import annotations
 
@@ -31,9 +33,11 @@ class ChattySimLink(SimLink):
 
 class PtyBoard:
     def __init__(self, url: str, link_path, *, boot_text: bytes = b"",
-                 sim: SimLink | None = None) -> None:
+                 sim: SimLink | None = None, uptime_s: float = 0.0) -> None:
         self.link_path = str(link_path)
         self.sim = sim or ChattySimLink(parse_sim_url(url), boot_text)
+        if uptime_s:  # its clock as if it had been running that long already
+            self.sim.board.clock_start_us = int(uptime_s * 1e6)
         self.ready = threading.Event()
         self.halt = threading.Event()
         self.path = None

@@ -39,7 +39,7 @@ def verbs_sent(link) -> list[str]:
 
 def test_a_board_restarted_on_the_same_path_is_reopened_and_the_changes_named(tmp_path):
     path = tmp_path / "board"
-    first = PtyBoard("sim://wheel", path)
+    first = PtyBoard("sim://wheel", path, uptime_s=60.0)
     try:
         link = Link.open(str(path))
         try:

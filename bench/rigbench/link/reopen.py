@@ -125,10 +125,12 @@ def _same(a, b) -> bool:
     return a == b
 
 
-def _restarted(memory: LinkMemory, link, status) -> bool | None:
-    """A boot event on the new link, or the board clock behind where it was plus the time
-    that passed (with 1 s to spare), means a restart; a clock that may have wrapped
-    meanwhile (32-bit µs, about 71.6 min) cannot tell."""
+def _restarted(memory: LinkMemory, link, status, *, spare_s: float = 2.0) -> bool | None:
+    """Whether the board restarted since ``memory``: a boot event on the new link (a board
+    that resets when its port opens), or its clock behind where it was (a board powered
+    again with its cable: its boot event went to nobody). A clock that went on, but by
+    ``spare_s`` less than the time that passed, or that may have wrapped meanwhile (32-bit
+    µs, about 71.6 min), cannot tell."""
     _, events = link.events_since(0)
     if any(ev.source == "board" and ev.kind == "boot" for ev in events):
         return True
@@ -136,9 +138,11 @@ def _restarted(memory: LinkMemory, link, status) -> bool | None:
     if memory.board_time_us is None or now_us is None:
         return None
     elapsed_us = (time.monotonic() - memory.seen_at_s) * 1e6
-    if memory.board_time_us + elapsed_us + 1e6 >= U32:
+    if memory.board_time_us + elapsed_us + spare_s * 1e6 >= U32:
         return None
-    return now_us < memory.board_time_us
+    if now_us < memory.board_time_us:
+        return True
+    return None if now_us + spare_s * 1e6 < memory.board_time_us + elapsed_us else False
 
 
 def compare(memory: LinkMemory, link, *, status=None, restarted: bool | None = None,

@@ -11,11 +11,11 @@ from a board we cannot hear is not worth a confirmation (and a kill could not re
 
 from __future__ import annotations
 
-from rigbench.ui.state import KILL_KEYS_TEXT, SafetyState
+from rigbench.ui.state import SafetyState
 from rigbench.ui.widgets.dialogs import ConfirmDialog
 
-CUT_OFF_TEXT = ("A software kill ({keys}) is not an emergency stop: is the hardware cut-off "
-                "within reach?").format(keys=KILL_KEYS_TEXT)
+CUT_OFF_TEXT = ("A software kill is not an emergency stop: is the hardware cut-off within "
+                "reach?")
 
 
 def refusal(state: SafetyState, *, has_link: bool) -> str:

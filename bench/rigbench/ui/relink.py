@@ -44,7 +44,7 @@ def automatic(url: str) -> bool:
 
 def waiting_text(url: str) -> str:
     if automatic(url):
-        return (f"reconnects by itself when {url} is back (ctrl+r: try now); never re-arms")
+        return f"reconnects when {url} is back (ctrl+r: now); never re-arms"
     return "ctrl+r opens the link again; never re-arms"
 
 

@@ -227,6 +227,12 @@ class BenchModal(ModalScreen[ResultType], Generic[ResultType]):
     """
     BINDINGS = FOOTER_FIRST
 
+    def on_mount(self) -> None:
+        # as BenchScreen: the size classes before the first layout (a short terminal
+        # lays the dialog out tighter, rigbench.ui.widgets.dialogs)
+        for name, on in size_classes(self.app).items():
+            self.set_class(on, name)
+
     def compose(self) -> ComposeResult:
         yield from self.compose_dialog()
         with BottomStack():
