@@ -36,6 +36,11 @@ def dialog_body(app) -> str:
     return str(app.screen.query_one(".dialog-body", Static).content)
 
 
+def asking(app) -> bool:
+    """A confirmation is in front and composed (its text is there)."""
+    return isinstance(app.screen, ConfirmDialog) and bool(app.screen.query(".dialog-body"))
+
+
 def nothing_started(app) -> bool:
     status = app.link.last_status
     screen_running = getattr(app.screen, "running", None)
@@ -57,7 +62,7 @@ async def asked_and_cancelled(app, pilot, start) -> None:
     """``start()`` opens the question; Cancel (the focused button) starts nothing."""
     assert nothing_started(app), app.safety
     await start()
-    assert await wait_for(pilot, lambda: isinstance(app.screen, ConfirmDialog)), (
+    assert await wait_for(pilot, lambda: asking(app)), (
         app.note_text, [str(w.content) for w in app.screen.query(Static)][:12])
     body = dialog_body(app)
     assert "not an emergency stop" in body and "hardware cut-off" in body
@@ -125,7 +130,7 @@ def test_a_deliberate_yes_starts_the_sweep(make_app):
             await pilot.pause(0.05)
             app.set_focus(None)
             await press(pilot, "t")
-            assert await wait_for(pilot, lambda: isinstance(app.screen, ConfirmDialog))
+            assert await wait_for(pilot, lambda: asking(app))
             assert "sweep arms the motor" in dialog_body(app)
             await press(pilot, "tab", "enter")
             screen = app.screen
@@ -154,7 +159,7 @@ def test_quit_with_the_motor_armed_asks_then_disarms_and_stops_the_stream(make_a
             assert await wait_for(pilot, lambda: app.safety.motor == "armed")
             cursor = link.raw_cursor()
             await press(pilot, "ctrl+q")
-            assert await wait_for(pilot, lambda: isinstance(app.screen, ConfirmDialog))
+            assert await wait_for(pilot, lambda: asking(app))
             assert "disarms it and stops the telemetry stream" in dialog_body(app)
             if answer == "cancel":
                 await press(pilot, "escape")

@@ -74,7 +74,7 @@ def error_words(exc: BaseException) -> str:
     return f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__
 
 
-class RigApp(App):
+class RigApp(guard.QuitMixin, relink.RelinkMixin, App):
     """The rigbench terminal UI on one board at ``url``, in colour ``theme`` (one of
     rigbench.ui.theme.THEMES or Textual's own)."""
 
@@ -150,43 +150,6 @@ class RigApp(App):
     def on_unmount(self) -> None:
         self.close_link(disarm=True)
 
-    async def action_quit(self) -> None:
-        """Quit; with the motor armed or running (or last known so), ask first."""
-        state = self.safety
-        motor = state.motor
-        if state.kill_blocked and self.memory is not None:
-            motor = self.memory.motor or motor
-        if motor not in ("armed", "running"):
-            self.leave()
-            return
-        if self._asking_quit:
-            return
-        self._asking_quit = True
-        if state.kill_blocked:
-            body = (f"The motor was {motor} when the link was lost, and a kill cannot reach "
-                    "the board. Quitting gives up reconnecting; the board's watchdog turns "
-                    "the motor off when heartbeats stop. Use the hardware cut-off.")
-        else:
-            body = (f"The motor is {motor}. Quitting disarms it and stops the telemetry "
-                    "stream first. Should the disarm not arrive, the board's watchdog turns "
-                    "the motor off when heartbeats stop.")
-        body += "\n\n" + guard.CUT_OFF_TEXT
-        label = "Quit anyway" if state.kill_blocked else "Disarm and quit"
-        self.push_screen(guard.ConfirmDialog(f"Quit with the motor {motor}?", body, label),
-                         self._quit_answered)
-
-    def _quit_answered(self, yes: bool | None) -> None:
-        self._asking_quit = False
-        if yes:
-            self.leave()
-        else:
-            self.note("quit cancelled")
-
-    def leave(self) -> None:
-        """Disarm, stop the stream, close the port, exit."""
-        self.close_link(disarm=True)
-        self.exit()
-
     def close_link(self, *, disarm: bool = False) -> None:
         """Close the link; ``disarm``: first disarm an armed motor and stop the telemetry
         stream, so the next program on the port does not start with a backlog of frames."""
@@ -256,55 +219,6 @@ class RigApp(App):
         self.link_serial += 1
         if getattr(link.clock, "virtual", False):
             self.pace_virtual_clock(link)
-
-    # ------------------------------------------------------------------ a lost link
-
-    def link_lost(self, link: Link) -> None:
-        """The link went: say so loudly, stop experiments, close the port (a USB device
-        that comes back needs its old descriptor released) and start reopening."""
-        self._lost_link = link
-        if self.memory is None:
-            self.memory = remember(link)
-        self.cancel_experiments()
-        link.close()
-        self.relink_text = relink.waiting_text(self.url)
-        self.notify("Link lost: a kill cannot reach the board. Use the hardware cut-off.",
-                    title="KILL NOT DELIVERED", severity="error", timeout=10)
-        if relink.automatic(self.url):
-            relink.start_watch(self, link, self.memory, once=False, baudrate=self.baudrate)
-
-    def action_reconnect(self) -> None:
-        link = self.link
-        if link is None:
-            self.connect(self.url)
-        elif link is self._lost_link:
-            self.note("trying to open the link again…")
-            relink.start_watch(self, link, self.memory, once=not relink.automatic(self.url),
-                               baudrate=self.baudrate)
-        else:
-            self.note("the link works: nothing to reconnect")
-        self.update_safety()
-
-    def on_relink_note(self, message: relink.RelinkNote) -> None:
-        if message.old is self.link:
-            self.relink_text = f"{relink.waiting_text(self.url)}; {message.text}"
-            self.update_safety()
-
-    def on_link_reopened(self, message: relink.LinkReopened) -> None:
-        result = message.reopened
-        if message.old is not self.link:  # the user opened another link meanwhile
-            result.link.close()
-            return
-        self.adopt(result.link)
-        changes = result.changes() or ["nothing changed that the host can see"]
-        motor = result.motor + ("" if result.motor in ("armed", "running") else
-                                ", not re-armed")
-        text = f"link back: {'; '.join(changes)}; motor {motor}"
-        self.note(text)
-        loud = result.motor in ("armed", "running") or result.fault or result.other_board
-        self.notify(text, title="Link reopened", severity="error" if loud else "warning",
-                    timeout=10)
-        self.update_safety()
 
     def pace_virtual_clock(self, link: Link, *, step_s: float = 0.02) -> None:
         """A virtual clock moves only while someone waits on the link: the UI watches live,

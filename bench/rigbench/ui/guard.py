@@ -76,3 +76,45 @@ def ask_motor_start(app, title: str, what: str, confirm: str, on_yes, *,
 
     app.push_screen(ConfirmDialog(title, start_body(app.safety, what), confirm), answered)
     return True
+
+
+class QuitMixin:
+    """The App's quit: disarm and stop the stream first, ask while the motor is armed.
+    Mixed into RigApp (uses its ``safety``, ``memory``, ``close_link``, ...)."""
+
+    async def action_quit(self) -> None:
+        """Quit; with the motor armed or running (or last known so), ask first."""
+        state = self.safety
+        motor = state.motor
+        if state.kill_blocked and self.memory is not None:
+            motor = self.memory.motor or motor
+        if motor not in ("armed", "running"):
+            self.leave()
+            return
+        if self._asking_quit:
+            return
+        self._asking_quit = True
+        if state.kill_blocked:
+            body = (f"The motor was {motor} when the link was lost, and a kill cannot reach "
+                    "the board. Quitting gives up reconnecting; the board's watchdog turns "
+                    "the motor off when heartbeats stop. Use the hardware cut-off.")
+        else:
+            body = (f"The motor is {motor}. Quitting disarms it and stops the telemetry "
+                    "stream first. Should the disarm not arrive, the board's watchdog turns "
+                    "the motor off when heartbeats stop.")
+        body += "\n\n" + CUT_OFF_TEXT
+        label = "Quit anyway" if state.kill_blocked else "Disarm and quit"
+        self.push_screen(ConfirmDialog(f"Quit with the motor {motor}?", body, label),
+                         self._quit_answered)
+
+    def _quit_answered(self, yes: bool | None) -> None:
+        self._asking_quit = False
+        if yes:
+            self.leave()
+        else:
+            self.note("quit cancelled")
+
+    def leave(self) -> None:
+        """Disarm, stop the stream, close the port, exit."""
+        self.close_link(disarm=True)
+        self.exit()

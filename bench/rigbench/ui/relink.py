@@ -16,7 +16,7 @@ import time
 from textual.message import Message
 from textual.worker import get_current_worker
 
-from rigbench.link.reopen import LinkMemory, device_present, reopen
+from rigbench.link.reopen import LinkMemory, device_present, remember, reopen
 
 RETRY_S = 0.5  # wall-clock seconds between attempts (the link, and its clock, are gone)
 
@@ -73,3 +73,55 @@ def start_watch(app, old, memory: LinkMemory, *, once: bool, baudrate: int):
 
     return app.run_worker(work, thread=True, group="relink", exclusive=True,
                           exit_on_error=False, name=f"reopen {memory.url}")
+
+
+class RelinkMixin:
+    """The App's part in a lost link: say so, close the port, reopen, adopt, report.
+    Mixed into RigApp (uses its ``link``, ``memory``, ``note``, ``adopt``, ...)."""
+
+    def link_lost(self, link) -> None:
+        """The link went: say so loudly, stop experiments, close the port (a USB device
+        that comes back needs its old descriptor released) and start reopening."""
+        self._lost_link = link
+        if self.memory is None:
+            self.memory = remember(link)
+        self.cancel_experiments()
+        link.close()
+        self.relink_text = waiting_text(self.url)
+        self.notify("Link lost: a kill cannot reach the board. Use the hardware cut-off.",
+                    title="KILL NOT DELIVERED", severity="error", timeout=10)
+        if automatic(self.url):
+            start_watch(self, link, self.memory, once=False, baudrate=self.baudrate)
+
+    def action_reconnect(self) -> None:
+        link = self.link
+        if link is None:
+            self.connect(self.url)
+        elif link is self._lost_link:
+            self.note("trying to open the link again…")
+            start_watch(self, link, self.memory, once=not automatic(self.url),
+                               baudrate=self.baudrate)
+        else:
+            self.note("the link works: nothing to reconnect")
+        self.update_safety()
+
+    def on_relink_note(self, message: RelinkNote) -> None:
+        if message.old is self.link:
+            self.relink_text = f"{waiting_text(self.url)}; {message.text}"
+            self.update_safety()
+
+    def on_link_reopened(self, message: LinkReopened) -> None:
+        result = message.reopened
+        if message.old is not self.link:  # the user opened another link meanwhile
+            result.link.close()
+            return
+        self.adopt(result.link)
+        changes = result.changes() or ["nothing changed that the host can see"]
+        motor = result.motor + ("" if result.motor in ("armed", "running") else
+                                ", not re-armed")
+        text = f"link back: {'; '.join(changes)}; motor {motor}"
+        self.note(text)
+        loud = result.motor in ("armed", "running") or result.fault or result.other_board
+        self.notify(text, title="Link reopened", severity="error" if loud else "warning",
+                    timeout=10)
+        self.update_safety()

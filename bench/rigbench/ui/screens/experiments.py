@@ -192,10 +192,11 @@ class ExperimentsScreen(BenchScreen):
         except ValueError as exc:
             state.update(str(exc))
             return
+        name = "relay test" if kind == "relay" else "disturbance sweep"
         guard.ask_motor_start(
-            self.app, f"Start the {kind} test?", self.start_text(kind, loop, options),
-            f"Start the {kind} test", lambda: self._launch(kind, link, loop, options),
-            cancelled=f"{kind} test not started: nothing was armed")
+            self.app, f"Start the {name}?", self.start_text(kind, loop, options),
+            f"Start the {name}", lambda: self._launch(kind, link, loop, options),
+            cancelled=f"{name} not started: nothing was armed")
 
     def start_text(self, kind: str, loop: str, options: dict) -> str:
         """What the experiment will do to the motor, in words, for the confirmation."""
