@@ -18,15 +18,22 @@ from rigbench.rig.url import parse_sim_url
 
 
 class ChattySimLink(SimLink):
-    """A SimLink whose first bytes out are ``boot_text`` (not frames)."""
+    """A SimLink that prints ``boot_text`` (not frames) once a host has opened its port and
+    written to it, as a board that resets when its port opens does (text written before
+    the open would be flushed by the opening host, and never seen)."""
 
     def __init__(self, options, boot_text: bytes = b"") -> None:
         super().__init__(options)
         self._boot_text = boot_text
+        self._host_seen = False
+
+    def write(self, data: bytes) -> None:
+        self._host_seen = True
+        super().write(data)
 
     def drain(self, max_bytes=None) -> bytes:
         out = super().drain(max_bytes)
-        if self._boot_text:
+        if self._boot_text and self._host_seen:
             out, self._boot_text = self._boot_text + out, b""
         return out
 
