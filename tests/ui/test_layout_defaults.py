@@ -25,7 +25,7 @@ from rigbench.ui.theme import BENCH_DARK, BENCH_LIGHT
 
 from conftest import SIM, connected, press, wait_for
 
-SIZES = ((80, 24), (140, 42))
+SIZES = ((80, 24), (120, 40), (140, 42))
 
 
 def shown(app, cls) -> bool:
@@ -86,17 +86,21 @@ def test_the_theme_named_on_the_command_line_is_the_one_shown(argv, theme):
         app.close_link()
 
 
-def missing_essentials(app, *, alarm: str = "") -> str:
-    """What the screen in front fails to show (empty when all is in view)."""
+def missing_essentials(app, *, alarm: str = "", kill: str = "KILL ctrl+k or F9") -> str:
+    """What the screen in front fails to show (empty when all is in view): ``kill`` (the
+    kill keys, or that a kill cannot be delivered) and the motor on the bar, ``alarm`` on
+    the same row, the quit key in the footer, the whole top bar, no scrolling."""
     if not shown(app, type(app.screen)):
         return "screen not composed yet"
     rows = screen_rows(app)
     where = f"{type(app.screen).__name__} at {app.size}"
-    bar = [r for r in rows[-4:] if "KILL ctrl+k or F9" in r]
+    bar = [r for r in rows[-4:] if kill in r]
     if len(rows) != app.size.height or not bar:
-        return f"{where}: no kill keys in the bottom rows {rows[-4:]}"
+        return f"{where}: no {kill!r} in the bottom rows {rows[-4:]}"
     if "MOTOR " not in bar[0] or alarm not in bar[0]:
         return f"{where}: bar lacks the motor or {alarm!r}: {bar[0]}"
+    if "^q Quit" not in rows[-1]:                  # the quit key is always offered
+        return f"{where}: no quit key in the footer: {rows[-1]}"
     if "F1 Help" not in rows[0]:                   # no scrollbar narrowing the top bar
         return f"{where}: top bar cut: {rows[0]}"
     if app.screen.max_scroll_y:                    # nothing overflows the screen
@@ -104,13 +108,13 @@ def missing_essentials(app, *, alarm: str = "") -> str:
     return ""
 
 
-async def essentials_in_view(pilot, *, alarm: str = "") -> None:
+async def essentials_in_view(pilot, **what) -> None:
     """Let the screen fill in (the link's loops, hints), wait (bounded) for the layout to
     settle, then check; the message says what is cut."""
     app = pilot.app
     await pilot.pause(0.2)
-    await wait_for(pilot, lambda: not missing_essentials(app, alarm=alarm), turns=100)
-    assert not missing_essentials(app, alarm=alarm), missing_essentials(app, alarm=alarm)
+    await wait_for(pilot, lambda: not missing_essentials(app, **what), turns=100)
+    assert not missing_essentials(app, **what), missing_essentials(app, **what)
 
 
 def test_every_screen_keeps_kill_motor_and_top_bar_in_view(make_app):
@@ -146,5 +150,7 @@ def test_the_link_alarm_shows_on_every_screen_at_80_columns(make_app):
             assert await wait_for(pilot, lambda: "LINK LOST" in app.safety.alarm, turns=800)
             for mode in RigApp.MODES:
                 await app.switch_mode(mode)
-                await essentials_in_view(pilot, alarm="ALARM  LINK LOST")
+                await essentials_in_view(pilot, alarm="LINK LOST",
+                                         kill="KILL NOT DELIVERED — USE THE HARDWARE CUT-OFF")
+                assert "MOTOR unknown" in screen_rows(app)[-3]
     asyncio.run(go())

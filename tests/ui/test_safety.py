@@ -135,3 +135,44 @@ def test_open_failure_is_told_in_words(make_app):
             assert "not found" in app.safety.alarm_detail
             assert "Traceback" not in app.safety.alarm_detail
     run(go())
+
+
+def test_lost_link_kill_not_delivered_motor_unknown_arming_refused(make_app):
+    # PROTOCOL.md §7: a kill is bytes on the link; with the link gone only the hardware
+    # cut-off can stop the motor, and nothing the board said before still holds
+    async def go():
+        app = make_app(f"{SIM}&unplug=1.5")
+        async with app.run_test(size=SIZE) as pilot:
+            assert await connected(pilot)
+            app.link.arm()
+            app.link.mode("hold")
+            assert await wait_for(pilot, lambda: app.safety.motor == "running")
+            assert await wait_for(pilot, lambda: app.safety.kill_blocked, turns=1500)
+            await pilot.pause(0.05)
+            for mode in ("live", "experiments"):
+                await app.switch_mode(mode)
+                await pilot.pause(0.05)
+                text = bar_text(app)
+                assert "KILL NOT DELIVERED — USE THE HARDWARE CUT-OFF" in text, text
+                assert "MOTOR unknown" in text and "last known" not in text
+                assert "ctrl+r" in text  # how the link comes back
+            assert app.safety.motor == "unknown"
+            sent = app.kills_sent
+            await press(pilot, "f9")
+            assert app.kills_sent == sent  # nothing could be sent...
+            assert "KILL NOT SENT (the link is lost): use the hardware cut-off" in app.note_text
+            await pilot.pause(0.05)
+            assert "KILL NOT SENT" in bar_text(app)  # ...and the bar says so
+            app.set_focus(None)
+            await press(pilot, "a")
+            await pilot.pause(0.1)
+            assert not isinstance(app.screen, ConfirmDialog)  # no Arm button to press
+            assert "Arm the motor refused: the link is lost" in app.note_text
+            await app.switch_mode("experiments")
+            await pilot.pause(0.05)
+            app.set_focus(None)
+            await press(pilot, "r")
+            await pilot.pause(0.1)
+            assert not isinstance(app.screen, ConfirmDialog)
+            assert "refused: the link is lost" in app.note_text
+    run(go())

@@ -5,6 +5,8 @@ import asyncio
 
 from textual.widgets import DataTable, Input, Static
 
+from rigbench.ui.widgets.dialogs import ConfirmDialog
+
 from conftest import SIZE, connected, press, wait_for
 
 WHEEL = "sim://wheel?clock=virtual"
@@ -42,6 +44,14 @@ async def open_sequences(app, pilot, path: str):
     return screen
 
 
+async def confirm(pilot) -> None:
+    """Answer the motor-start question deliberately (focus starts on Cancel)."""
+    app = pilot.app
+    assert await wait_for(pilot, lambda: isinstance(app.screen, ConfirmDialog))
+    await press(pilot, "tab", "enter")
+    assert await wait_for(pilot, lambda: not isinstance(app.screen, ConfirmDialog))
+
+
 def state_text(screen) -> str:
     return str(screen.query_one("#seq-state", Static).content)
 
@@ -62,6 +72,7 @@ def test_validate_run_and_results(make_app, tmp_path):
             table = screen.query_one("#seq-steps", DataTable)
             assert table.row_count == 4
             await press(pilot, "r")
+            await confirm(pilot)
             assert await wait_for(pilot, lambda: not screen.running, turns=2000)
             text = state_text(screen)
             assert "PASSED" in text and "motor after: off" in text, text
@@ -79,6 +90,7 @@ def test_abort_leaves_the_motor_off(make_app, tmp_path):
             assert await connected(pilot)
             screen = await open_sequences(app, pilot, project(tmp_path, "long.yaml", LONG))
             await press(pilot, "r")
+            await confirm(pilot)
             table = screen.query_one("#seq-steps", DataTable)
             assert await wait_for(pilot, lambda: table.get_cell("2", "state") in
                                   ("start", "running") and app.safety.motor == "running",

@@ -33,7 +33,10 @@ def test_relay_then_push_a_proposal(make_app):
             await pilot.pause(0.05)
             exp = app.screen
             await press(pilot, "r")
-            assert exp.running == "relay"
+            assert await wait_for(pilot, lambda: showing(app, ConfirmDialog))
+            assert exp.running is None  # nothing moves before the answer
+            await press(pilot, "tab", "enter")
+            assert await wait_for(pilot, lambda: exp.running == "relay")
             assert await wait_for(pilot, lambda: exp.running is None, turns=3000)
             outcome = app.last_relay
             assert outcome is not None and outcome.run.converged, exp.query_one(

@@ -6,6 +6,12 @@ widget focused, in dialogs and in the command palette (DEVELOPERS.md, Practice n
 calls ``link.kill()`` at once on the UI thread (the link writes the kill bytes ahead of
 anything queued) and cancels any running experiment worker. Every other board command runs
 in a thread worker and reports back with a message; errors come back in words.
+
+Every action that can move the motor asks first (rigbench.ui.guard). A lost link turns the
+bar into "kill not delivered", refuses motor starts and is reopened by rigbench.ui.relink
+(never re-arming); quitting disarms and stops the telemetry stream, and asks first while
+the motor is armed.
+
 """
 
 from __future__ import annotations
@@ -20,9 +26,11 @@ from textual.reactive import reactive
 from textual.worker import get_current_worker
 
 from rigbench.link import BoardRefused, Link, LinkError
+from rigbench.link.reopen import compare, remember
+
+from rigbench.ui import guard, relink
 
 from rigbench.ui.palette import BenchCommands
-from rigbench.ui.widgets.dialogs import ConfirmDialog
 from rigbench.ui.screens.experiments import ExperimentsScreen
 from rigbench.ui.screens.gains import GainsScreen
 from rigbench.ui.screens.help import HelpScreen
@@ -65,7 +73,7 @@ def error_words(exc: BaseException) -> str:
     return f"{type(exc).__name__}: {text[0]}" if text else type(exc).__name__
 
 
-class RigApp(App):
+class RigApp(guard.QuitMixin, relink.RelinkMixin, App):
     """The rigbench terminal UI on one board at ``url``, in colour ``theme`` (one of
     rigbench.ui.theme.THEMES or Textual's own)."""
 
@@ -83,6 +91,8 @@ class RigApp(App):
     BINDINGS = [
         Binding("ctrl+k", "kill", "KILL", priority=True),
         Binding("f9", "kill", "KILL", show=False, priority=True),
+        Binding("ctrl+q", "quit", "Quit", priority=True),  # early: the footer keeps it
+        Binding("ctrl+r", "reconnect", "Reconnect", show=False, priority=True),
         Binding("1", "switch_mode('live')", "Live"),
         Binding("2", "switch_mode('experiments')", "Experiments"),
         Binding("3", "switch_mode('gains')", "Gains"),
@@ -119,6 +129,10 @@ class RigApp(App):
         self.last_relay = None  # the last relay outcome (runners.RelayOutcome)
         self.cancel_events: set = set()  # cancel flags of running experiments
         self._event_cursor = 0
+        self.memory = None  # what the link knew while it worked (link.reopen.LinkMemory)
+        self.relink_text = ""
+        self._lost_link: Link | None = None  # the lost link being reopened
+        self._asking_quit = False
         # the app's themes exist before one is chosen: a theme set on an app that has not
         # registered it yet would be refused, or replaced later by a default
         for bench_theme in THEMES:
@@ -133,21 +147,24 @@ class RigApp(App):
         self.connect(self.url)
 
     def on_unmount(self) -> None:
-        self.close_link()
-
-    async def action_quit(self) -> None:
         self.close_link(disarm=True)
-        self.exit()
 
     def close_link(self, *, disarm: bool = False) -> None:
+        """Close the link; ``disarm``: first disarm an armed motor and stop the telemetry
+        stream, so the next program on the port does not start with a backlog of frames."""
         link, self.link = self.link, None
         if link is None:
             return
-        if disarm and link.motor_state in ("armed", "running"):
+        if disarm and link.state not in ("lost", "closed"):
             try:
-                link.disarm()
+                if link.motor_state in ("armed", "running"):
+                    link.disarm()
             except (LinkError, BoardRefused):
                 pass  # closing stops the heartbeat: the board's watchdog trips the motor
+            try:
+                link.stream(0)
+            except (LinkError, BoardRefused):
+                pass  # the board goes on streaming; the next program counts the backlog
         link.close()
 
     # ------------------------------------------------------------------ the link
@@ -181,17 +198,26 @@ class RigApp(App):
         if message.url != self.url:  # superseded by a later connect
             message.link.close()
             return
-        self.link = message.link
-        self._event_cursor = message.link.event_cursor()
+        self.adopt(message.link)
+        sim = " (SIMULATED)" if message.link.info.simulated else ""
+        self.note(f"connected to {message.link.info.board}{sim}, telemetry "
+                  f"{self.stream_rate_hz:g} Hz")
+        self.update_safety()
+
+    def adopt(self, link: Link) -> None:
+        """Make ``link`` (open, handshaken, streaming) the App's link."""
+        self.link = link
+        self._event_cursor = link.event_cursor()
         self.trip_cause = None
-        info = message.link.info
+        self.memory = None
+        self._lost_link = None
+        self.relink_text = ""
+        info = link.info
         sim = " (SIMULATED)" if info.simulated else ""
         self.sub_title = f"{info.board} · {info.rig}{sim}"
-        self.note(f"connected to {info.board}{sim}, telemetry {self.stream_rate_hz:g} Hz")
         self.link_serial += 1
-        self.update_safety()
-        if getattr(message.link.clock, "virtual", False):
-            self.pace_virtual_clock(message.link)
+        if getattr(link.clock, "virtual", False):
+            self.pace_virtual_clock(link)
 
     def pace_virtual_clock(self, link: Link, *, step_s: float = 0.02) -> None:
         """A virtual clock moves only while someone waits on the link: the UI watches live,
@@ -242,12 +268,18 @@ class RigApp(App):
 
     def update_safety(self) -> None:
         link = self.link
-        if link is not None:
+        if link is not None and link is not self._lost_link:
             self._event_cursor, events = link.events_since(self._event_cursor)
             for ev in events:
                 self._on_event(ev)
+            state = link.state
+            if state == "ok":
+                self.memory = remember(link)  # what to compare with after a restart
+            elif state == "lost":
+                self.link_lost(link)
         self.safety = read_safety(link, port=self.url, note=self.note_text,
-                                  failure=self.failure, trip_cause=self.trip_cause)
+                                  failure=self.failure, trip_cause=self.trip_cause,
+                                  relink=self.relink_text)
 
     def _on_event(self, ev) -> None:
         if ev.source == "board" and ev.kind == "trip":
@@ -262,6 +294,12 @@ class RigApp(App):
             self.trip_cause = None
         elif ev.source == "board" and ev.kind == "done":
             self.note(f"{ev.get('mode', 'timed mode')} finished")
+        elif ev.source == "link" and ev.kind == "resync" and self.memory is not None:
+            found = compare(self.memory, self.link, restarted=True)
+            text = (f"board restarted, handshake done again: {'; '.join(found.changes())}; "
+                    f"motor {found.motor}, not re-armed")
+            self.note(text)
+            self.notify(text, title="Board restarted", severity="warning", timeout=10)
         elif ev.source == "link" and ev.kind in ("lost", "reset", "resync"):
             what = {"lost": "link lost", "reset": "board restarted",
                     "resync": "handshake done again after the restart"}[ev.kind]
@@ -281,9 +319,10 @@ class RigApp(App):
         try:
             link.kill()
         except Exception as exc:  # noqa: BLE001 - a failed kill must be said, never raised
-            self.note(f"KILL NOT SENT: {error_words(exc)}. Use the hardware cut-off.")
-            self.notify("Kill could not be sent: use the hardware cut-off.",
-                        title="KILL FAILED", severity="error")
+            why = "the link is lost" if link.state == "lost" else error_words(exc)
+            self.note(f"KILL NOT SENT ({why}): use the hardware cut-off")
+            self.notify(f"The kill could not be sent ({why}): use the hardware cut-off.",
+                        title="KILL NOT DELIVERED", severity="error", timeout=10)
         else:
             self.kills_sent += 1
             self.note("kill sent; waiting for the board to confirm")
@@ -330,23 +369,12 @@ class RigApp(App):
         self.update_safety()
 
     def action_arm(self) -> None:
-        if self.need_link("arm") is None:
-            return
-        why = self.safety.why
-        body = ("Arming enables the motor driver. Nothing turns until a mode runs (hold, "
+        what = ("Arming enables the motor driver. Nothing turns until a mode runs (hold, "
                 "relay, open loop, injection), but from then on only a trip, a disarm or the "
-                f"kill ({KILL_KEYS_TEXT}) stops it.\n\n")
-        body += ("The board would refuse now: " + "; ".join(why) + "." if why
-                 else "Every interlock condition holds now.")
-        body += "\n\nIs the hardware cut-off within reach?"
-        self.push_screen(ConfirmDialog("Arm the motor?", body, "Arm the motor"),
-                         self._arm_confirmed)
-
-    def _arm_confirmed(self, yes: bool | None) -> None:
-        if yes:
-            self.board_command("arm", lambda link: link.arm())
-        else:
-            self.note("arming cancelled")
+                f"kill ({KILL_KEYS_TEXT}) stops it.")
+        guard.ask_motor_start(self, "Arm the motor?", what, "Arm the motor",
+                              lambda: self.board_command("arm", lambda link: link.arm()),
+                              cancelled="arming cancelled")
 
     def action_disarm(self) -> None:
         self.board_command("disarm", lambda link: link.disarm())
@@ -355,7 +383,12 @@ class RigApp(App):
         self.board_command("clear fault", lambda link: link.clear())
 
     def action_hold(self) -> None:
-        self.board_command("hold (closed loop)", lambda link: link.mode("hold").get("mode"))
+        what = ("Hold closes the loop on the board's present gains. With the motor armed the "
+                "loop drives it at once; disarmed, it turns as soon as it is armed.")
+        guard.ask_motor_start(
+            self, "Hold: close the loop?", what, "Hold",
+            lambda: self.board_command("hold (closed loop)",
+                                       lambda link: link.mode("hold").get("mode")))
 
     def action_motor_off(self) -> None:
         self.board_command("mode off", lambda link: link.mode("off").get("mode"))

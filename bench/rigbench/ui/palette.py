@@ -41,6 +41,10 @@ ACTIONS: tuple[tuple[str, str, str | None, str], ...] = (
     ("Show the link", "ports, raw frames, health (5)", "link", ""),
     ("Connect to the chosen port", "link screen (enter)", "link", "screen.connect"),
     ("Show keys and help", "every key (F1)", "help", ""),
+    ("Reconnect the lost link", "same port, handshake, never re-arms (ctrl+r)", None,
+     "app.reconnect"),
+    ("Quit", "disarms and stops the stream first; asks while armed (ctrl+q)", None,
+     "app.quit"),
 )
 
 

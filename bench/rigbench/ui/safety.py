@@ -15,6 +15,7 @@ from __future__ import annotations
 from typing import Generic, TypeVar
 
 from textual.app import ComposeResult
+from textual.binding import Binding
 from textual.containers import Vertical
 from textual.content import Content
 from textual.screen import ModalScreen, Screen
@@ -37,6 +38,8 @@ def bar_lines(state: SafetyState) -> Content:
     """The bar's two lines as styled text (plain text, no markup parsing). The most urgent
     first, so a narrow terminal cuts the link figures, never the kill key or the motor."""
     sep = ("  │  ", "$text-muted")
+    if state.kill_blocked:
+        return blocked_lines(state, sep)
     parts: list = []
     if state.alarm:
         parts += [(" ALARM ", "bold reverse $error"), " ", (state.alarm, "bold $error"), sep]
@@ -75,6 +78,23 @@ def bar_lines(state: SafetyState) -> Content:
     if state.note:
         line2 = Content.assemble(line2, sep, (state.note, "italic"))
     return Content.assemble(line1, "\n", line2)
+
+
+KILL_BLOCKED_TEXT = "KILL NOT DELIVERED — USE THE HARDWARE CUT-OFF"
+
+
+def blocked_lines(state: SafetyState, sep) -> Content:
+    """The bar while the link cannot carry a kill: that first, the motor unknown, then how
+    the link comes back, the last note and the reason the link went."""
+    line1 = Content.assemble((f" {state.alarm} ", "bold reverse $error"), " ",
+                             (KILL_BLOCKED_TEXT, "bold $error"), sep,
+                             ("MOTOR ", "$text-muted"), ("unknown", "bold $error"), sep,
+                             ("LINK ", "$text-muted"), state.port)
+    rest = [text for text in (state.relink, state.note, state.alarm_detail) if text]
+    line2: list = []
+    for i, text in enumerate(rest):
+        line2 += ([sep] if i else []) + [(text, "bold $error" if i == 0 else "")]
+    return Content.assemble(line1, "\n", *line2)
 
 
 class SafetyBar(Widget):
@@ -164,9 +184,17 @@ def size_classes(app) -> dict[str, bool]:
     return out
 
 
+# First in every footer, whatever a screen adds: Textual lists a screen's bindings (its
+# base classes' first) before the App's, so the App's priority bindings for these keys,
+# which replace them where they stand, would otherwise be cut off on a narrow terminal.
+FOOTER_FIRST = [Binding("ctrl+k", "app.kill", "KILL"), Binding("ctrl+q", "app.quit", "Quit")]
+
+
 class BenchScreen(Screen):
     """A full screen with header, body, safety bar and footer. Subclasses write
     :meth:`compose_body`."""
+
+    BINDINGS = FOOTER_FIRST
 
     def on_mount(self) -> None:
         # Textual sets the size classes on the first resize, after a first layout without
@@ -195,6 +223,13 @@ class BenchModal(ModalScreen[ResultType], Generic[ResultType]):
     DEFAULT_CSS = """
     BenchModal { align: center middle; }
     """
+    BINDINGS = FOOTER_FIRST
+
+    def on_mount(self) -> None:
+        # as BenchScreen: the size classes before the first layout (a short terminal
+        # lays the dialog out tighter, rigbench.ui.widgets.dialogs)
+        for name, on in size_classes(self.app).items():
+            self.set_class(on, name)
 
     def compose(self) -> ComposeResult:
         yield from self.compose_dialog()

@@ -65,6 +65,8 @@ class SafetyState:
     alarm: str = ""  # non-empty: the bar turns into an alarm with this headline
     alarm_detail: str = ""  # what happened, in words
     note: str = ""  # the last thing the app did or was told (kill sent, arm refused...)
+    kill_blocked: bool = False  # the link cannot carry a kill: only the hardware cut-off can
+    relink: str = ""  # how the app is getting the link back, in words
 
     @property
     def motor_text(self) -> str:
@@ -91,7 +93,8 @@ def refusal_words(code: str, text: str = "") -> str:
 
 
 def read_safety(link, *, port: str, note: str = "", failure: str = "",
-                trip_cause: str | None = None, stale_after_s: float = 0.35) -> SafetyState:
+                trip_cause: str | None = None, stale_after_s: float = 0.35,
+                relink: str = "") -> SafetyState:
     """Build the bar's snapshot from a link (or ``None`` while none is open).
 
     ``failure`` is the last opening error in words; ``trip_cause`` the cause of the last
@@ -99,6 +102,10 @@ def read_safety(link, *, port: str, note: str = "", failure: str = "",
     the link says it is stale, lost or reset, or when nothing has arrived for
     ``stale_after_s`` (link clock). The UI keeps telemetry streaming at 25 Hz or more, so
     a quiet link that long means trouble; polled at 10 Hz, the alarm shows within 0.45 s.
+
+    A lost or closed link cannot carry a kill: ``kill_blocked`` is set and the motor is
+    "unknown" (the board may have tripped on its watchdog, or not). ``relink`` says how
+    the app is getting the link back.
     """
     if link is None:
         state = "failed" if failure else "connecting"
@@ -122,10 +129,13 @@ def read_safety(link, *, port: str, note: str = "", failure: str = "",
         alarm, detail = "TELEMETRY STALE", f"nothing received{age}"
     if alarm and detail:
         detail += "; the board's watchdog turns the motor off when heartbeats stop"
+    kill_blocked = health.state in ("lost", "closed")
     # motor_state follows replies and trip events at once; status frames come 2-10 Hz
     motor = link.motor_state or (status.motor if status else "unknown")
     mode = status.mode if status else ""
     why = tuple(interlock_words(status.why)) if status else ()
+    if kill_blocked:  # nothing the board said before still holds
+        motor, mode, why = "unknown", "", ()
     fault = ""
     if motor == "tripped":
         fault = trip_words((status.fault if status and status.fault else None) or trip_cause)
@@ -133,4 +143,5 @@ def read_safety(link, *, port: str, note: str = "", failure: str = "",
         link=health.state, port=port, frames_per_s=health.frames_per_s, errors=errors,
         simulated=bool(getattr(info, "simulated", False)), motor=motor, mode=mode,
         fault=fault, why=why, alarm=alarm, alarm_detail=detail, note=note,
+        kill_blocked=kill_blocked, relink=relink if kill_blocked else "",
     )

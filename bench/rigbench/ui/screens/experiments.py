@@ -19,7 +19,7 @@ from textual.widgets import DataTable, Input, Label, ProgressBar, Select, Static
 
 from rigbench.experiments.conventions import primary_loop
 
-from rigbench.ui import runners
+from rigbench.ui import guard, runners
 from rigbench.ui.results import cycle_row, progress_text, relay_lines, sweep_lines
 from rigbench.ui.safety import BenchScreen
 
@@ -189,6 +189,35 @@ class ExperimentsScreen(BenchScreen):
                                **self.numbers(SWEEP_FIELDS))
         except ValueError as exc:
             state.update(str(exc))
+            return
+        name = "relay test" if kind == "relay" else "disturbance sweep"
+        guard.ask_motor_start(
+            self.app, f"Start the {name}?", self.start_text(kind, loop, options),
+            f"Start the {name}", lambda: self._launch(kind, link, loop, options),
+            cancelled=f"{name} not started: nothing was armed")
+
+    def start_text(self, kind: str, loop: str, options: dict) -> str:
+        """What the experiment will do to the motor, in words, for the confirmation."""
+        if kind == "relay":
+            amp = options.get("amplitude")
+            size = f"amplitude {amp:g}" if amp else "an amplitude sized from a short hold"
+            return (f"The relay test arms the motor through the board's interlock and "
+                    f"switches loop {loop} with {size} until {options.get('cycles', 4)} "
+                    f"cycles agree, for at most {options.get('max_s', 60):g} s. Guards kill "
+                    "the motor near the trip limits or on a lost link; it ends with the "
+                    "motor off or back in the loop it was found in.")
+        sets = ", ".join(name for name, _ in options["gain_sets"])
+        steps = ", ".join(f"{a:g}" for a in options.get("amplitudes", ()))
+        return (f"The sweep arms the motor, holds loop {loop} with each gain set ({sets}) "
+                f"and applies {options.get('kind')} disturbances at the {options.get('at')} "
+                f"(sizes {steps or 'default'}, {options.get('repeats', 3)} repeats each). "
+                "Guards kill the motor near the trip limits or on a lost link.")
+
+    def _launch(self, kind: str, link, loop: str, options: dict) -> None:
+        state = self.query_one("#exp-state", Static)
+        if self.running or self.app.link is not link:
+            state.update("not started: " + (f"a {self.running} test is running"
+                                            if self.running else "the link changed"))
             return
         self.running = kind
         self.cycles_shown = 0

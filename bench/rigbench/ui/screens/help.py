@@ -21,7 +21,11 @@ The bar at the bottom of every screen shows the link (port, frames per second, e
 SIMULATED for a simulated board, the motor (off, armed, running, tripped and why), and why \
 arming would be refused now. It turns red when the link is lost or telemetry stops.
 
-Arming always asks first. Clearing a fault never starts the motor: it leaves it off.
+Every action that can move the motor asks first (arm, hold, relay test, disturbance sweep, sequence; from a key or the palette): Cancel starts nothing. Clearing a fault never starts the motor: it leaves it off.
+
+A lost link cannot carry a kill: the bar says KILL NOT DELIVERED and the motor state is unknown; arming and tests are refused. A board on a device path that comes back (plugged in again, restarted) is reopened by itself, ctrl+r tries at once; the bar says what changed (restart, latched fault, gains), and nothing is ever re-armed.
+
+ctrl+q quits: it disarms the motor and stops the telemetry stream first, and asks while the motor is armed or running.
 ctrl+p opens the command palette: every action below can be found there by name.
 """
 
@@ -56,7 +60,7 @@ class HelpScreen(BenchScreen):
     def on_mount(self) -> None:
         lines = ["Everywhere"]
         lines += [f"  {keys:<22} {what}" for keys, what in binding_rows(self.app.BINDINGS)]
-        lines += ["  ctrl+p                 command palette", "  ctrl+q                 quit"]
+        lines += ["  ctrl+p                 command palette"]
         for mode, screen_cls in self.app.MODES.items():
             rows = binding_rows(getattr(screen_cls, "BINDINGS", []))
             if rows and screen_cls is not type(self):

@@ -129,9 +129,10 @@ class LiveScreen(BenchScreen):
         options = [(n, n) for n in names]
         for i, panel in enumerate(self.query(PlotPanel)):
             pick = panel.query_one(Select)
-            pick.set_options(options)
             panel.signal = chosen[i] if i < len(chosen) else None
+            # new options blank the value: that Changed would undo the choice (a new link)
             with pick.prevent(Select.Changed):
+                pick.set_options(options)
                 pick.value = panel.signal if panel.signal else Select.BLANK
 
     def on_select_changed(self, event: Select.Changed) -> None:

@@ -21,7 +21,7 @@ from rigbench.sequences import check as sequence_check
 from rigbench.sequences import file as sequence_file
 from rigbench.sequences import steps as sequence_steps
 
-from rigbench.ui import runners
+from rigbench.ui import guard, runners
 from rigbench.ui.safety import BenchScreen
 
 
@@ -142,6 +142,19 @@ class SequencesScreen(BenchScreen):
             return
         if runners.find("sequence") is None:
             self._state(runners.missing_text("sequence"))
+            return
+        seq = self.sequence
+        what = (f"The sequence {seq.name!r} runs {len(self.steps)} steps on this board; "
+                "steps that arm, hold or run a test move the motor. It ends with the motor "
+                f"off; on abort (x): {seq.on_abort}.")
+        guard.ask_motor_start(self.app, "Run the sequence?", what, "Run the sequence",
+                              lambda: self._launch(link, seq),
+                              cancelled="sequence not started: nothing was armed")
+
+    def _launch(self, link, seq) -> None:
+        if self.running or self.app.link is not link or self.sequence is not seq:
+            self._state("not started: " + ("already running" if self.running
+                                           else "the link or the file changed"))
             return
         self.running = True
         self._state(f"running {self.sequence.name}…")

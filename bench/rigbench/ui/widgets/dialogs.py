@@ -34,6 +34,7 @@ class ConfirmDialog(BenchModal[bool]):
     """Ask before doing something with consequences; dismisses with True or False."""
 
     BINDINGS = [Binding("escape", "cancel", "Cancel")]
+    AUTO_FOCUS = "#cancel"  # Textual focuses it whenever the dialog comes to the front
 
     def __init__(self, title: str, body: str, confirm: str, *, danger: bool = True) -> None:
         super().__init__()
@@ -50,7 +51,9 @@ class ConfirmDialog(BenchModal[bool]):
                              variant="warning" if self.danger else "primary")
 
     def on_mount(self) -> None:
-        self.query_one("#cancel", Button).focus()
+        # a dialog dismissed before its mount was handled (a busy app) has no buttons left
+        for button in self.query("#cancel").results(Button):
+            button.focus()
 
     def on_button_pressed(self, event: Button.Pressed) -> None:
         event.stop()
