@@ -160,16 +160,25 @@ def _check_lag(alpha: float, sigma: float, seconds: float, sigmas: float = 2.0) 
 
 
 def _fit_actuator(wheel, cmd, max_delay: int, n_eff: float):
-    """w[k+1] = α·w[k] + β·u[k−d], scanning d; returns (α, β, d, covariance)."""
-    best = None
+    """w[k+1] = α·w[k] + β·u[k−d] by least squares for each d; returns (α, β, d, covariance).
+
+    The d kept has the smallest one-step residual among the fits that are a lag
+    (0 < α < 1). On low-passed data every d predicts w[k+1] almost equally well, and a
+    large d with α > 1 (an extrapolator of the smooth record, no lag) can win by a hair
+    and get a good record refused. With no lag among the fits the best one is returned
+    for _check_lag to refuse.
+    """
+    best, best_lag = None, None
     for d in range(max_delay + 1):
         k = np.arange(d, len(wheel) - 1)
         x = np.column_stack([wheel[k], cmd[k - d]])
         p, cov, res = _lstsq(x, wheel[k + 1], n_eff)
-        rss = float(res @ res) / len(k)
-        if best is None or rss < best[0]:
-            best = (rss, float(p[0]), float(p[1]), d, cov)
-    return best[1:]
+        fit = (float(res @ res) / len(k), float(p[0]), float(p[1]), d, cov)
+        if best is None or fit[0] < best[0]:
+            best = fit
+        if 0.0 < fit[1] < 1.0 and (best_lag is None or fit[0] < best_lag[0]):
+            best_lag = fit
+    return (best_lag or best)[1:]
 
 
 from rigbench.tuning.balance_design import LqrDesign, design_lqr, design_pole_placement  # noqa: E402
