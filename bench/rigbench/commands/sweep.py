@@ -24,6 +24,7 @@ from rigbench.profiles.model import SchemaError, check_against_board, load_profi
 
 from rigbench.commands._signals import kill_on_signal
 from rigbench.commands._common import add_json_option, add_port_option, open_link, plain, print_json, table
+from rigbench.commands._confirm import add_yes_option, confirm_motion
 from rigbench.commands._progress import experiment_run
 
 if TYPE_CHECKING:
@@ -61,6 +62,7 @@ def add_parser(subparsers):
                         "interlock allows arming (someone must stand the rig up)")
     p.add_argument("--out", default=None, metavar="DIR",
                    help="write the recordings and sweep.json into DIR")
+    add_yes_option(p)
     add_json_option(p)
     return p
 
@@ -187,6 +189,7 @@ def run(args) -> int:
     with open_link(args) as link, kill_on_signal(link):
         sets = _load_sets(args, link)
         baseline = _checked_profile(args.baseline, link).values() if args.baseline else None
+        confirm_motion(link, args, f"a disturbance sweep of {len(sets)} gain set(s)")
         with experiment_run() as bar:
             sw = run_sweep(link, sets, loop=args.loop, amplitudes=amplitudes,
                            repeats=args.repeats, kind=args.kind, at=args.at,

@@ -31,6 +31,7 @@ from rigbench.experiments.relay import RelayConfig
 
 from rigbench.commands._signals import kill_on_signal
 from rigbench.commands._common import add_json_option, add_port_option, open_link, plain, print_json, table
+from rigbench.commands._confirm import add_yes_option, confirm_motion
 from rigbench.commands._progress import experiment_run
 
 
@@ -71,6 +72,7 @@ def add_parser(subparsers):
                         "<= X (default 0.5)")
     p.add_argument("--out", default=None, metavar="DIR",
                    help="write the recording, tune.json and tune.md into DIR")
+    add_yes_option(p)
     add_json_option(p)
     return p
 
@@ -230,6 +232,7 @@ def run(args) -> int:
         if loop not in link.loops:
             raise CommandError(EXIT_USAGE, f"the board has no loop {loop!r}; it has: "
                                + ", ".join(link.loops))
+        confirm_motion(link, args, f"a relay test on loop {loop}")
         with experiment_run() as bar:
             result = autotune(link, loop, config, progress=bar, results_dir=out_dir)
         doc = tune_document(result, simulated=link.simulated)
