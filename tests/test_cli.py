@@ -102,8 +102,8 @@ def test_internal_error_is_one_line_unless_debug(capsys, monkeypatch):
 def _parser_running(fn):
     real = cli.build_parser
 
-    def build(only=None):
-        parser = real(only)
+    def build():
+        parser = real()
         parser.set_defaults(_run=fn)
         for action in parser._subparsers._group_actions:
             for sub in action.choices.values():

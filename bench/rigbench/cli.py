@@ -2,7 +2,7 @@
 
 Each subcommand lives in its own module ``bench/rigbench/commands/<name>.py`` with two functions,
 ``add_parser(subparsers) -> argparse.ArgumentParser`` and ``run(args) -> int``; the names in
-``COMMANDS`` below are the ones registered, in the order ``--help`` lists them, and plain
+``COMMAND_MODULES`` below (plain imports) are the ones registered, in the order ``--help`` lists them, and plain
 ``rigbench`` runs ``DEFAULT_COMMAND`` (the terminal UI). A command
 returns an exit code or raises: ``CommandError(code, message)`` for an expected failure,
 ``LinkError``/``BoardRefused`` from the link; ``main`` turns these into one line on stderr
@@ -26,7 +26,6 @@ from __future__ import annotations
 
 import argparse
 import errno
-import importlib
 import os
 import sys
 import traceback
@@ -39,8 +38,17 @@ from rigbench.base.version import package_version
 from rigbench.commands._common import DEFAULT_PORT, CommandError  # noqa: F401
 
 # Subcommand modules under bench/rigbench/commands/, in the order --help shows them.
-COMMANDS = ["ui", "ports", "info", "watch", "kill", "clear", "sim", "tune", "sweep", "push",
-            "pull", "diff", "run", "report", "examples"]
+from rigbench.commands import (  # noqa: E402  (each loads light: tests/test_cli_imports.py)
+    clear, diff, examples, info, kill, ports, pull, push, report, run, sim, sweep, tune, ui,
+    watch,
+)
+
+# the subcommands, in the order --help lists them
+COMMAND_MODULES = {"ui": ui, "ports": ports, "info": info, "watch": watch, "kill": kill,
+                   "clear": clear, "sim": sim, "tune": tune, "sweep": sweep, "push": push,
+                   "pull": pull, "diff": diff, "run": run, "report": report,
+                   "examples": examples}
+COMMANDS = list(COMMAND_MODULES)
 DEFAULT_COMMAND = "ui"  # what plain ``rigbench`` runs
 
 
@@ -56,8 +64,8 @@ class Parser(argparse.ArgumentParser):
         raise UsageError(f"{self.prog}: {message} (see {self.prog} --help)")
 
 
-def build_parser(only: str | None = None) -> Parser:
-    """The whole command line; with ``only``, just that command's module is loaded."""
+def build_parser() -> Parser:
+    """The whole command line: one subparser per module of ``COMMAND_MODULES``."""
     parser = Parser(prog="rigbench",
                     description="Tune, verify and document the control loops of balanced rigs.",
                     epilog="exit codes: " + "; ".join(f"{k} {v.split(':')[0].split(' (')[0]}"
@@ -66,32 +74,12 @@ def build_parser(only: str | None = None) -> Parser:
     parser.add_argument("--version", action="version", version=f"rigbench {package_version()}",
                         help="print the version and exit")
     sub = parser.add_subparsers(dest="command", metavar="COMMAND")
-    for name in COMMANDS:
-        if only is not None and name != only:
-            # not the command being run: a bare entry, so its module (some import scipy,
-            # about a second) is not loaded just to start `rigbench kill`
-            sub.add_parser(name, add_help=False).add_argument("rest", nargs=argparse.REMAINDER)
-            continue
-        try:
-            module = importlib.import_module(f"rigbench.commands.{name}")
-            sp = module.add_parser(sub)
-            run = module.run
-        except Exception as exc:  # noqa: BLE001 - one broken command must not take `kill` down
-            sp = sub.add_parser(name, help=f"(cannot load: {type(exc).__name__})",
-                                add_help=False)
-            sp.add_argument("rest", nargs=argparse.REMAINDER)
-            run = _broken(name, exc)
+    for module in COMMAND_MODULES.values():
+        sp = module.add_parser(sub)
         sp.add_argument("--debug", action="store_true", default=argparse.SUPPRESS,
                         help="show tracebacks of errors")
-        sp.set_defaults(_run=run)
+        sp.set_defaults(_run=module.run)
     return parser
-
-
-def _broken(name: str, exc: Exception):
-    def run(args):
-        raise RuntimeError(f"command {name!r} cannot be loaded: {type(exc).__name__}: {exc}") \
-            from exc
-    return run
 
 
 _DISK_ERRNOS = {errno.ENOSPC, errno.EDQUOT, errno.EIO, errno.EROFS, errno.EFBIG}
@@ -119,8 +107,7 @@ def main(argv: list[str] | None = None) -> int:
         argv = [DEFAULT_COMMAND] + [tok for tok in argv if tok != "--debug"] + (
             ["--debug"] if debug else [])
     try:
-        selected = next((tok for tok in argv if tok in COMMANDS), None)
-        parser = build_parser(only=selected) if selected else build_parser()
+        parser = build_parser()
         args = parser.parse_args(argv)
     except UsageError as exc:
         return _fail(EXIT_USAGE, str(exc), False)

@@ -24,10 +24,8 @@ from rigbench.base.stops import exit_code_for, EXIT_CHECK, EXIT_INTERNAL, EXIT_I
 from rigbench.base.atomic import write_text_atomic
 from rigbench.commands._common import CommandError, help_text
 from rigbench.tuning.margin_result import gain_margin_text
-from rigbench.experiments.conventions import primary_loop
-from rigbench.experiments.autotune import AutotuneConfig, autotune
-from rigbench.experiments.ranking import RankLimits
-from rigbench.experiments.relay import RelayConfig
+# the experiments (and scipy with them) are imported inside the functions that run them, so
+# loading this module to build the command line stays light (tests/test_cli_imports.py)
 
 from rigbench.commands._signals import kill_on_signal
 from rigbench.commands._common import add_json_option, add_port_option, open_link, plain, print_json, table
@@ -195,6 +193,7 @@ def _which_loop_text(link) -> str:
     """Usage error for a board with several loops (or none): the loops, and which one is
     usually tuned first."""
     text = "name the loop with --loop; the board has: " + (", ".join(link.loops) or "none")
+    from rigbench.experiments.conventions import primary_loop
     choice = primary_loop(link.loops, {s.name: s.unit for s in link.signals})
     if choice.name is not None and not choice.ambiguous:
         text += f". Start with --loop {choice.name}: {choice.reason}"
@@ -204,6 +203,9 @@ def _which_loop_text(link) -> str:
 
 
 def run(args) -> int:
+    from rigbench.experiments.autotune import AutotuneConfig, autotune
+    from rigbench.experiments.ranking import RankLimits
+    from rigbench.experiments.relay import RelayConfig
     if (args.max_seconds is not None and args.max_seconds <= 0) or args.cycles < 1 \
             or args.margin <= 0 or args.margin >= 90:
         raise CommandError(EXIT_USAGE, "--max-seconds > 0, --cycles >= 1, 0 < --margin < 90")
