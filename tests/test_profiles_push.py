@@ -78,10 +78,10 @@ def test_dry_run_sends_no_set(link):
 
 def test_pull_push_pull_round_trip(link):
     push_profile(link, SOFT)
-    first = profile_from_board(link, "tilt", extra=["tilt_dfilt_s"], date="2025-03-14")
+    first = profile_from_board(link, "tilt", also=["trim"], extra=["tilt_dfilt_s"], date="2025-03-14")
     push_profile(link, START)
     assert push_profile(link, first).ok
-    second = profile_from_board(link, "tilt", extra=["tilt_dfilt_s"], date="2025-03-14")
+    second = profile_from_board(link, "tilt", also=["trim"], extra=["tilt_dfilt_s"], date="2025-03-14")
     assert second == first and dump_profile(second) == dump_profile(first)
     assert first.values() == SOFT.values()
 
@@ -178,14 +178,14 @@ def test_commands_round_trip_through_the_boards_storage(tmp_path, capsys):
     soft, start = str(ROOT / "profiles" / "demo-balance-soft.yaml"), \
         str(ROOT / "profiles" / "demo-balance-start.yaml")
     assert main(["push", soft, "--port", port, "--persist"]) == 0
-    assert main(["pull", "-o", str(a), "--loop", "tilt", "--param", "tilt_dfilt_s",
+    assert main(["pull", "-o", str(a), "--loop", "tilt", "--loop", "trim", "--param", "tilt_dfilt_s",
                  "--port", port]) == 0
     assert load_profile(a).values() == SOFT.values()  # the board booted with what was saved
     assert main(["push", start, "--port", port, "--persist"]) == 0
     assert main(["push", str(a), "--port", port, "--persist", "--json"]) == 0
     out = json.loads(capsys.readouterr().out.strip().splitlines()[-1])
     assert out["ok"] and out["saved"]["verified"] and out["mismatches"] == []
-    assert main(["pull", "-o", str(b), "--loop", "tilt", "--param", "tilt_dfilt_s",
+    assert main(["pull", "-o", str(b), "--loop", "tilt", "--loop", "trim", "--param", "tilt_dfilt_s",
                  "--port", port]) == 0
 
     def no_date(p):
@@ -208,7 +208,7 @@ def test_push_command_exit_codes(tmp_path, capsys):
                  "/dev/rigbench-no-such-port"]) == 3
     assert main(["push", str(ROOT / "profiles" / "demo-balance-soft.yaml"), "--port", URL,
                  "--dry-run"]) == 0
-    assert "dry run: nothing sent (2 of 8 values would change)" in capsys.readouterr().out
+    assert "dry run: nothing sent (2 of 11 values would change)" in capsys.readouterr().out
 
 
 def test_pull_needs_a_loop_when_the_board_has_several(tmp_path, capsys):

@@ -70,6 +70,11 @@ def add_parser(subparsers):
                         "<= X (default 0.5)")
     p.add_argument("--out", default=None, metavar="DIR",
                    help="write the recording, tune.json and tune.md into DIR")
+    p.add_argument("--save-profile", default=None, metavar="FILE",
+                   help="write the chosen proposal as a gain profile (every loop it sets, "
+                        "complete, with its predicted margins), ready for rigbench push")
+    p.add_argument("--rule", default=None, metavar="ID",
+                   help="the proposal --save-profile writes (default: the first recommended)")
     add_yes_option(p)
     add_json_option(p)
     return p
@@ -202,6 +207,32 @@ def _which_loop_text(link) -> str:
     return text
 
 
+def _save_profile(args, link, result, loop: str, out_dir) -> str:
+    """Write the chosen proposal as a profile; the line to print (CommandError if none)."""
+    from rigbench.profiles.model import profile_from_proposal, save_profile
+    props = result.proposals.proposals if result.proposals is not None else []
+    if args.rule:
+        chosen = next((p for p in props if p.rule == args.rule and p.applies), None)
+        if chosen is None:
+            raise CommandError(EXIT_USAGE, f"--rule {args.rule}: no such proposal here; "
+                               "proposals: " + ", ".join(p.rule for p in props if p.applies))
+    else:
+        rec = result.recommended
+        if not rec:
+            raise CommandError(EXIT_CHECK, "nothing recommended, so no profile was written; "
+                               "choose one with --rule ID to write it all the same")
+        chosen = rec[0]
+    rec_path = result.run.experiment.recording if result.run.experiment else None
+    prof = profile_from_proposal(link, chosen, loop=loop,
+                                 experiment=None if rec_path is None else str(rec_path),
+                                 notes=None if chosen.recommended else
+                                 "NOT RECOMMENDED: " + "; ".join(chosen.not_recommended))
+    save_profile(prof, args.save_profile)
+    return (f"wrote {args.save_profile}: {chosen.rule} on {'+'.join(prof.loops)} "
+            f"({'recommended' if chosen.recommended else 'not recommended'}); "
+            f"push it with rigbench push {args.save_profile}")
+
+
 def run(args) -> int:
     from rigbench.experiments.autotune import AutotuneConfig, autotune
     from rigbench.experiments.ranking import RankLimits
@@ -238,7 +269,14 @@ def run(args) -> int:
         with experiment_run() as bar:
             result = autotune(link, loop, config, progress=bar, results_dir=out_dir)
         doc = tune_document(result, simulated=link.simulated)
-    text = tune_text(doc)
+        saved, save_error = None, None
+        if args.save_profile:
+            try:
+                saved = _save_profile(args, link, result, loop, out_dir)
+            except CommandError as exc:
+                save_error = exc
+        doc["saved_profile"] = args.save_profile if saved else None
+    text = tune_text(doc) + (f"\n{saved}" if saved else "")
     if out_dir is not None:
         write_text_atomic(out_dir / "tune.json", json.dumps(plain(doc), indent=2) + "\n")
         write_text_atomic(out_dir / "tune.md", f"# rigbench tune\n\n```\n{text}\n```\n")
@@ -246,4 +284,6 @@ def run(args) -> int:
         print_json(doc)
     else:
         print(text)
+    if save_error is not None:
+        raise save_error
     return result.exit_code

@@ -12,6 +12,7 @@ compares two profiles setting by setting. Values are in the board's declared uni
 from __future__ import annotations
 
 import datetime as _dt
+import math
 import re
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -25,7 +26,7 @@ from rigbench.base.yamlload import Cursor, MapCursor, SchemaError, load_yaml, lo
 __all__ = ["PROFILE_VERSION", "SOURCES", "PREDICTED_KEYS", "Setting", "Provenance", "Profile",
            "Problem", "SchemaError", "load_profile", "load_profile_text",
            "dump_profile", "save_profile", "check_against_board", "profile_from_board",
-           "read_values"]
+           "read_values", "profile_from_proposal"]
 
 PROFILE_VERSION = 2          # written when a profile holds several loops
 READ_VERSIONS = (1, 2)       # format 1: one loop (``loop:``); 2 adds ``loops:``
@@ -414,3 +415,51 @@ def profile_from_board(link, loop: str, *, also: Iterable[str] = (), name: str |
                               date=date or _dt.date.today().isoformat()),
         notes=notes if notes is not None else
         f"Read from board {info.board} (firmware {info.firmware}).")
+
+
+def profile_from_proposal(link, proposal, *, loop: str, name: str | None = None,
+                          experiment: str | None = None, date: str | None = None,
+                          notes: str | None = None) -> Profile:
+    """A gain proposal (``rule``, ``gains``, ``margins``, ``details``, ``source`` — the
+    autotune result's proposals) as a profile for ``link``'s board, ready to push.
+
+    The set is complete: every loop whose gains the proposal sets is in it (``loop`` first)
+    with all of that loop's gains, the ones the proposal leaves alone at the board's current
+    values — so a design that retunes the wheel-speed trim loop with the tilt loop is one
+    atomic set (format 2). The predicted margins go into the provenance."""
+    loops, params, info = link.loops, link.params, link.info
+    if loop not in loops:
+        raise ValueError(f"the board has no loop {loop!r}")
+    gains = {str(k): float(v) for k, v in proposal.gains.items()}
+    unknown = [n for n in gains if n not in params]
+    if unknown:
+        raise ValueError(f"the proposal sets {', '.join(unknown)}, which the board does not have")
+    touched = [loop] + [n for n, lp in loops.items() if n != loop and set(lp.gains) & set(gains)]
+    names = list(dict.fromkeys(g for n in touched for g in loops[n].gains))
+    missing = [g for g in names if g not in gains]
+    current = read_values(link, missing) if missing else {}
+    extra = [g for g in gains if g not in names]      # e.g. a derivative filter time
+    m = getattr(proposal, "margins", None)
+    predicted = {}
+    if m is not None and getattr(m, "stable", False):
+        for key, value in (("gain_margin_db", m.gain_margin_upper_db),
+                           ("gain_margin_lower_db", m.gain_margin_lower_db),
+                           ("phase_margin_deg", m.phase_margin_deg),
+                           ("delay_margin_s", m.delay_margin_s), ("ms", m.ms),
+                           ("crossover_rad_s", m.crossover_rad_s)):
+            if value is not None and math.isfinite(value):
+                predicted[key] = float(value)
+    target = (getattr(proposal, "details", None) or {}).get("target_margin_deg")
+    if target is not None:
+        predicted["target_phase_margin_deg"] = float(target)
+    # model-based designs (pole placement, LQR) are "design"; published rules are "rule"
+    source = "design" if proposal.rule.startswith(("pole-placement", "lqr")) else "rule"
+    return Profile(
+        name=name or f"{proposal.rule} on {'+'.join(touched)}",
+        rig=info.rig, board=info.board, loop=loop, loops=tuple(touched),
+        gains={n: Setting(n, gains.get(n, current.get(n)), params[n].unit)
+               for n in names + extra},
+        provenance=Provenance(source=source, date=date or _dt.date.today().isoformat(),
+                              method=proposal.rule, experiment=experiment,
+                              predicted=predicted),
+        notes=notes)
